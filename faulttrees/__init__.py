@@ -1,0 +1,1 @@
+"""Bundled demo fault trees (illustrative scenarios); installed with the package."""

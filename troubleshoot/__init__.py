@@ -1,0 +1,34 @@
+"""troubleshoot: fault trees turned into diagnostic Bayesian networks.
+
+The functional core (model, network, join tree, ranking, analysis) is pure;
+the shell (session, log, CLI, terminal UI) holds state and touches files.
+"""
+
+from importlib import metadata as _metadata
+
+from troubleshoot.model import Model
+
+try:
+    __version__ = _metadata.version("troubleshoot")
+except _metadata.PackageNotFoundError:  # running from a source tree
+    __version__ = "0.1.0"
+
+
+def load_model(path):
+    """Load, validate and return the Model in an XML model file.
+
+    Raises ModelError listing every problem (file:line and the fix) in one pass.
+    """
+    from troubleshoot.modelfile import load_model as _load
+
+    return _load(path)
+
+
+def save_model(model, path):
+    """Write a Model in the XML model format; load_model of it gives an equal Model."""
+    from troubleshoot.modelfile import save_model as _save
+
+    return _save(model, path)
+
+
+__all__ = ["Model", "load_model", "save_model", "__version__"]

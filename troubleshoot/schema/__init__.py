@@ -1,0 +1,1 @@
+"""The XML Schema of the model format."""

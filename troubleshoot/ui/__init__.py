@@ -1,0 +1,1 @@
+"""Terminal UI for the field technician (textual)."""
