@@ -1,0 +1,51 @@
+"""Random small models for property tests of the engine (every gate type,
+repeated events, unlisted causes, checks with several causes)."""
+
+from __future__ import annotations
+
+import random
+
+from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair
+
+
+def random_model(seed: int, n_events: int = 6, n_gates: int = 5, n_checks: int = 4,
+                 tiny: bool = False) -> Model:
+    """A random valid model; gates only read earlier gates, so it is acyclic."""
+    rng = random.Random(seed)
+    events = []
+    for i in range(n_events):
+        p = rng.choice([1e-6, 1e-3, 0.01, 0.05, 0.2, 0.5]) if tiny else rng.uniform(0.02, 0.6)
+        events.append(BasicEvent(f"e{i}", f"event {i}", p, repair=Repair(f"replace {i}", rng.randint(1, 30))))
+    gates: list[Gate] = []
+    for j in range(n_gates):
+        pool = [e.id for e in events] + [g.id for g in gates]
+        kind = rng.choice(["and", "or", "or", "atleast", "not", "inhibit"])
+        if kind == "not":
+            inputs = (rng.choice(pool),)
+            gates.append(Gate(f"g{j}", f"gate {j}", "not", inputs))
+            continue
+        if kind == "inhibit":
+            a, b = rng.sample(pool, 2)
+            gates.append(Gate(f"g{j}", f"gate {j}", "inhibit", (a,), condition=b))
+            continue
+        width = rng.randint(2, min(5, len(pool)))
+        inputs = tuple(rng.sample(pool, width))
+        k = rng.randint(1, width) if kind == "atleast" else None
+        unlisted = rng.choice([None, None, 0.05]) if kind == "or" else None
+        gates.append(Gate(f"g{j}", f"gate {j}", kind, inputs, k=k, unlisted=unlisted))
+    # The top reads the last gate and anything left unread, so everything is reachable.
+    read = {x for g in gates for x in g.operands}
+    loose = [x for x in [e.id for e in events] + [g.id for g in gates] if x not in read]
+    top = Gate("top", "the unit fails", rng.choice(["or", "and"]) if len(loose) > 1 else "or",
+               tuple(loose) if len(loose) > 1 else tuple(loose) + (gates[-1].id,) * 0 + (events[0].id,))
+    if top.inputs == (loose[0], events[0].id) or len(set(top.inputs)) != len(top.inputs):
+        top = Gate("top", "the unit fails", "or", tuple(dict.fromkeys(top.inputs)))
+    gates.append(top)
+    targets = [e.id for e in events] + [g.id for g in gates]
+    checks = []
+    for c in range(n_checks):
+        causes = tuple(Cause(t, rng.choice([1.0, 0.9, 0.6])) for t in rng.sample(targets, rng.randint(1, 3)))
+        checks.append(Check(f"c{c}", f"check {c}", rng.randint(1, 20), ("normal", "abnormal"), causes,
+                            false_alarm=rng.choice([0.0, 0.01, 0.1])))
+    return Model(name=f"random{seed}", top="top", gates=tuple(gates), basic_events=tuple(events),
+                 checks=tuple(checks))

@@ -1,0 +1,238 @@
+"""Exact posteriors for a model: findings in, every marginal and check family out.
+
+:class:`Engine` compiles one join tree per set of repairs (cached: findings
+never recompile it) and turns findings into likelihoods. A finding on a check
+or symptom multiplies P(outcome | causes) (noisy-OR with leak) onto the clique
+that holds the check's causes; a finding on an event or gate id is an exact
+observation of it. A finding carries its epoch, the number of repairs made
+before it, so it reads the gate logic as it was when the finding was made.
+
+References
+----------
+Lauritzen & Spiegelhalter 1988 (join tree); Pearl 1988 (noisy-OR).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from troubleshoot.errors import ImpossibleFindings, SessionError
+from troubleshoot.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability
+from troubleshoot.model import Model
+from troubleshoot.network import CheckFamily, Network, build_network
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One observation.
+
+    Parameters
+    ----------
+    target : str
+        A check or symptom id (outcome 0 = its first, normal outcome; 1 = its
+        second, abnormal one), or an event or gate id observed exactly
+        (0 = ok, 1 = failed).
+    outcome : int
+        0 or 1.
+    epoch : int
+        Repairs made before the finding.
+    """
+
+    target: str
+    outcome: int
+    epoch: int = 0
+
+
+def describe_finding(model: Model, finding: Finding, repairs: tuple[str, ...] = ()) -> str:
+    """A finding in words, e.g. ``capacitor_test=reads low`` or ``top=failed (after repairing X)``."""
+    if finding.target in model.check_by_id:
+        value = model.check_by_id[finding.target].outcomes[finding.outcome]
+    else:
+        value = ("ok", "failed")[finding.outcome]
+    text = f"{finding.target}={value}"
+    if finding.epoch:
+        text += f" (after repairing {', '.join(repairs[: finding.epoch])})"
+    return text
+
+
+class Engine:
+    """Compiles a model's join tree(s) and answers propagations.
+
+    Parameters
+    ----------
+    model : Model
+    memory_budget : int
+        Bytes the join tree's tables may take (see NetworkTooLarge).
+    """
+
+    def __init__(self, model: Model, memory_budget: int = DEFAULT_MEMORY_BUDGET):
+        self.model = model
+        self.memory_budget = memory_budget
+        self._trees: dict[tuple[str, ...], tuple[Network, JoinTree]] = {}
+        self.compiled(())  # compile now, so a model too large is refused at once
+
+    def compiled(self, repairs: tuple[str, ...]) -> tuple[Network, JoinTree]:
+        """The network and join tree for a sequence of repairs (compiled once, then cached)."""
+        repairs = tuple(repairs)
+        if repairs not in self._trees:
+            for r in repairs:
+                if r not in self.model.hypotheses:
+                    raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
+            net = build_network(self.model, repairs, with_checks=False)
+            self._trees[repairs] = (net, JoinTree(net, self.memory_budget))
+        return self._trees[repairs]
+
+    @property
+    def tree(self) -> JoinTree:
+        """The join tree with no repairs (for reports: width, table size)."""
+        return self.compiled(())[1]
+
+    def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | None:
+        model = self.model
+        if finding.outcome not in (0, 1):
+            raise SessionError(f"outcome of {finding.target!r} must be 0 or 1, not {finding.outcome!r}")
+        if not 0 <= finding.epoch <= net.epochs:
+            raise SessionError(f"finding on {finding.target!r} is dated after {finding.epoch} repairs, "
+                               f"but only {net.epochs} were made")
+        if finding.target in model.check_by_id:
+            fam = net.families[(finding.target, finding.epoch)]
+            p_abn = fam.p_abnormal()
+            lik = p_abn if finding.outcome == 1 else 1.0 - p_abn
+            if not fam.nodes:
+                return _ConstantLikelihood(float(lik))
+            return tree.evidence_on_variables(fam.nodes, lik)
+        if finding.target in model.gate_by_id or finding.target in model.event_by_id \
+                or finding.target in model.hypotheses:
+            node = net.node_for(finding.target, finding.epoch)
+            if isinstance(node, bool):
+                return _ConstantLikelihood(1.0 if int(node) == finding.outcome else 0.0)
+            lik = np.array([0.0, 1.0]) if finding.outcome == 1 else np.array([1.0, 0.0])
+            return tree.evidence_on_variables((node,), lik)
+        raise SessionError(f"unknown check, symptom or event {finding.target!r} in model {self.model.name!r}")
+
+    def _run(self, findings, repairs):
+        net, tree = self.compiled(repairs)
+        evidence, log_constant = [], 0.0
+        for f in findings:
+            ev = self._evidence(net, tree, f)
+            if isinstance(ev, _ConstantLikelihood):
+                if ev.value <= 0.0:
+                    raise ZeroProbability
+                log_constant += float(np.log(ev.value))
+            else:
+                evidence.append(ev)
+        calibrated = tree.propagate(evidence)
+        return net, tree, calibrated, log_constant
+
+    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> "Posterior":
+        """Posterior given findings (in order) and the repairs made so far.
+
+        Raises
+        ------
+        ImpossibleFindings
+            The findings have probability zero; names a smallest conflicting subset.
+        SessionError
+            A finding names an unknown target or an epoch beyond the repairs.
+        """
+        findings = tuple(findings)
+        repairs = tuple(repairs)
+        try:
+            net, tree, calibrated, log_constant = self._run(findings, repairs)
+        except ZeroProbability:
+            raise ImpossibleFindings([describe_finding(self.model, f, repairs)
+                                      for f in self.conflict(findings, repairs)]) from None
+        return Posterior(self.model, net, tree, calibrated, calibrated.log_p + log_constant, findings, repairs)
+
+    def conflict(self, findings, repairs=()) -> list[Finding]:
+        """A minimal subset of findings with probability zero (deletion filter)."""
+        kept = list(findings)
+        i = 0
+        while i < len(kept):
+            trial = kept[:i] + kept[i + 1 :]
+            try:
+                self._run(trial, repairs)
+            except ZeroProbability:
+                kept = trial
+                continue
+            i += 1
+        return kept
+
+
+@dataclass(frozen=True)
+class _ConstantLikelihood:
+    value: float
+
+
+class Posterior:
+    """Everything one propagation gives: log P(findings), marginals, check families.
+
+    Attributes
+    ----------
+    log_p : float
+        Natural log of P(findings).
+    findings, repairs : tuple
+        What it was computed from.
+    epoch : int
+        The current epoch (number of repairs); gate marginals and check
+        families default to it.
+    """
+
+    def __init__(self, model, net, tree, calibrated, log_p, findings, repairs):
+        self.model = model
+        self.network = net
+        self.tree = tree
+        self._calibrated = calibrated
+        self.log_p = float(log_p)
+        self.findings = findings
+        self.repairs = repairs
+        self.epoch = len(repairs)
+        self._node_marginals = calibrated.marginals()
+        self._families: dict = {}
+
+    def p_failed(self, node_id: str, epoch: int | None = None) -> float:
+        """P(event or gate failed | findings), at an epoch (default: now)."""
+        epoch = self.epoch if epoch is None else epoch
+        node = self.network.node_for(node_id, epoch)
+        if isinstance(node, bool):
+            return float(node)
+        return float(self._node_marginals[self.tree.index[node]])
+
+    def root_marginals(self) -> np.ndarray:
+        """P(failed | findings) of every hypothesis, in ``model.hypotheses`` order."""
+        idx = [self.tree.index[r] for r in self.model.hypotheses]
+        return self._node_marginals[idx]
+
+    @property
+    def marginals(self) -> dict[str, float]:
+        """P(failed | findings) of every root and every gate (gates at the current epoch)."""
+        out = {r: float(p) for r, p in zip(self.model.hypotheses, self.root_marginals())}
+        for g in self.model.gates:
+            out[g.id] = self.p_failed(g.id)
+        return out
+
+    def node_marginals(self) -> dict[str, float]:
+        """P(state 1) of every node the join tree carries, derived nodes included."""
+        return {v: float(p) for v, p in zip(self.tree.variables, self._node_marginals)}
+
+    def family(self, check_id: str, epoch: int | None = None) -> CheckFamily:
+        """What a check reads at an epoch (nodes, detections, leak)."""
+        epoch = self.epoch if epoch is None else epoch
+        return self.network.families[(check_id, epoch)]
+
+    def check_family(self, check_id: str, epoch: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """(P(c | findings), P(abnormal | c)) over the joint states c of the check's causes.
+
+        Both are flat arrays of length 2**m, in the same order; m is the
+        number of distinct non-constant causes at that epoch (m = 0 gives
+        arrays of length 1).
+        """
+        epoch = self.epoch if epoch is None else epoch
+        key = (check_id, epoch)
+        if key not in self._families:
+            fam = self.network.families[key]
+            joint = self._calibrated.joint(fam.nodes).ravel()
+            joint = joint / joint.sum()
+            self._families[key] = (joint, fam.p_abnormal().ravel())
+        return self._families[key]

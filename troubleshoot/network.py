@@ -1,0 +1,371 @@
+"""Model -> Bayesian network: binary nodes, bounded fan-in, exact.
+
+Roots are the basic events and the unlisted-cause events; gates are
+deterministic nodes; checks and symptoms are noisy-OR nodes over their causes
+with a false-alarm leak. Wide AND/OR gates become chains of nodes of at most
+:data:`MAX_FANIN` inputs; an at-least-k gate becomes a Shannon decomposition
+(x_i ? atleast(k-1, rest) : atleast(k, rest)) of three-input nodes; a wide
+noisy-OR becomes a chain Y_j = Y_(j-1) OR (c_j and it shows), all exact, so
+no table grows as 2^width.
+
+Repairs are interventions. A finding made after the j-th repair (epoch j)
+reads a copy of the gate logic in which the first j repaired roots are held
+working; roots are shared by every epoch, so findings from before and after a
+repair speak of the same components.
+
+References
+----------
+J. Pearl, *Probabilistic Reasoning in Intelligent Systems*, 1988 (noisy-OR).
+M. Henrion, "Some practical issues in constructing belief networks", UAI 1989 (leak).
+D. Heckerman and J. Breese, "Causal independence for probability assessment
+and inference using Bayesian networks", IEEE SMC 26(6), 1996 (exact
+decomposition of noisy-OR).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import networkx as nx
+import numpy as np
+
+from troubleshoot.model import DERIVED, Model, unlisted_id
+
+MAX_FANIN = 3
+
+#: Node roles in the network.
+ROOT, GATE, AUX, CHECK, CHECK_AUX = "root", "gate", "aux", "check", "check-aux"
+
+Operand = "str | bool"  # a node id, or a constant the logic folded to
+
+
+@dataclass(frozen=True)
+class CheckFamily:
+    """What one check reads at one epoch, after constants are folded.
+
+    P(abnormal | c) = 1 - (1 - leak) * prod_i (1 - detections[i]) ** c_i over
+    ``nodes``; a cause that folded to a constant is absorbed into ``leak``
+    (if always present) or dropped (if never).
+    """
+
+    check: str
+    epoch: int
+    nodes: tuple[str, ...]
+    detections: tuple[float, ...]
+    leak: float
+
+    def p_abnormal(self) -> np.ndarray:
+        """P(abnormal | c) for every joint state c of ``nodes``, C order, shape (2,)*m."""
+        m = len(self.nodes)
+        p_normal = np.full((2,) * m, 1.0 - self.leak)
+        for axis, d in enumerate(self.detections):
+            shape = [1] * m
+            shape[axis] = 2
+            p_normal = p_normal * np.array([1.0, 1.0 - d]).reshape(shape)
+        return 1.0 - p_normal
+
+
+@dataclass
+class Network:
+    """A binary Bayesian network built from a Model.
+
+    Attributes
+    ----------
+    graph : networkx.DiGraph
+        Node attributes: ``role``, ``parents`` (tuple, the table's axis
+        order), ``table`` (numpy array of shape (2,)*len(parents) + (2,),
+        P(node | parents), last axis the node's state), ``states`` (names).
+    repairs : tuple of str
+        The repaired roots, in order; epoch j sees the first j held working.
+    families : dict
+        (check id, epoch) -> CheckFamily, for every check and symptom at every epoch.
+    gate_node : dict
+        (gate or event id, epoch) -> the node id carrying it, or a bool constant.
+    """
+
+    model: Model
+    repairs: tuple[str, ...]
+    graph: nx.DiGraph = field(default_factory=nx.DiGraph)
+    families: dict = field(default_factory=dict)
+    gate_node: dict = field(default_factory=dict)
+
+    @property
+    def epochs(self) -> int:
+        return len(self.repairs)
+
+    def node_for(self, target: str, epoch: int) -> "str | bool":
+        """The network node (or constant) an event or gate id means at an epoch."""
+        return self.gate_node[(target, epoch)]
+
+    def inference_nodes(self) -> list[str]:
+        """Nodes the join tree carries: everything but check nodes (absorbed as findings)."""
+        return [n for n, r in self.graph.nodes(data="role") if r not in (CHECK, CHECK_AUX)]
+
+
+def _deterministic_table(kind: str, arity: int) -> np.ndarray:
+    """P(node | parents) for a deterministic function, shape (2,)*arity + (2,)."""
+    bits = np.indices((2,) * arity).reshape(arity, -1).astype(bool) if arity else np.zeros((0, 1), bool)
+    if kind == "and":
+        value = bits.all(axis=0)
+    elif kind == "or":
+        value = bits.any(axis=0)
+    elif kind == "not":
+        value = ~bits[0]
+    elif kind == "copy":
+        value = bits[0]
+    elif kind == "ite":  # parents (x, hi, lo): hi if x else lo
+        value = np.where(bits[0], bits[1], bits[2])
+    else:
+        raise ValueError(kind)
+    table = np.zeros((bits.shape[1], 2))
+    table[np.arange(bits.shape[1]), value.astype(int)] = 1.0
+    return table.reshape((2,) * arity + (2,))
+
+
+class _Builder:
+    def __init__(self, model: Model, repairs: tuple[str, ...], max_fanin: int):
+        self.model = model
+        self.net = Network(model=model, repairs=tuple(repairs))
+        self.g = self.net.graph
+        self.max_fanin = max_fanin
+        self._depends: dict[str, frozenset] = {}
+
+    # -- nodes -----------------------------------------------------------
+    def add_node(self, node_id, role, parents, table, label="", states=("ok", "failed")):
+        assert node_id not in self.g, node_id
+        self.g.add_node(node_id, role=role, parents=tuple(parents), table=table, label=label, states=states)
+        for p in parents:
+            self.g.add_edge(p, node_id)
+        return node_id
+
+    def det(self, node_id, kind, operands, role=AUX, label=""):
+        return self.add_node(node_id, role, operands, _deterministic_table(kind, len(operands)), label)
+
+    def logic(self, name: str, kind: str, operands: list, named: bool) -> "str | bool":
+        """AND/OR over operands with constants folded and fan-in bounded.
+
+        ``named``: the result must be a node called ``name`` (a model gate at
+        epoch 0, so export and marginals find it by the model's id).
+        """
+        absorbing, neutral = (False, True) if kind == "and" else (True, False)
+        ops: list[str] = []
+        for op in operands:
+            if op is absorbing:
+                return self.constant(name, absorbing, named)
+            if op is neutral:
+                continue
+            if op not in ops:
+                ops.append(op)
+        if not ops:
+            return self.constant(name, neutral, named)
+        if len(ops) == 1:
+            return self.det(name, "copy", ops, GATE, self.model.label_of(name)) if named else ops[0]
+        step = 0
+        while len(ops) > self.max_fanin:
+            step += 1
+            head = self.det(f"{name}{DERIVED}{step}", kind, ops[: self.max_fanin])
+            ops = [head] + ops[self.max_fanin :]
+        return self.det(name, kind, ops, GATE if named else AUX, self.model.label_of(name.split(DERIVED)[0]))
+
+    def constant(self, name: str, value: bool, named: bool) -> "str | bool":
+        if not named:
+            return value
+        table = np.array([0.0, 1.0]) if value else np.array([1.0, 0.0])
+        return self.add_node(name, GATE, (), table, self.model.label_of(name))
+
+    def atleast(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
+        """Shannon decomposition of k-of-n into three-input if-then-else nodes."""
+        memo: dict = {}
+        n = len(operands)
+
+        def build(need: int, i: int):
+            if need <= 0:
+                return True
+            if n - i < need:
+                return False
+            key = (need, i)
+            if key in memo:
+                return memo[key]
+            x = operands[i]
+            hi, lo = build(need - 1, i + 1), build(need, i + 1)
+            if x is True:
+                result = hi
+            elif x is False:
+                result = lo
+            elif hi == lo:
+                result = hi
+            elif hi is True and lo is False:
+                result = x
+            elif hi is True:
+                result = self.logic(f"{name}{DERIVED}k{need}_{i}", "or", [x, lo], False)
+            elif lo is False:
+                result = self.logic(f"{name}{DERIVED}k{need}_{i}", "and", [x, hi], False)
+            else:
+                result = self.det(f"{name}{DERIVED}k{need}_{i}", "ite", [x, hi, lo])
+            memo[key] = result
+            return result
+
+        result = build(k, 0)
+        if not named:
+            return result
+        if isinstance(result, bool):
+            return self.constant(name, result, True)
+        if isinstance(result, str) and result.startswith(f"{name}{DERIVED}k"):
+            nx.relabel_nodes(self.g, {result: name}, copy=False)
+            self._relabel_parents(result, name)
+            self.g.nodes[name]["role"] = GATE
+            self.g.nodes[name]["label"] = self.model.label_of(name)
+            return name
+        return self.det(name, "copy", [result], GATE, self.model.label_of(name))
+
+    def _relabel_parents(self, old: str, new: str):
+        for child in self.g.successors(new):
+            parents = self.g.nodes[child]["parents"]
+            self.g.nodes[child]["parents"] = tuple(new if p == old else p for p in parents)
+
+    # -- the model -------------------------------------------------------
+    def depends_on(self, node_id: str) -> frozenset:
+        """Roots a gate or event reads, transitively."""
+        if node_id in self._depends:
+            return self._depends[node_id]
+        gate = self.model.gate_by_id.get(node_id)
+        if gate is None:
+            result = frozenset([node_id])
+        else:
+            result = frozenset().union(*(self.depends_on(x) for x in gate.operands))
+            if gate.unlisted is not None:
+                result |= {unlisted_id(gate.id)}
+        self._depends[node_id] = result
+        return result
+
+    def gate_at(self, gate_id: str, epoch: int) -> "str | bool":
+        key = (gate_id, epoch)
+        if key in self.net.gate_node:
+            return self.net.gate_node[key]
+        repaired = set(self.net.repairs[:epoch])
+        if epoch > 0 and not (self.depends_on(gate_id) & repaired):
+            result = self.gate_at(gate_id, 0)
+        elif gate_id not in self.model.gate_by_id:  # a root
+            result = False if gate_id in repaired else gate_id
+        else:
+            gate = self.model.gate_by_id[gate_id]
+            name = gate_id if epoch == 0 else f"{gate_id}{DERIVED}r{epoch}"
+            operands = [self.gate_at(x, epoch) for x in gate.inputs]
+            named = epoch == 0
+            if gate.kind == "or":
+                if gate.unlisted is not None:
+                    operands.append(self.gate_at(unlisted_id(gate.id), epoch))
+                result = self.logic(name, "or", operands, named)
+            elif gate.kind == "and":
+                result = self.logic(name, "and", operands, named)
+            elif gate.kind == "inhibit":
+                result = self.logic(name, "and", operands + [self.gate_at(gate.condition, epoch)], named)
+            elif gate.kind == "atleast":
+                result = self.atleast(name, gate.k, operands, named)
+            elif gate.kind == "not":
+                (op,) = operands
+                if isinstance(op, bool):
+                    result = self.constant(name, not op, named) if named else (not op)
+                else:
+                    result = self.det(name, "not", [op], GATE if named else AUX, self.model.label_of(gate_id))
+            else:
+                raise ValueError(f"unknown gate kind {gate.kind!r}")
+        self.net.gate_node[key] = result
+        return result
+
+    def family(self, check, epoch: int) -> CheckFamily:
+        nodes: list[str] = []
+        detections: list[float] = []
+        p_no_leak = 1.0 - check.false_alarm
+        for cause in check.causes:
+            node = self.gate_at(cause.target, epoch)
+            if node is True:
+                p_no_leak *= 1.0 - cause.detection
+            elif node is False:
+                continue
+            elif node in nodes:  # two causes that are one node: their misses multiply
+                i = nodes.index(node)
+                detections[i] = 1.0 - (1.0 - detections[i]) * (1.0 - cause.detection)
+            else:
+                nodes.append(node)
+                detections.append(cause.detection)
+        return CheckFamily(check.id, epoch, tuple(nodes), tuple(detections), 1.0 - p_no_leak)
+
+    def check_node(self, check):
+        """The check as a noisy-OR node over its epoch-0 causes (for export)."""
+        fam = self.net.families[(check.id, 0)]
+        nodes, dets = list(fam.nodes), list(fam.detections)
+        states = tuple(check.outcomes)
+        if len(nodes) <= self.max_fanin:
+            sub = CheckFamily(check.id, 0, tuple(nodes), tuple(dets), fam.leak)
+            p_abn = sub.p_abnormal()
+            table = np.stack([1.0 - p_abn, p_abn], axis=-1)
+            self.add_node(check.id, CHECK, nodes, table, check.label, states)
+            return
+        # Chain: Y_1 reads the leak and the first causes; Y_j = Y_(j-1) OR shows(c_j...).
+        prev, step, leak = None, 0, fam.leak
+        while nodes:
+            take = self.max_fanin if prev is None else self.max_fanin - 1
+            chunk, nodes = nodes[:take], nodes[take:]
+            chunk_d, dets = dets[:take], dets[take:]
+            step += 1
+            last = not nodes
+            name = check.id if last else f"{check.id}{DERIVED}{step}"
+            parents = ([prev] if prev else []) + chunk
+            p_abn = CheckFamily(check.id, 0, tuple(chunk), tuple(chunk_d), leak).p_abnormal()
+            leak = 0.0
+            if prev is not None:  # once the chain is abnormal it stays abnormal
+                p_abn = np.stack([p_abn, np.ones_like(p_abn)], axis=0)
+            table = np.stack([1.0 - p_abn, p_abn], axis=-1)
+            self.add_node(name, CHECK if last else CHECK_AUX, parents, table,
+                          check.label if last else "", states if last else ("no", "yes"))
+            prev = name
+
+
+def build_network(model: Model, repairs: tuple[str, ...] = (), max_fanin: int = MAX_FANIN,
+                  with_checks: bool = True) -> Network:
+    """Convert a Model into a binary Bayesian network.
+
+    Parameters
+    ----------
+    model : Model
+        A validated model.
+    repairs : tuple of str
+        Roots repaired so far, in order; epoch copies of the gate logic are
+        added for the gates each repair affects.
+    max_fanin : int
+        Largest number of parents of a gate node (at least 2; at-least-k
+        nodes have 3).
+    with_checks : bool
+        Also add the check and symptom nodes (the inference absorbs findings
+        directly, so it does not need them; export does).
+
+    Returns
+    -------
+    Network
+
+    References
+    ----------
+    NUREG-0492 (gate semantics); Pearl 1988 and Henrion 1989 (noisy-OR with leak).
+    """
+    if max_fanin < 3:
+        raise ValueError("max_fanin must be at least 3")
+    b = _Builder(model, repairs, max_fanin)
+    for root in model.hypotheses:
+        p = model.prior_of(root)
+        b.add_node(root, ROOT, (), np.array([1.0 - p, p]), model.label_of(root))
+        b.net.gate_node[(root, 0)] = root
+    for gate in model.gates:
+        b.gate_at(gate.id, 0)
+    for epoch in range(1, len(repairs) + 1):
+        for gate in model.gates:
+            b.gate_at(gate.id, epoch)
+        for root in model.hypotheses:
+            b.gate_at(root, epoch)
+    for check in model.checks + model.symptoms:
+        for epoch in range(len(repairs) + 1):
+            b.net.families[(check.id, epoch)] = b.family(check, epoch)
+    if with_checks:
+        for check in model.checks + model.symptoms:
+            b.check_node(check)
+    return b.net
