@@ -98,8 +98,7 @@ class Engine:
                                f"but only {net.epochs} were made")
         if finding.target in model.check_by_id:
             fam = net.families[(finding.target, finding.epoch)]
-            p_abn = fam.p_abnormal()
-            lik = p_abn if finding.outcome == 1 else 1.0 - p_abn
+            lik = fam.p_abnormal() if finding.outcome == 1 else fam.p_normal()
             if not fam.nodes:
                 return _ConstantLikelihood(float(lik))
             return tree.evidence_on_variables(fam.nodes, lik)

@@ -54,15 +54,31 @@ class CheckFamily:
     detections: tuple[float, ...]
     leak: float
 
-    def p_abnormal(self) -> np.ndarray:
-        """P(abnormal | c) for every joint state c of ``nodes``, C order, shape (2,)*m."""
+    def log_p_normal(self) -> np.ndarray:
+        """log P(normal | c) for every joint state c of ``nodes``, C order, shape (2,)*m."""
         m = len(self.nodes)
-        p_normal = np.full((2,) * m, 1.0 - self.leak)
+        log_normal = np.full((2,) * m, _log1m(self.leak))
         for axis, d in enumerate(self.detections):
             shape = [1] * m
             shape[axis] = 2
-            p_normal = p_normal * np.array([1.0, 1.0 - d]).reshape(shape)
-        return 1.0 - p_normal
+            log_normal = log_normal + np.array([0.0, _log1m(d)]).reshape(shape)
+        return log_normal
+
+    def p_abnormal(self) -> np.ndarray:
+        """P(abnormal | c) for every joint state c of ``nodes``, C order, shape (2,)*m.
+
+        Computed as -expm1(log P(normal)), so a detection of 1e-12 keeps its digits.
+        """
+        return -np.expm1(self.log_p_normal())
+
+    def p_normal(self) -> np.ndarray:
+        """P(normal | c), the complement of :meth:`p_abnormal`, without cancellation."""
+        return np.exp(self.log_p_normal())
+
+
+def _log1m(p: float) -> float:
+    """log(1 - p), -inf at p = 1."""
+    return float(np.log1p(-p)) if p < 1.0 else -np.inf
 
 
 @dataclass
@@ -174,7 +190,56 @@ class _Builder:
         return self.add_node(name, GATE, (), table, self.model.label_of(name))
 
     def atleast(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
-        """Shannon decomposition of k-of-n into three-input if-then-else nodes."""
+        """k-of-n, exactly, in nodes of bounded fan-in.
+
+        Constants fold first. A gate near OR or AND (k or n - k at most 3)
+        becomes a Shannon decomposition into if-then-else nodes, whose join
+        tree width grows with min(k, n - k); any other becomes a counter
+        chain with the running count (saturated at k) in binary, whose width
+        grows only with log2(k).
+        """
+        k -= sum(1 for op in operands if op is True)
+        operands = [op for op in operands if not isinstance(op, bool)]
+        if k <= 0 or k > len(operands):
+            return self.constant(name, k <= 0, named)
+        if min(k, len(operands) - k) <= 3:
+            return self._atleast_shannon(name, k, operands, named)
+        return self._atleast_counter(name, k, operands, named)
+
+    def _atleast_counter(self, name: str, k: int, operands: list, named: bool) -> str:
+        """Stage i holds min(count of failed among the first i inputs, k) in binary."""
+        prev = [operands[0]]  # stage 1: the count is the first input itself
+        for i, x in enumerate(operands[1:], start=2):
+            bits_prev = len(prev)
+            cap_here = min(i, k)
+            bits_here = cap_here.bit_length()
+            cap_prev = min(i - 1, k)
+            # Every (prev bits, x) combination: the new saturated count.
+            combos = np.indices((2,) * (bits_prev + 1)).reshape(bits_prev + 1, -1)
+            weights = 1 << np.arange(bits_prev - 1, -1, -1)
+            value_prev = np.minimum((combos[:bits_prev] * weights[:, None]).sum(axis=0), cap_prev)
+            value = np.minimum(value_prev + combos[bits_prev], k)
+            stage = []
+            for j in range(bits_here):
+                bit = (value >> (bits_here - 1 - j)) & 1
+                table = np.zeros((combos.shape[1], 2))
+                table[np.arange(combos.shape[1]), bit] = 1.0
+                node = self.add_node(f"{name}{DERIVED}c{i}_{j}", AUX, prev + [x],
+                                     table.reshape((2,) * (bits_prev + 1) + (2,)))
+                stage.append(node)
+            prev = stage
+        # The gate: the saturated count has reached k.
+        bits = len(prev)
+        combos = np.indices((2,) * bits).reshape(bits, -1)
+        value = (combos * (1 << np.arange(bits - 1, -1, -1))[:, None]).sum(axis=0) >= k
+        table = np.zeros((combos.shape[1], 2))
+        table[np.arange(combos.shape[1]), value.astype(int)] = 1.0
+        node_id = name if named else f"{name}{DERIVED}c"
+        return self.add_node(node_id, GATE if named else AUX, prev, table.reshape((2,) * bits + (2,)),
+                             self.model.label_of(name.split(DERIVED)[0]))
+
+    def _atleast_shannon(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
+        """x_i ? atleast(k-1, rest) : atleast(k, rest), as three-input nodes."""
         memo: dict = {}
         n = len(operands)
 
@@ -298,8 +363,7 @@ class _Builder:
         states = tuple(check.outcomes)
         if len(nodes) <= self.max_fanin:
             sub = CheckFamily(check.id, 0, tuple(nodes), tuple(dets), fam.leak)
-            p_abn = sub.p_abnormal()
-            table = np.stack([1.0 - p_abn, p_abn], axis=-1)
+            table = np.stack([sub.p_normal(), sub.p_abnormal()], axis=-1)
             self.add_node(check.id, CHECK, nodes, table, check.label, states)
             return
         # Chain: Y_1 reads the leak and the first causes; Y_j = Y_(j-1) OR shows(c_j...).
@@ -312,11 +376,13 @@ class _Builder:
             last = not nodes
             name = check.id if last else f"{check.id}{DERIVED}{step}"
             parents = ([prev] if prev else []) + chunk
-            p_abn = CheckFamily(check.id, 0, tuple(chunk), tuple(chunk_d), leak).p_abnormal()
+            part = CheckFamily(check.id, 0, tuple(chunk), tuple(chunk_d), leak)
+            p_abn, p_norm = part.p_abnormal(), part.p_normal()
             leak = 0.0
             if prev is not None:  # once the chain is abnormal it stays abnormal
                 p_abn = np.stack([p_abn, np.ones_like(p_abn)], axis=0)
-            table = np.stack([1.0 - p_abn, p_abn], axis=-1)
+                p_norm = np.stack([p_norm, np.zeros_like(p_norm)], axis=0)
+            table = np.stack([p_norm, p_abn], axis=-1)
             self.add_node(name, CHECK if last else CHECK_AUX, parents, table,
                           check.label if last else "", states if last else ("no", "yes"))
             prev = name
