@@ -1,0 +1,303 @@
+"""Hardened XML reading shared by every file format the project reads.
+
+A model file comes from whoever wrote it; reading one must never fetch a URL,
+read another local file through an external entity, expand an entity bomb,
+or swallow an enormous file. :func:`parse_xml_file` refuses all of those with
+a :class:`~troubleshoot.errors.ModelError` naming the file and the line, and
+turns every syntax error into one plain sentence.
+
+References
+----------
+OWASP, *XML External Entity Prevention Cheat Sheet* (external entities,
+billion laughs; common practice for hardening XML parsers).
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from pathlib import Path
+
+from lxml import etree
+
+from troubleshoot.errors import ModelError, Problem
+
+#: Largest file read, in bytes. A real model is a few hundred kilobytes.
+DEFAULT_MAX_BYTES = 20 * 1024 * 1024
+
+
+def safe_parser() -> etree.XMLParser:
+    """An lxml parser that never resolves entities, loads a DTD or uses the network.
+
+    ``huge_tree=False`` keeps libxml2's own limits on depth, text size and
+    entity amplification in force.
+    """
+    return etree.XMLParser(
+        resolve_entities=False,
+        no_network=True,
+        load_dtd=False,
+        dtd_validation=False,
+        huge_tree=False,
+        remove_comments=False,
+        remove_pis=True,
+        collect_ids=False,
+    )
+
+
+def _error(path: str, line: int | None, message: str) -> ModelError:
+    return ModelError([Problem(path, line, message)])
+
+
+def _megabytes(size: int) -> str:
+    return f"{size / (1024 * 1024):.1f} MB"
+
+
+def parse_xml_file(path: str | os.PathLike, max_bytes: int = DEFAULT_MAX_BYTES) -> etree._Element:
+    """Read an XML file with a hardened parser and return its root element.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file to read.
+    max_bytes : int
+        Files larger than this are refused before they are read.
+
+    Returns
+    -------
+    lxml.etree._Element
+        The root element; ``sourceline`` of each element is its 1-based line.
+
+    Raises
+    ------
+    ModelError
+        One problem naming the file (and line, when there is one) if the file
+        is missing, too large, empty, not XML, cut short, or declares entities
+        in a DOCTYPE (external entities and entity-expansion bombs are refused
+        outright, never expanded).
+
+    Notes
+    -----
+    A DOCTYPE without entity declarations is tolerated (its external DTD is
+    never loaded); one with any ``<!ENTITY`` is refused, because a model
+    needs none and every entity attack starts with one.
+    """
+    name = str(path)
+    file_path = Path(path)
+    try:
+        size = file_path.stat().st_size
+    except FileNotFoundError:
+        raise _error(name, None, "file not found; check the path") from None
+    except OSError as exc:
+        raise _error(name, None, f"cannot read the file ({exc.strerror}); check the path and permissions") from None
+    if file_path.is_dir():
+        raise _error(name, None, "this is a folder, not a file; give the path of an XML file")
+    if size > max_bytes:
+        raise _error(
+            name,
+            None,
+            f"file is {_megabytes(size)}, larger than the {_megabytes(max_bytes)} limit; "
+            "a model file is normally well under 1 MB - check that this is the right file",
+        )
+    try:
+        with open(file_path, "rb") as handle:
+            data = handle.read(max_bytes + 1)
+    except OSError as exc:
+        raise _error(name, None, f"cannot read the file ({exc.strerror}); check the path and permissions") from None
+    if len(data) > max_bytes:  # grew while we looked
+        raise _error(name, None, f"file is larger than the {_megabytes(max_bytes)} limit")
+    return parse_xml_bytes(data, name)
+
+
+def parse_xml_bytes(data: bytes, name: str) -> etree._Element:
+    """Parse XML already read into memory, with the same checks as :func:`parse_xml_file`.
+
+    ``name`` is the file name used in messages.
+    """
+    if not data.strip():
+        raise _error(name, None, "file is empty; a model file starts with <?xml version=\"1.0\"?>")
+    if b"\x00" in data[:4096] and not data.startswith((b"\xff\xfe", b"\xfe\xff", b"\x00\x00\xfe\xff")):
+        raise _error(name, 1, "file holds binary data, not XML; check that this is the right file")
+    if _declares_entities(data):
+        raise _entities_refused(name, data)
+    try:
+        root = etree.fromstring(data, safe_parser())
+    except etree.XMLSyntaxError as exc:
+        raise _error(name, _line_of(exc), plain_syntax_message(exc)) from None
+    except ValueError as exc:  # e.g. an unsupported encoding declaration
+        raise _error(name, 1, f"not readable as XML ({exc}); save the file as UTF-8") from None
+    if root is None:
+        raise _error(name, None, "no XML element found; check that this is the right file")
+    dtd = root.getroottree().docinfo.internalDTD
+    if dtd is not None and any(True for _ in dtd.iterentities()):
+        raise _entities_refused(name, data)
+    for entity in root.iter(etree.Entity):
+        # An entity the (never loaded) external DTD would define: left unexpanded, refused.
+        raise _error(
+            name,
+            entity.sourceline,
+            f"the entity reference {entity.text} is refused (entities are never expanded); "
+            "write the text out in full and remove the DOCTYPE",
+        )
+    return root
+
+
+def _declares_entities(data: bytes) -> bool:
+    """True when the raw bytes hold an entity declaration, in UTF-8 or UTF-16."""
+    return any(
+        marker in data
+        for marker in (b"<!ENTITY", "<!ENTITY".encode("utf-16-le"), "<!ENTITY".encode("utf-16-be"))
+    )
+
+
+def _entities_refused(name: str, data: bytes) -> ModelError:
+    return _error(
+        name,
+        _doctype_line(data),
+        "the DOCTYPE declares entities (<!ENTITY ...>), which are refused for safety "
+        "(external entities and entity-expansion bombs); remove the DOCTYPE and write the text out in full",
+    )
+
+
+def _line_of(exc: etree.XMLSyntaxError) -> int | None:
+    line = exc.lineno if exc.lineno and exc.lineno > 0 else None
+    if line is None and getattr(exc, "position", None):
+        line = exc.position[0] or None
+    return line
+
+
+def _doctype_line(data: bytes) -> int | None:
+    index = data.find(b"<!DOCTYPE")
+    return data.count(b"\n", 0, index) + 1 if index >= 0 else None
+
+
+_SYNTAX_REWRITES: list[tuple[re.Pattern[str], str]] = [
+    (re.compile(r"Premature end of data in tag (\S+) line (\d+)"),
+     r"the file ends before <\1> (opened at line \2) is closed; the file may be cut short - restore the full file"),
+    (re.compile(r"EndTag: '</' not found|Extra content at the end of the document"),
+     "unexpected content after the root element; a model file has exactly one root element"),
+    (re.compile(r"Opening and ending tag mismatch: (\S+) line (\d+) and (\S+)"),
+     r"</\3> closes <\1> opened at line \2; fix the tag names so every element is closed in order"),
+    (re.compile(r"Start tag expected, '<' not found|Document is empty"),
+     "not an XML file (no '<' where the first element should start); check that this is the right file"),
+    (re.compile(r"Input is not proper UTF-8.*"),
+     "the text is not valid UTF-8; save the file as UTF-8"),
+    (re.compile(r"Char 0x0 out of allowed range|PCDATA invalid Char value.*"),
+     "the file holds characters not allowed in XML (binary data?); check that this is the right file"),
+    (re.compile(r"Couldn't find end of Start Tag (\S+).*"),
+     r"the start tag <\1> is not closed with '>'; the file may be cut short or mistyped"),
+    (re.compile(r"Detected an entity reference loop|Maximum entity amplification.*|"
+                r"xmlParseEntityRef: no name|Excessive depth.*|.*huge input lookup.*"),
+     "the file exceeds the parser's safety limits (entity loop, deep nesting or huge text); it is refused"),
+    (re.compile(r"failed to load \"?([^\"]*)\"?: Attempt to load network entity"),
+     r"the DOCTYPE refers to \1 on the network, which is never fetched; remove the DOCTYPE line"),
+    (re.compile(r"Entity '(\S+)' not defined"),
+     r"the entity &\1; is not defined; write the character itself (use &amp; for '&')"),
+]
+
+
+def plain_syntax_message(exc: etree.XMLSyntaxError) -> str:
+    """One plain sentence for an XML syntax error, saying what to fix."""
+    raw = (exc.msg or str(exc)).strip()
+    raw = re.sub(r",? line \d+, column \d+$", "", raw)
+    for pattern, replacement in _SYNTAX_REWRITES:
+        match = pattern.search(raw)
+        if match:
+            return match.expand(replacement)
+    return f"not well-formed XML: {raw}; fix the markup at this line"
+
+
+# ---------------------------------------------------------------------------
+# Schema validation with plain wording
+
+
+def validation_problems(
+    validator: etree._Validator,
+    root: etree._Element,
+    path: str,
+    type_hints: dict[str, str] | None = None,
+) -> list[Problem]:
+    """Validate ``root`` against an lxml schema and word every violation plainly.
+
+    Parameters
+    ----------
+    validator : lxml.etree.XMLSchema or lxml.etree.RelaxNG
+        The schema.
+    root : lxml.etree._Element
+        The parsed document.
+    path : str
+        File name used in the problems.
+    type_hints : dict, optional
+        Schema type name -> what a value of that type looks like, for
+        messages such as "is not a number (such as 0.02)".
+
+    Returns
+    -------
+    list of Problem
+        One per entry of the schema's error log, with its line; empty when valid.
+    """
+    validator.validate(root)
+    return [
+        Problem(path, entry.line if entry.line and entry.line > 0 else None,
+                plain_schema_message(entry.message, type_hints or {}))
+        for entry in validator.error_log
+    ]
+
+
+def _names(listing: str) -> str:
+    names = [n.strip() for n in listing.split(",") if n.strip()]
+    names = [f"<{n}>" if not n.startswith("#") else "another element" for n in names]
+    if len(names) <= 1:
+        return "".join(names)
+    return ", ".join(names[:-1]) + " or " + names[-1]
+
+
+_E = r"Element '([^']+)'"
+_A = r", attribute '([^']+)'"
+
+
+def plain_schema_message(message: str, type_hints: dict[str, str]) -> str:
+    """One plain sentence for a libxml2 schema message, saying what to fix."""
+    message = message.strip()
+
+    def hint(type_name: str) -> str:
+        return type_hints.get(type_name, f"a valid {type_name}")
+
+    rules = [
+        (_E + _A + r": '(.*)' is not a valid value of the (?:local )?atomic type '([^']+)'\.",
+         lambda m: f"<{m[1]}> {m[2]}=\"{m[3]}\" is not {hint(m[4])}; correct the value"),
+        (_E + r": '(.*)' is not a valid value of the (?:local )?atomic type '([^']+)'\.",
+         lambda m: f"<{m[1]}> holds '{m[2]}', which is not {hint(m[3])}; correct the value"),
+        (_E + _A + r": The attribute '[^']+' is not allowed\.",
+         lambda m: f"<{m[1]}> does not take the attribute {m[2]}; remove it or correct its spelling"),
+        (_E + r": The attribute '([^']+)' is required but missing\.",
+         lambda m: f"<{m[1]}> needs the attribute {m[2]}; add {m[2]}=\"...\""),
+        (_E + r": This element is not expected\. Expected is (?:one of )?\( (.*) \)\.",
+         lambda m: f"<{m[1]}> is not expected here; expected {_names(m[2])} (check the order and spelling)"),
+        (_E + r": This element is not expected\.",
+         lambda m: f"<{m[1]}> is not allowed here; remove it or correct its spelling or place"),
+        (_E + r": Missing child element\(s\)\. Expected is (?:one of )?\( (.*) \)\.",
+         lambda m: f"<{m[1]}> is incomplete; add {_names(m[2])}"),
+        (_E + _A + r": The value '(.*)' does not match the fixed value constraint '(.*)'\.",
+         lambda m: f"<{m[1]}> {m[2]} must be \"{m[4]}\", not \"{m[3]}\""),
+        (_E + _A + r": \[facet 'enumeration'\] The value '(.*)' is not an element of the set \{(.*)\}\.",
+         lambda m: f"<{m[1]}> {m[2]}=\"{m[3]}\" is not allowed; use one of {m[4]}"),
+        (_E + r": \[facet 'enumeration'\] The value '(.*)' is not an element of the set \{(.*)\}\.",
+         lambda m: f"<{m[1]}> holds '{m[2]}', which is not allowed; use one of {m[3]}"),
+        (_E + r": Element content is not allowed, because the type definition is simple\.",
+         lambda m: f"<{m[1]}> holds text only; remove the elements inside it"),
+        (_E + r": Element content is not allowed, because the content type is empty\.",
+         lambda m: f"<{m[1]}> takes attributes only; remove what is inside it"),
+        (_E + r": Character content (?:other than whitespace )?is not allowed.*",
+         lambda m: f"<{m[1]}> holds no text of its own; move the text into the element it belongs to (such as <label>)"),
+        (_E + r": No matching global declaration available for the validation root\.",
+         lambda m: f"<{m[1]}> is not the root element this format expects"),
+    ]
+    for pattern, render in rules:
+        match = re.fullmatch(pattern, message)
+        if match:
+            return render(match)
+    match = re.match(_E + r"(?:" + _A + r")?: (.*)", message)
+    if match:
+        where = f"<{match[1]}>" + (f" {match[2]}" if match[2] else "")
+        return f"{where}: {match[3]}"
+    return message
