@@ -231,7 +231,7 @@ class Posterior:
         key = (check_id, epoch)
         if key not in self._families:
             fam = self.network.families[key]
+            # The clique table is already normalised, so its marginal sums to one.
             joint = self._calibrated.joint(fam.nodes).ravel()
-            joint = joint / joint.sum()
-            self._families[key] = (joint, fam.p_abnormal().ravel())
+            self._families[key] = (joint, fam.p_abnormal().reshape(-1))
         return self._families[key]

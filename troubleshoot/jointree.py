@@ -241,6 +241,7 @@ class JoinTree:
             self._edges.append((c, p, c_sum, p_sum, c_shape, p_shape))
 
         self.base = self._base_potentials()
+        self._joint_plans: dict = {}
         self._marginal_plan()
 
     # -- compilation -----------------------------------------------------
@@ -337,6 +338,21 @@ class JoinTree:
             shape[local[i]] = 2
         return Evidence(c, np.ascontiguousarray(factor).reshape(shape))
 
+    def joint_plan(self, variables: tuple[str, ...]):
+        """(clique, axes to sum out, transpose or None) for a joint of variables; cached."""
+        plan = self._joint_plans.get(variables)
+        if plan is None:
+            idx = [self.index[v] for v in variables]
+            c = self._host_of_group(idx)
+            members = self.cliques[c]
+            wanted = set(idx)
+            drop = tuple(i for i, x in enumerate(members) if x not in wanted)
+            kept = [x for x in members if x in wanted]  # ascending
+            perm = [kept.index(i) for i in idx]
+            plan = (c, drop, perm if perm != sorted(perm) else None)
+            self._joint_plans[variables] = plan
+        return plan
+
     # -- propagation -----------------------------------------------------
     def propagate(self, evidence: list[Evidence]) -> "Calibrated":
         """Collect and distribute with the given likelihoods; raises ZeroProbability.
@@ -400,16 +416,9 @@ class Calibrated:
 
     def joint(self, variables: tuple[str, ...]) -> np.ndarray:
         """Posterior joint of variables that share a clique, axes in the given order."""
-        t = self.tree
-        idx = [t.index[v] for v in variables]
-        if not idx:
+        if not variables:
             return np.ones(())
-        c = t._host_of_group(idx)
-        members = t.cliques[c]
-        local = {x: i for i, x in enumerate(members)}
-        drop = tuple(i for i, x in enumerate(members) if x not in set(idx))
+        c, drop, perm = self.tree.joint_plan(tuple(variables))
         table = self.clique_table(c)
         summed = table.sum(axis=drop) if drop else table
-        kept = [x for x in members if x in set(idx)]  # ascending order
-        perm = [kept.index(i) for i in idx]
-        return np.transpose(summed, perm) if len(idx) > 1 else summed
+        return np.transpose(summed, perm) if perm is not None else summed

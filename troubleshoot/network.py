@@ -55,13 +55,18 @@ class CheckFamily:
     leak: float
 
     def log_p_normal(self) -> np.ndarray:
-        """log P(normal | c) for every joint state c of ``nodes``, C order, shape (2,)*m."""
+        """log P(normal | c) for every joint state c of ``nodes``, C order, shape (2,)*m (read-only, cached)."""
+        cached = self.__dict__.get("_log_p_normal")
+        if cached is not None:
+            return cached
         m = len(self.nodes)
         log_normal = np.full((2,) * m, _log1m(self.leak))
         for axis, d in enumerate(self.detections):
             shape = [1] * m
             shape[axis] = 2
             log_normal = log_normal + np.array([0.0, _log1m(d)]).reshape(shape)
+        log_normal.setflags(write=False)
+        self.__dict__["_log_p_normal"] = log_normal  # frozen dataclass: cache beside the fields
         return log_normal
 
     def p_abnormal(self) -> np.ndarray:
@@ -69,7 +74,12 @@ class CheckFamily:
 
         Computed as -expm1(log P(normal)), so a detection of 1e-12 keeps its digits.
         """
-        return -np.expm1(self.log_p_normal())
+        cached = self.__dict__.get("_p_abnormal")
+        if cached is None:
+            cached = -np.expm1(self.log_p_normal())
+            cached.setflags(write=False)
+            self.__dict__["_p_abnormal"] = cached
+        return cached
 
     def p_normal(self) -> np.ndarray:
         """P(normal | c), the complement of :meth:`p_abnormal`, without cancellation."""
