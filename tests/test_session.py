@@ -1,0 +1,248 @@
+"""The session engine: statuses, the stopping rule, repairs and verification,
+and every bad action refused with the state unchanged.
+
+Expected posteriors come from tests/bruteforce.py (enumeration of every root
+state), independent of the join tree; the repair order follows Kadane & Simon
+(1977): P(failed) / repair cost, descending.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import pytest
+
+import bruteforce as bf
+from troubleshoot.errors import ImpossibleFindings, SessionError, TroubleshootError
+from troubleshoot.inference import Engine, Finding
+from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair, Verification
+from troubleshoot.session import (
+    AMBIGUITY,
+    AWAITING_VERIFICATION,
+    CONFIRMED,
+    DIAGNOSING,
+    ISOLATED,
+    Session,
+    SessionSettings,
+    settings_for,
+)
+
+TOL = 1e-9
+
+
+def pump_model(unlisted: float | None = 0.01) -> Model:
+    """A pump that fails by a tripped breaker, a worn impeller or a closed valve (illustrative)."""
+    events = (
+        BasicEvent("breaker", "breaker tripped", 0.05, repair=Repair("reset breaker", 5)),
+        BasicEvent("impeller", "impeller worn", 0.03, repair=Repair("replace impeller", 120, verify="flow")),
+        BasicEvent("valve", "valve closed", 0.02, repair=Repair("open valve", 2)),
+        BasicEvent("sensor", "sensor drifted", 0.01),
+    )
+    gates = (Gate("top", "no flow", "or", ("breaker", "impeller", "valve", "sensor"), unlisted=unlisted),)
+    checks = (
+        Check("lamp", "breaker lamp", 1, ("off", "on"), (Cause("breaker", 1.0),)),
+        Check("flow", "flow gauge", 4, ("flow normal", "flow low"), (Cause("impeller", 0.9),),
+              false_alarm=0.01, caution="isolate the pump before opening the gauge cock"),
+        Check("valve_look", "look at the valve", 3, ("open", "closed"), (Cause("valve", 1.0),)),
+        Check("sensor_cal", "calibrate sensor", 10, ("ok", "drifted"), (Cause("sensor", 1.0),)),
+    )
+    return Model(name="pump", top="top", gates=gates, basic_events=events, checks=checks,
+                 verification=Verification("run the pump", 2, outcomes=("flows", "no flow")),
+                 cost_unit="min", isolation_threshold=0.95)
+
+
+def snapshot(session: Session):
+    return json.dumps(session.state.to_dict(), sort_keys=True, default=str), session.posterior.log_p, \
+        list(session.actions)
+
+
+def test_start_state_matches_brute_force_and_is_plain_data():
+    model = pump_model()
+    s = Session(model)
+    st = s.state
+    ref = bf.posterior(model, [Finding("top", 1, 0)])
+    assert st.status == DIAGNOSING
+    assert st.entropy_bits == pytest.approx(bf.entropy_bits(ref["joint"]), abs=TOL)
+    for sus in st.suspects:
+        assert sus.p == pytest.approx(ref["marginals"][sus.id], abs=TOL)
+    assert st.next_check is not None and st.next_check == st.ranking[0]
+    assert st.findings[0].kind == "complaint" and st.cost_spent == 0
+    json.dumps(st.to_dict(), allow_nan=False)  # plain data, no NaN or Infinity
+
+
+def test_isolation_repair_verification_confirmed_with_costs():
+    model = pump_model()
+    s = Session(model)
+    s.record_finding("lamp", "on")
+    assert s.status == ISOLATED and s.state.isolated.id == "breaker"
+    assert s.state.repair_order[0].id == "breaker"
+    s.record_repair("breaker")
+    assert s.status == AWAITING_VERIFICATION
+    assert s.state.verification.target == "top" and s.state.verification.outcomes == ("flows", "no flow")
+    s.record_verification("flows")
+    assert s.status == CONFIRMED
+    assert s.state.cost_spent == pytest.approx(1 + 5 + 2)  # lamp + reset + run the pump, in min
+    with pytest.raises(SessionError, match="confirmed"):
+        s.record_finding("flow", "flow low")
+
+
+def test_fault_persists_after_repair_posterior_takes_repair_into_account():
+    model = pump_model()
+    s = Session(model)
+    s.record_repair("breaker")
+    s.record_verification("no flow")
+    findings = [Finding("top", 1, 0), Finding("top", 1, 1)]
+    ref = bf.posterior(model, findings, ("breaker",))
+    # Source: enumeration with the breaker held working after the repair.
+    for sus in s.suspects:
+        assert sus.p == pytest.approx(ref["marginals"][sus.id], abs=TOL)
+    assert s.entropy_bits == pytest.approx(bf.entropy_bits(ref["joint"]), abs=TOL)
+    assert s.status in (DIAGNOSING, ISOLATED, AMBIGUITY)
+    assert "breaker" not in [r.id for r in s.state.repair_order]
+    # After a repair, a check can be done again (new epoch).
+    s.record_finding("lamp", "off")
+    assert s.findings[-1] == Finding("lamp", 0, 1)
+
+
+def test_verify_check_named_by_the_repair():
+    s = Session(pump_model())
+    s.record_finding("flow", "flow low")
+    s.record_repair("impeller")
+    assert s.state.verification.target == "flow"
+    s.record_verification("flow normal")
+    assert s.status == CONFIRMED
+    assert s.findings[-1] == Finding("flow", 0, 1)
+
+
+def test_ambiguity_group_and_repair_order_when_no_check_is_worth_doing():
+    model = pump_model()
+    s = Session(model, SessionSettings(0.95, 0.01, 0.05))
+    for check in ("flow", "sensor_cal"):
+        s.skip_check(check, "no gauge on site")
+    s.record_finding("lamp", "off")
+    s.skip_check("valve_look", "valve in a locked pit")
+    st = s.state
+    assert st.status == AMBIGUITY and not st.ranking  # every check done or skipped
+    group = [g.id for g in st.ambiguity_group]
+    assert all(sus.p >= 0.05 for sus in st.ambiguity_group)
+    order = st.repair_order
+    ratios = [r.ratio for r in order if r.ratio is not None]
+    assert ratios == sorted(ratios, reverse=True)  # Kadane & Simon 1977
+    assert set(group) == {r.id for r in order}
+    unrepairable = [r for r in order if r.cost is None]
+    assert all(r.note for r in unrepairable)
+    assert order[-len(unrepairable):] == tuple(unrepairable) if unrepairable else True
+
+
+def test_min_bits_setting_stops_diagnosis():
+    s = Session(pump_model(), settings_for(pump_model(), min_bits=100.0))
+    assert s.status == AMBIGUITY
+
+
+def test_skip_unskip_retract_correct_undo():
+    model = pump_model()
+    s = Session(model)
+    s.skip_check("flow", "gauge missing")
+    assert s.ranking.row("flow") is None and s.state.skipped == (("flow", "gauge missing"),)
+    s.unskip_check("flow")
+    assert s.ranking.row("flow") is not None
+    s.record_finding("flow", "flow low")
+    s.correct_finding("flow", "flow normal")
+    fresh = Session(model)
+    fresh.record_finding("flow", "flow normal")
+    assert s.posterior.log_p == pytest.approx(fresh.posterior.log_p, abs=TOL)
+    s.retract_finding("flow")
+    assert s.posterior.log_p == pytest.approx(Session(model).posterior.log_p, abs=TOL)
+    s.undo()  # the retraction
+    assert s.findings[-1] == Finding("flow", 0, 0)
+    s.add_note("customer says it started after a storm")
+    s.undo()
+    assert s.state.notes == ()
+
+
+def test_one_propagation_per_action():
+    model = pump_model()
+    engine = Engine(model)
+    calls = []
+    original = engine.propagate
+    engine.propagate = lambda *a, **k: calls.append(1) or original(*a, **k)
+    s = Session(model, engine=engine)
+    calls.clear()
+    s.record_finding("lamp", "off")
+    s.state, s.ranking, s.suspects, s.entropy_bits, s.state
+    assert len(calls) == 1
+    s.add_note("note")
+    assert len(calls) == 1  # a note does not change the posterior
+
+
+BAD_ACTIONS = [
+    (lambda s: s.record_finding("nope", "on"), SessionError, "unknown check"),
+    (lambda s: s.record_finding("top", "on"), SessionError, "event or gate"),
+    (lambda s: s.record_finding("lamp", "blinking"), SessionError, "outcomes 'off' and 'on'"),
+    (lambda s: s.record_finding("flow", "flow low"), SessionError, "already done"),
+    (lambda s: s.record_repair("pump_motor"), SessionError, "not a basic event"),
+    (lambda s: s.record_verification("flows"), SessionError, "nothing has been repaired"),
+    (lambda s: s.retract_finding("lamp"), SessionError, "no finding"),
+    (lambda s: s.retract_finding("top"), SessionError, "complaint"),
+    (lambda s: s.correct_finding("flow", "flow low"), SessionError, "nothing to correct"),
+    (lambda s: s.skip_check("lamp", "  "), SessionError, "say why"),
+    (lambda s: s.unskip_check("lamp"), SessionError, "not skipped"),
+    (lambda s: s.add_note(""), SessionError, "text"),
+    (lambda s: s.apply({"action": "fly"}), SessionError, "unknown action"),
+    (lambda s: s.apply({"action": "finding", "check": "lamp"}), SessionError, "outcome"),
+]
+
+
+@pytest.mark.parametrize("bad, error, words", BAD_ACTIONS)
+def test_bad_action_refused_state_unchanged(bad, error, words):
+    s = Session(pump_model())
+    s.record_finding("flow", "flow low")
+    before = snapshot(s)
+    with pytest.raises(error, match=words):
+        bad(s)
+    assert snapshot(s) == before
+
+
+def test_impossible_findings_refused_state_unchanged():
+    # Without unlisted causes, ruling out breaker and valve and repairing the
+    # impeller and the sensor leaves nothing that could make the pump still
+    # fail: "still fails" has probability 0 (checked by enumeration below).
+    model = pump_model(unlisted=None)
+    s = Session(model)
+    for check in ("lamp", "valve_look"):
+        s.record_finding(check, 0)
+    s.record_repair("impeller")
+    s.record_repair("sensor")
+    findings = list(s.findings) + [Finding("top", 1, 2)]
+    assert bf.posterior(model, findings, ("impeller", "sensor"))["log_p"] == -math.inf
+    before = snapshot(s)
+    with pytest.raises(ImpossibleFindings, match="cannot all be true"):
+        s.record_verification("no flow")
+    assert snapshot(s) == before
+
+
+def test_undo_with_nothing_and_repeated_repair_refused():
+    s = Session(pump_model())
+    with pytest.raises(SessionError, match="nothing to undo"):
+        s.undo()
+    s.record_repair("valve")
+    before = snapshot(s)
+    with pytest.raises(SessionError, match="already repaired"):
+        s.record_repair("valve")
+    assert snapshot(s) == before
+
+
+def test_bad_settings_refused():
+    with pytest.raises(TroubleshootError):
+        settings_for(pump_model(), isolation_threshold=1.5)
+    with pytest.raises(TroubleshootError):
+        settings_for(pump_model(), min_bits=-1)
+    assert math.isclose(settings_for(pump_model()).isolation_threshold, 0.95)
+
+
+def test_doing_the_verify_check_records_the_verification():
+    s = Session(pump_model())
+    s.record_repair("impeller")
+    s.record_finding("flow", "flow normal")  # the impeller repair's verify check
+    assert s.status == CONFIRMED and s.actions[-1] == {"action": "verify", "outcome": "flow normal"}

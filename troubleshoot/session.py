@@ -1,0 +1,735 @@
+"""A diagnosis session: the one imperative core every front end drives.
+
+A :class:`Session` holds the findings, skips, repairs, verifications and
+notes of one diagnosis of one unit. Every action is validated first (the new
+posterior is computed before anything changes), refused with a
+:class:`~troubleshoot.errors.SessionError` or
+:class:`~troubleshoot.errors.ImpossibleFindings` that leaves the session as it
+was, then committed, written to the session log (when there is one) and
+undoable. Each action costs one propagation; the ranking, suspects and
+remaining entropy are computed from it once and cached.
+
+The command line, the terminal UI and the simulator only call the methods
+below and read :attr:`Session.state` (plain Python data, no numpy).
+
+Actions (each also available as a dict for :meth:`Session.apply`, the form the
+log stores):
+
+=====================  ==========================================================
+method                 dict
+=====================  ==========================================================
+record_finding         {"action": "finding", "check": ID, "outcome": NAME}
+retract_finding        {"action": "retract", "check": ID, "epoch": K}
+correct_finding        {"action": "correct", "check": ID, "outcome": NAME, "epoch": K}
+skip_check             {"action": "skip", "check": ID, "reason": TEXT}
+unskip_check           {"action": "unskip", "check": ID}
+record_repair          {"action": "repair", "event": ID}
+record_verification    {"action": "verify", "outcome": NAME}
+add_note               {"action": "note", "text": TEXT}
+undo                   {"action": "undo"}
+=====================  ==========================================================
+
+Status, in this order of precedence:
+
+``confirmed``
+    The verification after the last repair says the unit works.
+``awaiting-verification``
+    A repair was recorded and not yet verified.
+``isolated``
+    A suspect (not repaired) has P(failed | findings) >= the isolation threshold.
+``ambiguity``
+    No remaining check gives at least ``min_bits`` bits (or none is left):
+    the suspects with P >= ``group_min_p`` form the ambiguity group; repair
+    them in :attr:`SessionState.repair_order`.
+``diagnosing``
+    Otherwise: do :attr:`SessionState.next_check`.
+
+References
+----------
+Heckerman, Breese & Rommelse, "Decision-theoretic troubleshooting",
+Communications of the ACM 38(3), 1995 (observe, repair, verify).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, replace
+from functools import cached_property
+from typing import Any, Protocol
+
+from troubleshoot.diagnosis import (
+    Explanation,
+    RepairStep,
+    Suspect,
+    ambiguity_group,
+    entropy_bits,
+    isolated_suspect,
+    most_probable_explanation,
+    repair_order,
+    suspects,
+)
+from troubleshoot.errors import SessionError
+from troubleshoot.inference import Engine, Finding, Posterior
+from troubleshoot.model import Model
+from troubleshoot.ranking import Ranking, RankRow, rank
+
+DIAGNOSING = "diagnosing"
+ISOLATED = "isolated"
+AMBIGUITY = "ambiguity"
+AWAITING_VERIFICATION = "awaiting-verification"
+CONFIRMED = "confirmed"
+STATUSES = (DIAGNOSING, ISOLATED, AMBIGUITY, AWAITING_VERIFICATION, CONFIRMED)
+
+#: Default: a check giving less than this many bits is not worth doing.
+DEFAULT_MIN_BITS = 0.01
+#: Default: suspects at or above this posterior form the ambiguity group.
+DEFAULT_GROUP_MIN_P = 0.05
+
+# Kinds of recorded observations.
+COMPLAINT, OBSERVATION, VERIFICATION = "complaint", "finding", "verification"
+
+
+@dataclass(frozen=True)
+class SessionSettings:
+    """The thresholds a session decides with.
+
+    Attributes
+    ----------
+    isolation_threshold : float
+        A suspect with P(failed | findings) at or above it is isolated.
+    min_bits : float
+        A check giving fewer bits is not worth doing (bits).
+    group_min_p : float
+        Suspects at or above this posterior form the ambiguity group.
+    """
+
+    isolation_threshold: float = 0.95
+    min_bits: float = DEFAULT_MIN_BITS
+    group_min_p: float = DEFAULT_GROUP_MIN_P
+
+    def validated(self) -> "SessionSettings":
+        for name, low_open in (("isolation_threshold", True), ("group_min_p", True)):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and 0.0 < value <= 1.0):
+                raise SessionError(f"{name.replace('_', ' ')} must be a probability above 0 and at most 1, "
+                                   f"not {value!r}")
+        if not (isinstance(self.min_bits, (int, float)) and 0.0 <= self.min_bits < math.inf):
+            raise SessionError(f"min bits must be a number of bits, 0 or more, not {self.min_bits!r}")
+        return replace(self, isolation_threshold=float(self.isolation_threshold),
+                       min_bits=float(self.min_bits), group_min_p=float(self.group_min_p))
+
+
+def settings_for(model: Model, isolation_threshold: float | None = None, min_bits: float | None = None,
+                 group_min_p: float | None = None) -> SessionSettings:
+    """Settings with the model's isolation threshold and the defaults, overridden where given."""
+    return SessionSettings(
+        model.isolation_threshold if isolation_threshold is None else isolation_threshold,
+        DEFAULT_MIN_BITS if min_bits is None else min_bits,
+        DEFAULT_GROUP_MIN_P if group_min_p is None else group_min_p,
+    ).validated()
+
+
+@dataclass(frozen=True)
+class Observation:
+    """A recorded observation and why it was made."""
+
+    finding: Finding
+    kind: str  # COMPLAINT, OBSERVATION or VERIFICATION
+
+
+@dataclass(frozen=True)
+class Record:
+    """What a session holds between actions (immutable; undo keeps the earlier ones)."""
+
+    observations: tuple[Observation, ...]
+    repairs: tuple[str, ...] = ()
+    skipped: tuple[tuple[str, str], ...] = ()
+    notes: tuple[str, ...] = ()
+
+    @property
+    def findings(self) -> tuple[Finding, ...]:
+        return tuple(o.finding for o in self.observations)
+
+    @property
+    def epoch(self) -> int:
+        return len(self.repairs)
+
+
+@dataclass(frozen=True)
+class FindingView:
+    """A finding as a person reads it."""
+
+    target: str
+    label: str
+    outcome: str
+    outcome_index: int
+    epoch: int
+    kind: str
+    cost: float
+
+
+@dataclass(frozen=True)
+class VerificationRequest:
+    """What to check after the last repair to confirm it."""
+
+    target: str  # the repair's verify check, or the top event
+    label: str
+    cost: float
+    outcomes: tuple[str, str]  # (works / normal, still fails / abnormal)
+    instructions: str = ""
+    caution: str | None = None
+
+
+@dataclass(frozen=True)
+class SessionState:
+    """Everything a front end shows, as plain data (floats, strings, tuples).
+
+    Attributes
+    ----------
+    status : str
+        One of :data:`STATUSES`.
+    ranking : tuple of RankRow
+        Candidate checks, best first.
+    next_check : RankRow or None
+        The recommended check while diagnosing.
+    suspects : tuple of Suspect
+        Every hypothesis, most probable first.
+    entropy_bits : float
+        Remaining uncertainty H(F | findings) in bits.
+    log_p_findings : float
+        Natural log of P(findings).
+    findings : tuple of FindingView
+        Every observation so far, the complaint first.
+    repairs : tuple of str
+    skipped : tuple of (check id, reason)
+    notes : tuple of str
+    cost_spent : float
+        Checks, repairs and verifications so far, in ``cost_unit``.
+    cost_unit : str
+    isolated : Suspect or None
+    ambiguity_group : tuple of Suspect or None
+        Only when the status is ``ambiguity``.
+    repair_order : tuple of RepairStep
+        Over the unrepaired suspects with P >= group_min_p, best first.
+    verification : VerificationRequest or None
+        What to check now, when awaiting verification.
+    cautions : tuple of str
+        Safety cautions for what is asked next.
+    epoch : int
+        Repairs made so far.
+    settings : SessionSettings
+    """
+
+    status: str
+    ranking: tuple[RankRow, ...]
+    next_check: RankRow | None
+    suspects: tuple[Suspect, ...]
+    entropy_bits: float
+    log_p_findings: float
+    findings: tuple[FindingView, ...]
+    repairs: tuple[str, ...]
+    skipped: tuple[tuple[str, str], ...]
+    notes: tuple[str, ...]
+    cost_spent: float
+    cost_unit: str
+    isolated: Suspect | None
+    ambiguity_group: tuple[Suspect, ...] | None
+    repair_order: tuple[RepairStep, ...]
+    verification: VerificationRequest | None
+    cautions: tuple[str, ...]
+    epoch: int
+    settings: SessionSettings
+
+    def to_dict(self) -> dict:
+        """The state as JSON-ready dicts and lists (an infinite score becomes None)."""
+        data = asdict(self)
+        for row in list(data["ranking"]) + ([data["next_check"]] if data["next_check"] else []):
+            if math.isinf(row["score"]):
+                row["score"] = None
+        for step in data["repair_order"]:
+            if step["ratio"] is not None and math.isinf(step["ratio"]):
+                step["ratio"] = None
+        return data
+
+
+class SessionLogWriter(Protocol):
+    """What a session needs from its log (see :class:`troubleshoot.sessionlog.LogWriter`)."""
+
+    def write_action(self, action: dict, view: "SessionView") -> None: ...
+
+    def close(self) -> None: ...
+
+
+class SessionView:
+    """A record with its posterior and everything derived from it (computed once, lazily)."""
+
+    def __init__(self, model: Model, engine: Engine, settings: SessionSettings, record: Record,
+                 posterior: Posterior):
+        self.model = model
+        self.engine = engine
+        self.settings = settings
+        self.record = record
+        self.posterior = posterior
+
+    @cached_property
+    def verification_request(self) -> VerificationRequest | None:
+        rec = self.record
+        if not rec.repairs:
+            return None
+        if any(o.kind == VERIFICATION and o.finding.epoch == rec.epoch for o in rec.observations):
+            return None
+        return verification_for(self.model, rec.repairs[-1])
+
+    @cached_property
+    def confirmed(self) -> bool:
+        rec = self.record
+        return any(o.kind == VERIFICATION and o.finding.epoch == rec.epoch and o.finding.outcome == 0
+                   for o in rec.observations) and bool(rec.repairs)
+
+    @cached_property
+    def candidates(self) -> tuple[str, ...]:
+        rec = self.record
+        done = {o.finding.target for o in rec.observations if o.finding.epoch == rec.epoch}
+        skipped = {c for c, _ in rec.skipped}
+        return tuple(c.id for c in self.model.checks + self.model.symptoms
+                     if c.id not in done and c.id not in skipped)
+
+    @cached_property
+    def ranking(self) -> Ranking:
+        return rank(self.posterior, self.candidates)
+
+    @cached_property
+    def suspects(self) -> tuple[Suspect, ...]:
+        return suspects(self.posterior)
+
+    @cached_property
+    def entropy_bits(self) -> float:
+        return entropy_bits(self.posterior)
+
+    @cached_property
+    def explanation(self) -> Explanation:
+        return most_probable_explanation(self.engine, self.posterior)
+
+    @cached_property
+    def isolated(self) -> Suspect | None:
+        return isolated_suspect(self.suspects, self.settings.isolation_threshold)
+
+    @cached_property
+    def group(self) -> tuple[Suspect, ...]:
+        return ambiguity_group(self.suspects, self.settings.group_min_p)
+
+    @cached_property
+    def status(self) -> str:
+        if self.confirmed:
+            return CONFIRMED
+        if self.verification_request is not None:
+            return AWAITING_VERIFICATION
+        if self.isolated is not None:
+            return ISOLATED
+        if not self.ranking.worth_doing(self.settings.min_bits):
+            return AMBIGUITY
+        return DIAGNOSING
+
+    @cached_property
+    def repair_order(self) -> tuple[RepairStep, ...]:
+        return repair_order(self.model, self.group)
+
+    @cached_property
+    def cost_spent(self) -> float:
+        model = self.model
+        total = 0.0
+        for o in self.record.observations:
+            if o.kind == OBSERVATION:
+                total += model.check_by_id[o.finding.target].cost
+            elif o.kind == VERIFICATION:
+                total += verification_for(model, self.record.repairs[o.finding.epoch - 1]).cost
+        for r in self.record.repairs:
+            event = model.event_by_id.get(r)
+            if event is not None and event.repair is not None:
+                total += event.repair.cost
+        return float(total)
+
+    def finding_views(self) -> tuple[FindingView, ...]:
+        model = self.model
+        out = []
+        for o in self.record.observations:
+            f = o.finding
+            if f.target in model.check_by_id:
+                check = model.check_by_id[f.target]
+                outcome, cost = check.outcomes[f.outcome], check.cost
+            elif o.kind == VERIFICATION:
+                request = verification_for(model, self.record.repairs[f.epoch - 1])
+                outcome, cost = request.outcomes[f.outcome], request.cost
+            else:
+                outcome, cost = ("ok", "failed")[f.outcome], 0.0
+            if o.kind == VERIFICATION and f.target in model.check_by_id:
+                cost = verification_for(model, self.record.repairs[f.epoch - 1]).cost
+            out.append(FindingView(f.target, model.label_of(f.target), outcome, f.outcome, f.epoch, o.kind,
+                                   float(cost)))
+        return tuple(out)
+
+    def cautions(self) -> tuple[str, ...]:
+        model = self.model
+        out = []
+        request = self.verification_request
+        if request is not None and request.caution:
+            out.append(f"{request.label}: {request.caution}")
+        elif self.status == DIAGNOSING and self.ranking.best is not None and self.ranking.best.caution:
+            out.append(f"{self.ranking.best.label}: {self.ranking.best.caution}")
+        if self.status in (ISOLATED, AMBIGUITY) and self.repair_order:
+            first = self.repair_order[0]
+            verify = verification_for(model, first.id) if first.cost is not None else None
+            if verify is not None and verify.caution:
+                out.append(f"{verify.label}: {verify.caution}")
+        return tuple(out)
+
+    def state(self) -> SessionState:
+        status = self.status
+        return SessionState(
+            status=status,
+            ranking=self.ranking.rows,
+            next_check=self.ranking.best if status == DIAGNOSING else None,
+            suspects=self.suspects,
+            entropy_bits=self.entropy_bits,
+            log_p_findings=self.posterior.log_p,
+            findings=self.finding_views(),
+            repairs=self.record.repairs,
+            skipped=self.record.skipped,
+            notes=self.record.notes,
+            cost_spent=self.cost_spent,
+            cost_unit=self.model.cost_unit,
+            isolated=self.isolated,
+            ambiguity_group=self.group if status == AMBIGUITY else None,
+            repair_order=self.repair_order,
+            verification=self.verification_request,
+            cautions=self.cautions(),
+            epoch=self.record.epoch,
+            settings=self.settings,
+        )
+
+
+def verification_for(model: Model, repaired: str) -> VerificationRequest:
+    """How a repair of ``repaired`` is confirmed: its ``verify`` check, else the top event."""
+    event = model.event_by_id.get(repaired)
+    verify = event.repair.verify if event is not None and event.repair is not None else None
+    if verify is not None and verify in model.check_by_id:
+        check = model.check_by_id[verify]
+        return VerificationRequest(check.id, check.label, float(check.cost), tuple(check.outcomes),
+                                   check.instructions, check.caution)
+    v = model.verification
+    if v is None:
+        return VerificationRequest(model.top, f"does the unit work now? ({model.label_of(model.top)})",
+                                   0.0, ("works", "still fails"))
+    return VerificationRequest(model.top, v.label, float(v.cost), tuple(v.outcomes), v.instructions)
+
+
+def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:
+    if isinstance(outcome, bool):
+        outcome = int(outcome)
+    if isinstance(outcome, int):
+        if outcome in (0, 1):
+            return outcome
+    elif isinstance(outcome, str):
+        if outcome in outcomes:
+            return outcomes.index(outcome)
+        folded = [o.casefold() for o in outcomes]
+        if outcome.strip().casefold() in folded:
+            return folded.index(outcome.strip().casefold())
+    raise SessionError(f"{what} has the outcomes {outcomes[0]!r} and {outcomes[1]!r}, not {outcome!r}; "
+                       "give one of them")
+
+
+class Session:
+    """One diagnosis of one unit: findings, skips, repairs, verification, undo.
+
+    Parameters
+    ----------
+    model : Model
+    settings : SessionSettings, optional
+        Default: :func:`settings_for` the model.
+    engine : Engine, optional
+        Reuse a compiled engine for the model.
+    log : SessionLogWriter, optional
+        Receives every committed action (see :mod:`troubleshoot.sessionlog`).
+    model_path : str, optional
+        Where the model came from (shown and logged).
+
+    The complaint (the top event has occurred, ``Finding(model.top, 1, 0)``)
+    is applied at once; a model under which it is impossible raises
+    ImpossibleFindings.
+
+    Most front ends create a session with
+    :func:`troubleshoot.sessionlog.new_session` (which opens the log) or
+    :func:`troubleshoot.sessionlog.resume_session`.
+    """
+
+    def __init__(self, model: Model, settings: SessionSettings | None = None, engine: Engine | None = None,
+                 log: SessionLogWriter | None = None, model_path: str | None = None):
+        self.model = model
+        self.settings = (settings or settings_for(model)).validated()
+        self.engine = engine or Engine(model)
+        self.model_path = model_path
+        self.log = log
+        record = Record((Observation(Finding(model.top, 1, 0), COMPLAINT),))
+        self._view = self._make_view(record)
+        self._history: list[SessionView] = []
+        self.actions: list[dict] = []  # committed actions, in order (undo included)
+        self.resume_warnings: list[str] = []  # set by resume_session
+
+    # ------------------------------------------------------------------ reading
+
+    @property
+    def view(self) -> SessionView:
+        """The current view (record, posterior and what is derived from it)."""
+        return self._view
+
+    @property
+    def state(self) -> SessionState:
+        """The current state as plain data."""
+        return self._view.state()
+
+    @property
+    def status(self) -> str:
+        return self._view.status
+
+    @property
+    def posterior(self) -> Posterior:
+        return self._view.posterior
+
+    @property
+    def ranking(self) -> Ranking:
+        return self._view.ranking
+
+    @property
+    def suspects(self) -> tuple[Suspect, ...]:
+        return self._view.suspects
+
+    @property
+    def entropy_bits(self) -> float:
+        return self._view.entropy_bits
+
+    @property
+    def explanation(self) -> Explanation:
+        """The most probable explanation (computed on first request: a few propagations)."""
+        return self._view.explanation
+
+    @property
+    def findings(self) -> tuple[Finding, ...]:
+        return self._view.record.findings
+
+    @property
+    def repairs(self) -> tuple[str, ...]:
+        return self._view.record.repairs
+
+    @property
+    def epoch(self) -> int:
+        return self._view.record.epoch
+
+    @property
+    def can_undo(self) -> bool:
+        return bool(self._history)
+
+    # ------------------------------------------------------------------ actions
+
+    def record_finding(self, check_id: str, outcome: str | int) -> SessionState:
+        """Record the outcome of a check or symptom done now (after every repair so far)."""
+        check = self._check(check_id)
+        self._refuse_if_confirmed("record a finding")
+        request = self._view.verification_request
+        if request is not None and request.target == check_id:
+            # The check that verifies the last repair: its outcome is the verification.
+            return self.record_verification(outcome)
+        index = _outcome_index(check.outcomes, outcome, f"check {check_id!r}")
+        rec = self._view.record
+        for o in rec.observations:
+            if o.finding.target == check_id and o.finding.epoch == rec.epoch:
+                done = check.outcomes[o.finding.outcome]
+                since = "since the last repair" if rec.epoch else "in this session"
+                raise SessionError(f"check {check_id!r} was already done {since} (outcome {done!r}); "
+                                   "correct or retract that finding instead")
+        new = replace(rec, observations=rec.observations + (Observation(Finding(check_id, index, rec.epoch),
+                                                                         OBSERVATION),))
+        return self._commit({"action": "finding", "check": check_id, "outcome": check.outcomes[index]}, new)
+
+    def retract_finding(self, check_id: str, epoch: int | None = None) -> SessionState:
+        """Withdraw a finding as if never made (default: the latest finding on that check)."""
+        rec = self._view.record
+        position = self._find(check_id, epoch)
+        observations = rec.observations[:position] + rec.observations[position + 1 :]
+        found = rec.observations[position].finding
+        return self._commit({"action": "retract", "check": check_id, "epoch": found.epoch},
+                            replace(rec, observations=observations))
+
+    def correct_finding(self, check_id: str, outcome: str | int, epoch: int | None = None) -> SessionState:
+        """Change the outcome of a finding already recorded (default: the latest on that check)."""
+        rec = self._view.record
+        position = self._find(check_id, epoch)
+        old = rec.observations[position]
+        outcomes = self._outcomes_of(old)
+        index = _outcome_index(outcomes, outcome, f"{check_id!r}")
+        if index == old.finding.outcome:
+            raise SessionError(f"the finding on {check_id!r} already reads {outcomes[index]!r}; nothing to correct")
+        fixed = Observation(replace(old.finding, outcome=index), old.kind)
+        observations = rec.observations[:position] + (fixed,) + rec.observations[position + 1 :]
+        return self._commit({"action": "correct", "check": check_id, "outcome": outcomes[index],
+                             "epoch": old.finding.epoch}, replace(rec, observations=observations))
+
+    def skip_check(self, check_id: str, reason: str) -> SessionState:
+        """Leave a check out of this session's ranking because it cannot be done now."""
+        self._check(check_id)
+        reason = (reason or "").strip()
+        if not reason:
+            raise SessionError(f"say why check {check_id!r} cannot be done (the log keeps the reason)")
+        rec = self._view.record
+        if any(c == check_id for c, _ in rec.skipped):
+            raise SessionError(f"check {check_id!r} is already skipped")
+        return self._commit({"action": "skip", "check": check_id, "reason": reason},
+                            replace(rec, skipped=rec.skipped + ((check_id, reason),)))
+
+    def unskip_check(self, check_id: str) -> SessionState:
+        """Bring a skipped check back into the ranking."""
+        rec = self._view.record
+        if not any(c == check_id for c, _ in rec.skipped):
+            raise SessionError(f"check {check_id!r} is not skipped")
+        return self._commit({"action": "unskip", "check": check_id},
+                            replace(rec, skipped=tuple(s for s in rec.skipped if s[0] != check_id)))
+
+    def record_repair(self, event_id: str) -> SessionState:
+        """Record that a root event was repaired; a verification is asked for next."""
+        model = self.model
+        self._refuse_if_confirmed("record a repair")
+        if event_id not in model.hypotheses:
+            known = ", ".join(model.hypotheses[:8]) + (", ..." if len(model.hypotheses) > 8 else "")
+            raise SessionError(f"cannot repair {event_id!r}: it is not a basic event of model "
+                               f"{model.name!r} (basic events: {known})")
+        rec = self._view.record
+        if event_id in rec.repairs:
+            raise SessionError(f"{event_id!r} was already repaired in this session")
+        return self._commit({"action": "repair", "event": event_id},
+                            replace(rec, repairs=rec.repairs + (event_id,)))
+
+    def record_verification(self, outcome: str | int) -> SessionState:
+        """Record the check after the last repair: outcome 0 (works) confirms, 1 (still fails) goes on."""
+        request = self._view.verification_request
+        rec = self._view.record
+        if not rec.repairs:
+            raise SessionError("nothing has been repaired yet; record a repair before verifying it")
+        if request is None:
+            raise SessionError("the last repair was already verified; record another repair to verify again")
+        if request.target != self.model.top:
+            for o in rec.observations:
+                if o.finding.target == request.target and o.finding.epoch == rec.epoch:
+                    raise SessionError(f"check {request.target!r} was already done since the last repair; "
+                                       "its finding is the verification: correct it if needed")
+        index = _outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
+        new = replace(rec, observations=rec.observations + (Observation(Finding(request.target, index, rec.epoch),
+                                                                         VERIFICATION),))
+        return self._commit({"action": "verify", "outcome": request.outcomes[index]}, new)
+
+    def add_note(self, text: str) -> SessionState:
+        """Add a free-text note to the session (and its log)."""
+        text = (text or "").strip()
+        if not text:
+            raise SessionError("a note needs some text")
+        rec = self._view.record
+        return self._commit({"action": "note", "text": text}, replace(rec, notes=rec.notes + (text,)),
+                            same_posterior=True)
+
+    def undo(self) -> SessionState:
+        """Take back the last action (the undo itself is logged)."""
+        if not self._history:
+            raise SessionError("nothing to undo")
+        previous = self._history[-1]
+        self._write({"action": "undo"}, previous)
+        self._history.pop()
+        self._view = previous
+        self.actions.append({"action": "undo"})
+        return self.state
+
+    def apply(self, action: dict) -> SessionState:
+        """Perform an action given as a dict (the form the log stores)."""
+        if not isinstance(action, dict) or "action" not in action:
+            raise SessionError(f"not an action: {action!r}")
+        kind = action["action"]
+        try:
+            if kind == "finding":
+                return self.record_finding(action["check"], action["outcome"])
+            if kind == "retract":
+                return self.retract_finding(action["check"], action.get("epoch"))
+            if kind == "correct":
+                return self.correct_finding(action["check"], action["outcome"], action.get("epoch"))
+            if kind == "skip":
+                return self.skip_check(action["check"], action.get("reason", ""))
+            if kind == "unskip":
+                return self.unskip_check(action["check"])
+            if kind == "repair":
+                return self.record_repair(action["event"])
+            if kind == "verify":
+                return self.record_verification(action["outcome"])
+            if kind == "note":
+                return self.add_note(action.get("text", ""))
+            if kind == "undo":
+                return self.undo()
+        except KeyError as exc:
+            raise SessionError(f"action {kind!r} lacks its {exc.args[0]!r} field") from None
+        raise SessionError(f"unknown action {kind!r}; known: finding, retract, correct, skip, unskip, "
+                           "repair, verify, note, undo")
+
+    def close(self) -> None:
+        """Close the log (the session can still be read)."""
+        if self.log is not None:
+            self.log.close()
+
+    # ------------------------------------------------------------------ internals
+
+    def _make_view(self, record: Record) -> SessionView:
+        posterior = self.engine.propagate(record.findings, record.repairs)
+        return SessionView(self.model, self.engine, self.settings, record, posterior)
+
+    def _commit(self, action: dict, record: Record, same_posterior: bool = False) -> SessionState:
+        if same_posterior:
+            view = SessionView(self.model, self.engine, self.settings, record, self._view.posterior)
+        else:
+            view = self._make_view(record)  # raises before anything changes
+        self._write(action, view)
+        self._history.append(self._view)
+        self._view = view
+        self.actions.append(action)
+        return self.state
+
+    def _write(self, action: dict, view: SessionView) -> None:
+        if self.log is not None:
+            self.log.write_action(action, view)
+
+    def _check(self, check_id: str):
+        check = self.model.check_by_id.get(check_id)
+        if check is None:
+            hint = ""
+            if check_id in self.model.hypotheses or check_id in self.model.gate_by_id:
+                hint = f" ({check_id!r} is an event or gate: checks observe them)"
+            raise SessionError(f"unknown check {check_id!r} in model {self.model.name!r}{hint}; "
+                               "give the id of one of its checks or symptoms")
+        return check
+
+    def _refuse_if_confirmed(self, what: str) -> None:
+        if self._view.confirmed:
+            raise SessionError(f"cannot {what}: the repair is confirmed and the diagnosis is finished; "
+                               "undo or retract the verification to go on")
+
+    def _find(self, target: str, epoch: int | None) -> int:
+        rec = self._view.record
+        matches = [i for i, o in enumerate(rec.observations)
+                   if o.kind != COMPLAINT and o.finding.target == target
+                   and (epoch is None or o.finding.epoch == epoch)]
+        if not matches:
+            if target == self.model.top and any(o.kind == COMPLAINT for o in rec.observations) and epoch in (None, 0):
+                raise SessionError("the complaint (the unit has failed) starts the session and cannot be changed")
+            when = "" if epoch is None else f" after {epoch} repair(s)"
+            raise SessionError(f"there is no finding on {target!r}{when} to change")
+        return matches[-1]
+
+    def _outcomes_of(self, observation: Observation) -> tuple[str, str]:
+        f = observation.finding
+        if observation.kind == VERIFICATION:
+            return verification_for(self.model, self._view.record.repairs[f.epoch - 1]).outcomes
+        return tuple(self.model.check_by_id[f.target].outcomes)
