@@ -1,4 +1,8 @@
-"""``troubleshoot resume``: continue a session from its log, line by line.
+"""``troubleshoot resume``: continue a session from its log, in the terminal UI or line by line.
+
+At a terminal it opens the terminal UI where the session stopped; with
+``--plain``, or when standard input or output is not a terminal (a script),
+it reads one command per line instead.
 
 The log is re-run from the model, a torn last line (the session was killed
 while writing it) is reported and cut off, and every new action is appended
@@ -39,6 +43,8 @@ def add_parser(subparsers, name):
     parser.add_argument("log", metavar="LOG", help="the session log (.jsonl)")
     parser.add_argument("--model", metavar="MODEL", help="use this model file instead of the one the "
                         "log names")
+    parser.add_argument("--plain", action="store_true", help="read commands line by line instead of "
+                        "opening the terminal UI (the default when not at a terminal)")
     return parser
 
 
@@ -143,6 +149,10 @@ def run(args) -> int:
     session = resume_session(args.log, model=model)
     for warning in session.resume_warnings:
         print(f"troubleshoot: warning: {warning}", file=sys.stderr)
+    if not args.plain and sys.stdin.isatty() and sys.stdout.isatty():
+        from troubleshoot.ui.app import run_app
+
+        return run_app(session)
     print(f"resumed {args.log}: {len(session.actions)} action(s) re-run; new actions are appended")
     try:
         interact(session)

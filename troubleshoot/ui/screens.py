@@ -1,0 +1,597 @@
+"""The screens of the terminal UI: start, main, a check, prompts, choices, help, summary.
+
+Screens are thin: they render what the session says (through the app, which
+runs every session action in a worker) and hand the technician's keys back
+as results. No screen computes a probability.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.screen import ModalScreen, Screen
+from textual.widgets import DataTable, Footer, Input, Markdown, OptionList, Static
+from textual.widgets.option_list import Option
+
+from troubleshoot.ui.widgets import (
+    ChecksTable,
+    DiagnosisPanel,
+    FindingsPanel,
+    StatusBar,
+    SuspectsPanel,
+    bits_text,
+    cost_text,
+    outcome_odds_line,
+    percent,
+)
+
+#: Shown once at the start of every sitting (the start screen, or a notice when a session is resumed).
+SAFETY_NOTICE = (
+    "⚠ SAFETY: this tool suggests checks and repairs; it does not replace the equipment maker's "
+    "procedures, lockout/tagout, local codes or licensed practice. Make a check only if you are "
+    "qualified for it and the equipment is made safe as its caution says."
+)
+
+#: Marks of a symptom on the start screen: what the technician saw, in words.
+SEEN, NOT_SEEN, NOT_LOOKED = "seen", "not seen", "not looked at"
+
+
+@dataclass(frozen=True)
+class CheckCard:
+    """What the check screen shows: one check, or the verification after a repair."""
+
+    target: str
+    label: str
+    cost: float
+    unit: str
+    outcomes: tuple[str, str]
+    instructions: str = ""
+    caution: str | None = None
+    p_outcomes: tuple[float, float] | None = None
+    bits: float | None = None
+    verification: bool = False
+
+
+class StartScreen(Screen):
+    """The complaint, the safety notice, and the symptoms to mark before the diagnosis begins."""
+
+    BINDINGS = [
+        Binding("y", "mark('seen')", "Seen"),
+        Binding("n", "mark('not seen')", "Not seen"),
+        Binding("minus", "mark('not looked at')", "Not looked", key_display="-"),
+        Binding("b", "begin", "Begin"),
+        Binding("q", "app.quit_session", "Quit"),
+    ]
+
+    def __init__(self, model) -> None:
+        super().__init__(id="start")
+        self.model = model
+        self.marks: dict[str, str] = {s.id: NOT_LOOKED for s in model.symptoms}
+
+    def compose(self) -> ComposeResult:
+        model = self.model
+        with Vertical(id="start-body"):
+            yield Static(Text(f"troubleshoot — {model.name}", style="bold"), id="start-title")
+            yield Static(Text(f"Complaint: {model.top_label or model.label_of(model.top)}"), id="complaint")
+            yield Static(Text(SAFETY_NOTICE), id="safety")
+            table = DataTable(id="symptoms", cursor_type="row", zebra_stripes=True)
+            table.border_title = "Symptoms: mark each one y seen, n not seen, - not looked at"
+            yield table
+            yield Static("Press b to begin the diagnosis with these marks.", id="start-hint")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        table = self.query_one("#symptoms", DataTable)
+        table.add_column("Mark", key="mark", width=22)
+        table.add_column("Symptom", key="label")
+        for s in self.model.symptoms:
+            table.add_row(self._mark_text(s.id), s.label, key=s.id)
+        if not self.model.symptoms:
+            self.query_one("#start-hint", Static).update(
+                "This model lists no symptoms. Press b to begin the diagnosis.")
+        table.focus()
+
+    def _mark_text(self, symptom_id: str) -> str:
+        mark = self.marks[symptom_id]
+        symbol = {SEEN: "[✔] seen", NOT_SEEN: "[✘] not seen", NOT_LOOKED: "[ ] not looked at"}[mark]
+        return symbol
+
+    def action_mark(self, mark: str) -> None:
+        table = self.query_one("#symptoms", DataTable)
+        if table.row_count == 0:
+            return
+        row_key, _ = table.coordinate_to_cell_key((table.cursor_row, 0))
+        self.marks[row_key.value] = mark
+        table.update_cell(row_key, "mark", self._mark_text(row_key.value))
+        if table.cursor_row < table.row_count - 1:
+            table.move_cursor(row=table.cursor_row + 1)
+
+    def observations(self) -> list[tuple[str, int]]:
+        """(symptom id, outcome index) for every symptom marked seen (abnormal) or not seen (normal)."""
+        return [(sid, 1 if mark == SEEN else 0) for sid, mark in self.marks.items() if mark != NOT_LOOKED]
+
+    def action_begin(self) -> None:
+        self.app.begin_diagnosis(self.observations())
+
+
+class MainScreen(Screen):
+    """Ranked checks, suspects, uncertainty and findings, together; the keys act on the session."""
+
+    BINDINGS = [
+        Binding("s", "skip", "Skip"),
+        Binding("u", "undo", "Undo"),
+        Binding("x", "retract", "Retract"),
+        Binding("r", "repair", "Repair"),
+        Binding("v", "verify", "Verify"),
+        Binding("n", "note", "Note"),
+        Binding("question_mark", "help", "Help", key_display="?"),
+        Binding("q", "app.quit_session", "Quit"),
+    ]
+
+    def __init__(self) -> None:
+        super().__init__(id="main")
+
+    def compose(self) -> ComposeResult:
+        yield StatusBar(id="status")
+        panel = DiagnosisPanel(id="diagnosis")
+        panel.border_title = "Diagnosis"
+        yield panel
+        with Vertical(id="checks-panel"):
+            yield ChecksTable(id="checks")
+            yield Static(id="check-detail")
+        with Horizontal(id="lower"):
+            suspects = SuspectsPanel(id="suspects")
+            suspects.border_title = "Suspects: P(failed)"
+            yield suspects
+            findings = FindingsPanel(id="findings")
+            findings.border_title = "Findings so far"
+            yield findings
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one("#checks-panel").border_title = "Next checks, best first"
+        self.query_one("#checks", ChecksTable).focus()
+        self.show_state()
+
+    def show_state(self, keep_cursor: bool = False) -> None:
+        """Render the app's latest session state (nothing is computed here)."""
+        app = self.app
+        state = app.state
+        self.query_one("#status", StatusBar).show(app.complaint, state, app.busy)
+        if state is None:
+            return
+        self.query_one("#diagnosis", DiagnosisPanel).show(state)
+        self.query_one("#checks", ChecksTable).show(state, keep_cursor)
+        self.query_one("#suspects", SuspectsPanel).show(state.suspects)
+        self.query_one("#findings", FindingsPanel).show(state, app.session.model)
+        self._show_detail()
+        self.refresh_bindings()
+
+    def show_busy(self) -> None:
+        self.query_one("#status", StatusBar).show(self.app.complaint, self.app.state, self.app.busy)
+        self.query_one("#checks", ChecksTable).set_class(self.app.busy, "-busy")
+
+    def _show_detail(self) -> None:
+        state = self.app.state
+        detail = self.query_one("#check-detail", Static)
+        check_id = self.query_one("#checks", ChecksTable).highlighted_check()
+        row = next((r for r in state.ranking if r.check == check_id), None) if state else None
+        if row is None:
+            detail.update("No check is left to rank." if state else "")
+        else:
+            detail.update(Text(outcome_odds_line(row), no_wrap=True, overflow="ellipsis"))
+
+    def on_resize(self) -> None:
+        self.show_state(keep_cursor=True)
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        self._show_detail()
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        event.stop()
+        self.action_open_check()
+
+    def check_action(self, action: str, parameters) -> bool | None:
+        # The verify key is shown only while a repair awaits its verification.
+        if action == "verify":
+            state = self.app.state
+            return state is not None and state.status == "awaiting-verification"
+        return True
+
+    def _highlighted_row(self):
+        state = self.app.state
+        check_id = self.query_one("#checks", ChecksTable).highlighted_check()
+        if state is None or check_id is None:
+            self.app.say("No check is left to open.")
+            return None
+        return next(r for r in state.ranking if r.check == check_id)
+
+    def action_open_check(self) -> None:
+        row = self._highlighted_row()
+        if row is None:
+            return
+        model = self.app.session.model
+        check = model.check_by_id[row.check]
+        card = CheckCard(row.check, row.label, row.cost, model.cost_unit, tuple(row.outcomes),
+                         check.instructions, row.caution, tuple(row.p_outcomes), row.bits)
+        self.app.push_screen(CheckScreen(card), self._check_done)
+
+    def _check_done(self, result) -> None:
+        if not result:
+            return
+        verb, card = result[0], result[1]
+        if verb == "outcome":
+            index = result[2]
+            self.app.perform(f"recording {card.outcomes[index]!r}",
+                             lambda: self.app.session.record_finding(card.target, index))
+        elif verb == "skip":
+            self._ask_skip_reason(card.target, card.label)
+
+    def action_skip(self) -> None:
+        row = self._highlighted_row()
+        if row is not None:
+            self._ask_skip_reason(row.check, row.label)
+
+    def _ask_skip_reason(self, check_id: str, label: str) -> None:
+        def skip(reason: str | None) -> None:
+            if reason is not None:
+                self.app.perform("skipping the check", lambda: self.app.session.skip_check(check_id, reason))
+
+        self.app.push_screen(PromptScreen(f"Skip: {label}", "Why can this check not be done now?"), skip)
+
+    def action_undo(self) -> None:
+        self.app.perform("undoing the last action", self.app.session.undo, done="Undone: the last action.")
+
+    def action_retract(self) -> None:
+        state = self.app.state
+        if state is None:
+            return
+        options = []
+        for view in state.findings:
+            if view.kind == "complaint":
+                continue
+            when = f" (after {view.epoch} repair(s))" if view.epoch else ""
+            options.append(((view.target, view.epoch), f"{view.label} — {view.outcome}{when}"))
+        if not options:
+            self.app.say("No finding to retract or correct yet: the complaint starts the session.")
+            return
+
+        def chosen(result) -> None:
+            if not result:
+                return
+            verb, (target, epoch) = result
+            if verb == "retract":
+                self.app.perform("retracting the finding",
+                                 lambda: self.app.session.retract_finding(target, epoch))
+            else:
+                view = next(v for v in state.findings if v.target == target and v.epoch == epoch)
+                self.app.perform("correcting the finding",
+                                 lambda: self.app.session.correct_finding(target, 1 - view.outcome_index, epoch))
+
+        self.app.push_screen(FindingChoiceScreen(options), chosen)
+
+    def action_repair(self) -> None:
+        state = self.app.state
+        if state is None:
+            return
+        model = self.app.session.model
+        unit = model.cost_unit
+        options, listed = [], set()
+        for step in state.repair_order:
+            if step.cost is None:
+                continue
+            listed.add(step.id)
+            options.append((step.id, f"{step.repair_label} — {cost_text(step.cost, unit)} "
+                                     f"· P {percent(step.p)}"))
+        p_of = {s.id: s.p for s in state.suspects}
+        for event in model.basic_events:
+            if event.id in listed or event.repair is None or event.id in state.repairs:
+                continue
+            options.append((event.id, f"{event.repair.label} — {cost_text(event.repair.cost, unit)} "
+                                      f"· P {percent(p_of.get(event.id, 0.0))}"))
+        if not options:
+            self.app.say("The model lists no repair left to record.")
+            return
+
+        def chosen(result) -> None:
+            if result:
+                self.app.perform("recording the repair", lambda: self.app.session.record_repair(result[1]),
+                                 then=self.app.open_verification)
+
+        self.app.push_screen(ChoiceScreen("Record a repair (repair order first)", options, "Record"), chosen)
+
+    def action_verify(self) -> None:
+        self.app.open_verification()
+
+    def action_note(self) -> None:
+        def noted(text: str | None) -> None:
+            if text is not None:
+                self.app.perform("adding the note", lambda: self.app.session.add_note(text),
+                                 done="Note added to the log.")
+
+        self.app.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
+
+    def action_help(self) -> None:
+        self.app.push_screen(HelpScreen())
+
+
+class CheckScreen(ModalScreen):
+    """One check (or the verification): instructions, outcomes, and the caution to acknowledge first."""
+
+    BINDINGS = [
+        Binding("a", "acknowledge", "Ack caution"),
+        Binding("1", "outcome(0)", "1st outcome"),
+        Binding("2", "outcome(1)", "2nd outcome"),
+        Binding("s", "skip", "Skip"),
+        Binding("escape", "back", "Back", key_display="esc"),
+    ]
+
+    def __init__(self, card: CheckCard) -> None:
+        super().__init__(id="check-screen")
+        self.card = card
+        self.acknowledged = card.caution is None
+
+    def compose(self) -> ComposeResult:
+        card = self.card
+        with VerticalScroll(id="check-card", classes="card"):
+            title = "Verify the repair: " if card.verification else ""
+            yield Static(Text(title + card.label, style="bold"), id="check-title")
+            facts = f"Cost: {cost_text(card.cost, card.unit)}"
+            if card.bits is not None:
+                facts += f" · expected information: {bits_text(card.bits)}"
+            yield Static(facts, id="check-facts")
+            if card.caution:  # first, so it is read before the instructions
+                yield Static(Text(f"⚠ CAUTION: {card.caution}"), id="check-caution", classes="caution")
+            if card.instructions:
+                yield Static(Text("How: " + card.instructions), id="check-instructions")
+            lines = []
+            for i, name in enumerate(card.outcomes):
+                odds = f"  (P {percent(card.p_outcomes[i])})" if card.p_outcomes else ""
+                lines.append(f"  key {i + 1}: {name}{odds}")
+            yield Static(Text("Outcomes:\n" + "\n".join(lines)), id="check-outcomes")
+            yield Static(id="check-message")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self._show_ack()
+
+    def _show_ack(self) -> None:
+        message = self.query_one("#check-message", Static)
+        if self.card.caution is None:
+            message.update("This check lists no safety caution. Enter its outcome with key 1 or 2.")
+        elif self.acknowledged:
+            message.update("✔ Caution acknowledged. Enter the outcome with key 1 or 2.")
+        else:
+            message.update("Read the caution, then press a to acknowledge it before entering an outcome.")
+        self.refresh_bindings()
+
+    def check_action(self, action: str, parameters) -> bool | None:
+        if action == "acknowledge":
+            return self.card.caution is not None
+        if action == "skip":
+            return not self.card.verification
+        return True
+
+    def action_acknowledge(self) -> None:
+        self.acknowledged = True
+        self._show_ack()
+
+    def action_outcome(self, index: int) -> None:
+        if not self.acknowledged:
+            self.query_one("#check-message", Static).update(
+                Text("✘ Refused: acknowledge the safety caution first (press a), then enter the outcome.",
+                     style="bold"))
+            self.app.bell()
+            return
+        self.dismiss(("outcome", self.card, index))
+
+    def action_skip(self) -> None:
+        self.dismiss(("skip", self.card))
+
+    def action_back(self) -> None:
+        self.dismiss(None)
+
+    @property
+    def message(self) -> str:
+        """The message line as plain text (what a refusal says)."""
+        return str(self.query_one("#check-message", Static).render())
+
+
+class PromptScreen(ModalScreen):
+    """Asks for one line of text (a skip reason, a note); Enter gives it, Escape cancels."""
+
+    BINDINGS = [Binding("escape", "cancel", "Cancel", key_display="esc")]
+
+    def __init__(self, title: str, prompt: str) -> None:
+        super().__init__(classes="prompt-screen")
+        self.title_text = title
+        self.prompt = prompt
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="card"):
+            yield Static(Text(self.title_text, style="bold"))
+            yield Static(self.prompt)
+            yield Input(id="prompt-input")
+            yield Static("Enter gives it; Escape cancels.", id="prompt-message")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one("#prompt-input", Input).focus()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        event.stop()
+        text = event.value.strip()
+        if not text:
+            self.query_one("#prompt-message", Static).update("✘ Type something first, or Escape to cancel.")
+            return
+        self.dismiss(text)
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)
+
+
+class RecordList(OptionList):
+    """An option list whose Enter is shown in the footer as recording the highlighted entry."""
+
+    BINDINGS = [Binding("enter", "select", "Record", key_display="⏎")]
+
+
+class RetractList(OptionList):
+    """An option list whose Enter is shown in the footer as retracting the highlighted finding."""
+
+    BINDINGS = [Binding("enter", "select", "Retract", key_display="⏎")]
+
+
+class ChoiceScreen(ModalScreen):
+    """A list to choose one entry from; Enter takes it, Escape goes back."""
+
+    BINDINGS = [Binding("escape", "cancel", "Back", key_display="esc")]
+    LIST = RecordList
+
+    def __init__(self, title: str, options: list[tuple[object, str]], verb: str = "take") -> None:
+        super().__init__(classes="choice-screen")
+        self.title_text = title
+        self.options = options
+        self.verb = verb
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="card"):
+            yield Static(Text(self.title_text, style="bold"))
+            yield self.LIST(*[Option(text, id=str(i)) for i, (_, text) in enumerate(self.options)],
+                            id="choices")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        choices = self.query_one("#choices", OptionList)
+        choices.highlighted = 0
+        choices.focus()
+
+    def _current(self):
+        index = self.query_one("#choices", OptionList).highlighted
+        return None if index is None else self.options[index][0]
+
+    def on_option_list_option_selected(self, event: OptionList.OptionSelected) -> None:
+        event.stop()
+        self.action_take()
+
+    def action_take(self) -> None:
+        key = self._current()
+        if key is not None:
+            self.dismiss((self.verb.lower(), key))
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)
+
+
+class FindingChoiceScreen(ChoiceScreen):
+    """Choose a finding to retract (as if never made) or correct (flip its outcome)."""
+
+    BINDINGS = [
+        Binding("c", "correct", "Correct"),
+        Binding("escape", "cancel", "Back", key_display="esc"),
+    ]
+    LIST = RetractList
+
+    def __init__(self, options) -> None:
+        super().__init__("Retract a finding (Enter) or correct its outcome (c)", options, "retract")
+
+    def action_correct(self) -> None:
+        key = self._current()
+        if key is not None:
+            self.dismiss(("correct", key))
+
+
+HELP_TEXT = """\
+# Keys
+
+**Main screen**
+
+| Key | Does |
+|-----|------|
+| ↑ ↓ | move through the ranked checks |
+| ⏎ | open the highlighted check: how to do it, its outcomes, its caution |
+| s | skip the highlighted check (say why; the log keeps the reason) |
+| u | undo the last action |
+| x | retract a finding, or correct its outcome (c) |
+| r | record a repair (the repair order comes first) |
+| v | verify the last repair (shown while a repair awaits it) |
+| n | add a note to the log |
+| ? | this help |
+| q | quit: every action is already saved in the log |
+
+**A check**: `a` acknowledges its safety caution (needed before an outcome),
+`1` and `2` enter its first or second outcome, `s` skips it, `esc` goes back.
+
+# The numbers
+
+- **Cost**: what a check or repair takes, in the model's cost unit.
+- **Info**: the information the check is expected to give about the faults, in bits.
+- **Score**: bits per cost unit; the list is sorted by it. A free informative check reads ∞.
+- **Odds n/abn**: the chance of the normal and the abnormal outcome, in percent.
+- **Suspects**: the probability that each fault is present, given the findings.
+- **Uncertainty**: what is still unknown about the faults, in bits; 0 bit means certain.
+
+⚠ The suggestions do not replace the equipment maker's procedures,
+lockout/tagout, local codes or licensed practice.
+
+Press Escape to close this help.
+"""
+
+
+class HelpScreen(ModalScreen):
+    """The keys and what the numbers mean."""
+
+    BINDINGS = [
+        Binding("escape", "close", "Close", key_display="esc"),
+        Binding("question_mark", "close", "Close", show=False),
+        Binding("q", "close", "Close", show=False),
+    ]
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(classes="card", id="help-card"):
+            yield Markdown(HELP_TEXT)
+        yield Footer()
+
+    def action_close(self) -> None:
+        self.dismiss(None)
+
+
+class SafetyScreen(ModalScreen):
+    """The safety notice, shown once when a saved session is reopened."""
+
+    BINDINGS = [Binding("enter", "close", "Understood", key_display="⏎"),
+                Binding("escape", "close", "Understood", show=False)]
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="card"):
+            yield Static(Text(SAFETY_NOTICE), id="safety")
+            yield Static("Press Enter to go on with the saved session.")
+        yield Footer()
+
+    def action_close(self) -> None:
+        self.dismiss(None)
+
+
+class SummaryScreen(Screen):
+    """The end-of-session summary, as written beside the log."""
+
+    BINDINGS = [
+        Binding("q", "app.quit_session", "Quit"),
+        Binding("escape", "back", "Back", key_display="esc"),
+    ]
+
+    def __init__(self, markdown: str) -> None:
+        super().__init__(id="summary")
+        self.markdown = markdown
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(id="summary-body"):
+            yield Markdown(self.markdown, id="summary-text")
+        yield Footer()
+
+    def action_back(self) -> None:
+        self.app.pop_screen()
