@@ -59,8 +59,8 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else argv
     parser = build_parser()
-    if not argv:
-        argv = ["start"]
+    if not argv or (argv[0].startswith("-") and argv[0] not in ("-h", "--help", "--version")):
+        argv = ["start", *argv]  # no command: open the bundled demo (options go to start)
     args = parser.parse_args(argv)
     if not getattr(args, "_run", None):
         parser.print_help()
