@@ -1,0 +1,128 @@
+"""Simulated troubleshooting: exact sampling, convergence to exact expected costs, reproducibility.
+
+References: tests/bruteforce.py (enumeration of every root state) for the
+distribution of the true state and for exact expected costs (through
+tests/test_optimal.py's reference recursion); the 95% interval of a mean by
+the normal approximation, mean +- 1.96 sd / sqrt(n) (common practice).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+
+import bruteforce
+from test_optimal import reference_strategy_cost, small_model
+from troubleshoot.cli import main
+from troubleshoot.inference import Engine
+from troubleshoot.modelfile import save_model
+from troubleshoot.optimal import solve
+from troubleshoot.session import settings_for
+from troubleshoot.simulation import (case_generator, draw_case, sample_true_state, simulate, summarise,
+                                     true_values)
+from troubleshoot.strategies import STRATEGY_NAMES, make_strategy
+
+
+def test_true_state_is_drawn_from_the_posterior_given_the_complaint():
+    model = small_model()
+    engine = Engine(model)
+    rng = case_generator(11, 0, 0)
+    draws = 2000
+    counts = {r: 0 for r in model.hypotheses}
+    for _ in range(draws):
+        failed = sample_true_state(engine, rng)
+        assert true_values(model, failed, frozenset())[model.top]  # every draw has the complaint
+        for r in failed:
+            counts[r] += 1
+    # Reference: P(root failed | top) by enumeration (bruteforce.posterior).
+    exact = bruteforce.posterior(model, [SimpleNamespace(target="top", outcome=1, epoch=0)])["marginals"]
+    for r in model.hypotheses:
+        p = exact[r]
+        sd = math.sqrt(p * (1 - p) / draws)
+        # 4.5 standard deviations of a binomial share: a fixed seed, far from a chance failure (common practice).
+        assert abs(counts[r] / draws - p) <= 4.5 * sd + 1e-12, r
+
+
+def test_case_draws_depend_on_seed_and_case_only():
+    model = small_model()
+    engine = Engine(model)
+    a, b = draw_case(engine, 3, 7), draw_case(engine, 3, 7)
+    assert a.failed == b.failed and np.array_equal(a.uniforms, b.uniforms)
+    assert not np.array_equal(draw_case(engine, 3, 8).uniforms, a.uniforms)
+    # The same check at the same epoch gets the same answer whoever asks (common random numbers).
+    assert [a.answer(c.id, ()) for c in model.checks] == [b.answer(c.id, ()) for c in model.checks]
+
+
+@pytest.mark.parametrize("name", ["info-per-cost", "info-per-cost-voi", "cheapest", "likeliest"])
+def test_simulated_mean_cost_converges_to_the_exact_expected_cost(name):
+    model = small_model()
+    settings = settings_for(model)
+    results = simulate(model, 300, 2024, [(name, None)], settings, workers=1)
+    summary = summarise(name, results[name])
+    # Reference: exact expected cost by recursion over outcomes with bruteforce probabilities.
+    exact = reference_strategy_cost(model, make_strategy(name), settings)
+    low, high = summary.ci95
+    assert low <= exact <= high, (summary.mean_cost, exact, summary.ci95)
+    assert summary.outcomes["confirmed"] == 300  # top-event verification: every case ends repaired
+
+
+def test_optimal_policy_simulates_to_its_expected_cost():
+    model = small_model()
+    settings = settings_for(model)
+    solution = solve(model, settings)
+    results = simulate(model, 300, 7, [("optimal", solution.policy)], settings, workers=1)
+    low, high = summarise("optimal", results["optimal"]).ci95
+    assert low <= solution.expected_cost <= high
+
+
+def _run_cli(capsys, argv):
+    code = main(argv)
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def test_json_is_byte_identical_for_one_and_two_workers(tmp_path, capsys):
+    path = tmp_path / "fan.xml"
+    save_model(small_model(), path)
+    argv = ["simulate", str(path), "--cases", "16", "--seed", "5", "--json"]
+    code1, out1, err1 = _run_cli(capsys, argv + ["--workers", "1"])
+    code2, out2, _ = _run_cli(capsys, argv + ["--workers", "2"])
+    code3, out3, _ = _run_cli(capsys, argv + ["--workers", "1"])
+    assert code1 == code2 == code3 == 0
+    assert out1 == out2 == out3
+    assert "16/16 cases" in err1  # progress goes to standard error
+    data = json.loads(out1)
+    assert data["cases"] == 16 and data["seed"] == 5
+    assert list(data["strategies"]) == list(STRATEGY_NAMES)
+    for row in data["strategies"].values():
+        assert {"mean_cost", "ci95", "mean_checks", "accuracy", "wrong_repairs"} <= set(row)
+        assert row["ci95"][0] <= row["mean_cost"] <= row["ci95"][1]
+    assert data["optimal_expected_cost"] == pytest.approx(solve(small_model()).expected_cost, abs=1e-12)
+
+
+def test_optimal_skipped_with_a_message_on_a_large_model(capsys):
+    code, out, err = _run_cli(capsys, ["simulate", "rooftop", "--cases", "2", "--seed", "1", "--json",
+                                       "--strategy", "info-per-cost", "--strategy", "optimal", "--workers", "1"])
+    assert code == 0
+    assert "optimal skipped" in err and "root events" in err
+    data = json.loads(out)
+    assert data["optimal_expected_cost"] is None and list(data["strategies"]) == ["info-per-cost"]
+
+
+def test_plot_writes_a_png(tmp_path, capsys):
+    pytest.importorskip("matplotlib")
+    path = tmp_path / "fan.xml"
+    save_model(small_model(), path)
+    png = tmp_path / "costs.png"
+    code, out, _ = _run_cli(capsys, ["simulate", str(path), "--cases", "4", "--plot", str(png), "--workers", "1"])
+    assert code == 0 and "95% interval" in out
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG specification, section 5.2)
+
+
+def test_bad_arguments_exit_2_with_a_message(capsys):
+    code, _, err = _run_cli(capsys, ["simulate", "rooftop", "--cases", "0"])
+    assert code == 2 and "--cases must be at least 1" in err

@@ -1,0 +1,478 @@
+"""Simulated troubleshooting: sampled faults, answers drawn from the model, a strategy through a Session.
+
+Each case is one failed unit. Its true state (which root events have failed)
+is drawn exactly from the model given that the top event occurred; every
+check the strategy asks for is answered by drawing from the check's own
+noise (noisy-OR with leak) given the true state at the epoch the check is
+made; the strategy is run through a :class:`~troubleshoot.session.Session`
+exactly as a technician would drive it.
+
+The protocol of a case (the same for every strategy):
+
+1. The complaint (the top event occurred) opens the session; every symptom
+   is read at once (symptoms cost nothing).
+2. Diagnosis: while the strategy names a check, the check is done and its
+   outcome recorded. The strategy stops by naming none (the tool's rule
+   stops when a suspect is isolated or no check gives ``min_bits`` bits).
+3. Repair: the first repairable entry of the session's repair order (P(failed)
+   / repair cost over the ambiguity group; when the group holds no
+   repairable suspect, over every unrepaired suspect with P > 1e-12) is
+   repaired and the repair verified as the session asks (the top event, or
+   the repair's own verifying check). A failed verification leads to the
+   next repair in the order recomputed from the new findings; no check is
+   made after the first repair. The case ends when a verification passes,
+   when no repairable suspect is left ("unresolved"), or at the step cap.
+
+Common random numbers: every draw of a case comes from generators seeded by
+(seed, case index, stream), so every strategy meets the same true state and,
+for the same check at the same epoch, the same uniform draw, hence the same
+outcome; the results do not depend on how the cases are spread over worker
+processes.
+
+References
+----------
+D. Heckerman, J. S. Breese and K. Rommelse, "Decision-theoretic
+troubleshooting", Communications of the ACM 38(3), 1995 (observe, repair,
+verify; expected cost of repair).
+P. L'Ecuyer, "Efficiency improvement and variance reduction", Winter
+Simulation Conference 1994 (common random numbers).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import sys
+from dataclasses import dataclass
+
+import numpy as np
+
+from troubleshoot.diagnosis import Suspect, ambiguity_group, repair_order
+from troubleshoot.inference import Engine, Finding
+from troubleshoot.model import Model, unlisted_id
+from troubleshoot.errors import NetworkTooLarge
+from troubleshoot.session import (AWAITING_VERIFICATION, CONFIRMED, OBSERVATION, Session, SessionSettings,
+                                  settings_for)
+
+#: A suspect below this posterior is treated as cleared (rounding of an exact zero).
+CLEARED_P = 1e-12
+
+# Streams of a case's random numbers (the third word of the seed sequence).
+STREAM_TRUE_STATE, STREAM_OUTCOMES, STREAM_STRATEGY = 0, 1, 2
+
+#: How a case can end (see :class:`CaseResult`).
+OUTCOMES = ("confirmed", "left-failed", "unresolved", "engine-refused", "capped")
+
+#: z of the two-sided 95% normal interval.
+Z95 = 1.96
+
+
+def case_generator(seed: int, case: int, stream: int) -> np.random.Generator:
+    """The generator of one stream of one case, from (seed, case index, stream) alone."""
+    return np.random.default_rng(np.random.SeedSequence([int(seed), int(case), int(stream)]))
+
+
+def repair_cost(model: Model, root: str) -> float:
+    """Cost of repairing a root (0 when the model lists no repair)."""
+    event = model.event_by_id.get(root)
+    return float(event.repair.cost) if event is not None and event.repair is not None else 0.0
+
+
+def next_repair(model: Model, ranked: tuple[Suspect, ...], group_min_p: float) -> str | None:
+    """The root to repair next: the first repairable entry of the repair order.
+
+    Parameters
+    ----------
+    model : Model
+    ranked : tuple of Suspect
+        The suspects, most probable first (repaired ones marked).
+    group_min_p : float
+        The session's ambiguity-group threshold.
+
+    Returns
+    -------
+    str or None
+        The first repairable suspect of :func:`~troubleshoot.diagnosis.repair_order`
+        over the ambiguity group; when the group holds none, over every
+        unrepaired suspect with P > :data:`CLEARED_P`; None when no
+        repairable suspect is left.
+
+    References
+    ----------
+    Kadane & Simon 1977 (order by probability over cost).
+    """
+    for min_p in (group_min_p, CLEARED_P):
+        group = tuple(s for s in ambiguity_group(ranked, min_p) if s.p > CLEARED_P)
+        for step in repair_order(model, group):
+            if step.cost is not None:
+                return step.id
+    return None
+
+
+def sample_true_state(engine: Engine, rng: np.random.Generator) -> frozenset[str]:
+    """Draw which roots have failed, exactly from P(roots | top event occurred).
+
+    Notes
+    -----
+    Sequential (chain-rule) sampling: root i is drawn from
+    P(F_i | top, F_1..F_(i-1)), one propagation each, so the draw is exact
+    however rare the top event is (rejection from the prior would need
+    1 / P(top) tries). One uniform is drawn per root whatever happens, so
+    the stream stays aligned.
+
+    References
+    ----------
+    M. Henrion, "Propagating uncertainty in Bayesian networks by
+    probabilistic logic sampling", UAI 1988 (sampling a network); the chain
+    rule of probability.
+    """
+    model = engine.model
+    findings = [Finding(model.top, 1, 0)]
+    posterior = engine.propagate(findings)
+    failed = []
+    for root in model.hypotheses:
+        p = posterior.p_failed(root, 0)
+        u = rng.random()
+        value = int(u < p)
+        if value:
+            failed.append(root)
+        if 0.0 < p < 1.0:
+            findings.append(Finding(root, value, 0))
+            posterior = engine.propagate(findings)
+    return frozenset(failed)
+
+
+def true_values(model: Model, failed: frozenset[str], repaired: frozenset[str]) -> dict[str, bool]:
+    """Whether each root and gate is failed in the true state, with the repaired roots working."""
+    value: dict[str, bool] = {r: (r in failed and r not in repaired) for r in model.hypotheses}
+
+    def of(node: str) -> bool:
+        if node in value:
+            return value[node]
+        gate = model.gate_by_id[node]
+        ins = [of(x) for x in gate.inputs]
+        if gate.kind == "and":
+            v = all(ins)
+        elif gate.kind == "or":
+            v = any(ins) or (gate.unlisted is not None and of(unlisted_id(gate.id)))
+        elif gate.kind == "atleast":
+            v = sum(ins) >= gate.k
+        elif gate.kind == "not":
+            v = not ins[0]
+        elif gate.kind == "inhibit":
+            v = ins[0] and of(gate.condition)
+        else:
+            raise ValueError(gate.kind)
+        value[node] = v
+        return v
+
+    for g in model.gates:
+        of(g.id)
+    return value
+
+
+class Equipment:
+    """The unit under test in one case: its true state and the case's outcome draws.
+
+    Parameters
+    ----------
+    model : Model
+    failed : frozenset of str
+        The roots truly failed.
+    uniforms : numpy.ndarray
+        Shape (epochs, checks): the uniform draw for check j done at epoch k.
+    """
+
+    def __init__(self, model: Model, failed: frozenset[str], uniforms: np.ndarray):
+        self.model = model
+        self.failed = failed
+        self.uniforms = uniforms
+        self._column = {c.id: j for j, c in enumerate(model.checks + model.symptoms)}
+        self._values: dict[frozenset, dict[str, bool]] = {}
+
+    def values(self, repaired: tuple[str, ...]) -> dict[str, bool]:
+        key = frozenset(repaired)
+        if key not in self._values:
+            self._values[key] = true_values(self.model, self.failed, key)
+        return self._values[key]
+
+    def p_abnormal(self, check_id: str, repaired: tuple[str, ...]) -> float:
+        """P(abnormal) of a check given the true state: noisy-OR with leak (Pearl 1988)."""
+        check = self.model.check_by_id[check_id]
+        values = self.values(repaired)
+        p_normal = 1.0 - check.false_alarm
+        for cause in check.causes:
+            if values[cause.target]:
+                p_normal *= 1.0 - cause.detection
+        return 1.0 - p_normal
+
+    def answer(self, check_id: str, repaired: tuple[str, ...]) -> int:
+        """The outcome (0 normal, 1 abnormal) of a check done after ``repaired``."""
+        u = self.uniforms[len(repaired), self._column[check_id]]
+        return int(u < self.p_abnormal(check_id, repaired))
+
+    def top_fails(self, repaired: tuple[str, ...]) -> bool:
+        return bool(self.values(repaired)[self.model.top])
+
+
+def draw_case(engine: Engine, seed: int, case: int) -> Equipment:
+    """The true state and outcome draws of one case (from (seed, case) only)."""
+    model = engine.model
+    failed = sample_true_state(engine, case_generator(seed, case, STREAM_TRUE_STATE))
+    n_checks = len(model.checks) + len(model.symptoms)
+    uniforms = case_generator(seed, case, STREAM_OUTCOMES).random((len(model.hypotheses) + 1, max(n_checks, 1)))
+    return Equipment(model, failed, uniforms)
+
+
+@dataclass(frozen=True)
+class CaseResult:
+    """What one strategy did on one case.
+
+    Attributes
+    ----------
+    cost : float
+        Checks, repairs and verifications, in the model's cost unit (the session's own count).
+    checks : int
+        Checks done (symptoms, read at the start for free, not counted).
+    repairs : tuple of str
+        In the order made.
+    first_repair_right : bool
+        The first repair was of a root truly failed.
+    wrong_repairs : int
+        Repairs of roots that had not failed.
+    outcome : str
+        ``confirmed`` (the unit works after the last repair), ``left-failed``
+        (a verification passed but the top event still occurs: possible when
+        a repair is verified by a noisy check), ``unresolved`` (no repairable
+        suspect left while the unit still fails), ``engine-refused`` (the
+        engine could not compile the network after a repair within its memory
+        budget) or ``capped`` (step cap hit).
+    """
+
+    cost: float
+    checks: int
+    repairs: tuple[str, ...]
+    first_repair_right: bool
+    wrong_repairs: int
+    outcome: str
+
+
+def max_steps_for(model: Model) -> int:
+    """Step cap of a case: every check once, every root repaired and verified, and a margin."""
+    return len(model.checks) + len(model.symptoms) + 2 * len(model.hypotheses) + 10
+
+
+def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Generator,
+             settings: SessionSettings, max_steps: int | None = None) -> CaseResult:
+    """Drive a Session with one strategy on one unit until the repair is confirmed.
+
+    Parameters
+    ----------
+    engine : Engine
+        Compiled once per model and shared by every session.
+    strategy : Strategy
+    equipment : Equipment
+        The case's true state and outcome draws.
+    rng : numpy.random.Generator
+        The case's strategy stream (only ``random`` uses it).
+    settings : SessionSettings
+    max_steps : int, optional
+        Default :func:`max_steps_for`.
+
+    Returns
+    -------
+    CaseResult
+    """
+    model = engine.model
+    max_steps = max_steps_for(model) if max_steps is None else max_steps
+    session = Session(model, settings, engine)
+    for symptom in model.symptoms:
+        session.record_finding(symptom.id, equipment.answer(symptom.id, ()))
+    symptom_ids = {s.id for s in model.symptoms}
+    outcome = "capped"
+    try:
+        outcome = _drive(session, strategy, equipment, rng, settings, max_steps)
+    except NetworkTooLarge:
+        # A repair whose epoch copy of the gate logic would not fit the memory
+        # budget: the session refuses it, and so would a technician's.
+        outcome = "engine-refused"
+    checks = sum(1 for o in session.view.record.observations
+                 if o.kind == OBSERVATION and o.finding.target not in symptom_ids)
+    repairs = session.repairs
+    return CaseResult(
+        cost=float(session.view.cost_spent),
+        checks=checks,
+        repairs=repairs,
+        first_repair_right=bool(repairs) and repairs[0] in equipment.failed,
+        wrong_repairs=sum(1 for r in repairs if r not in equipment.failed),
+        outcome=outcome,
+    )
+
+
+def _drive(session: Session, strategy, equipment: Equipment, rng, settings: SessionSettings,
+           max_steps: int) -> str:
+    """The steps of one case (see the module notes); returns how the case ended."""
+    model = session.model
+    diagnosing = True
+    for _ in range(max_steps):
+        view = session.view
+        status = view.status
+        if status == CONFIRMED:
+            return "left-failed" if equipment.top_fails(session.repairs) else "confirmed"
+        if status == AWAITING_VERIFICATION:
+            request = view.verification_request
+            if request.target == model.top:
+                result = int(equipment.top_fails(session.repairs))
+            else:
+                result = equipment.answer(request.target, session.repairs)
+            session.record_verification(result)
+            continue
+        if diagnosing and session.epoch == 0:
+            choice = strategy.choose(view, rng)
+            if choice is not None:
+                session.record_finding(choice, equipment.answer(choice, ()))
+                continue
+            diagnosing = False
+        root = next_repair(model, view.suspects, settings.group_min_p)
+        if root is None:
+            return "unresolved"
+        session.record_repair(root)
+    return "capped"
+
+
+# ---------------------------------------------------------------- many cases
+
+
+@dataclass(frozen=True)
+class StrategySummary:
+    """Statistics of one strategy over the cases.
+
+    Attributes
+    ----------
+    mean_cost, sd_cost : float
+        In the model's cost unit (sd with n - 1).
+    ci95 : tuple of float
+        mean +- 1.96 sd / sqrt(n): the normal approximation to the 95%
+        interval of the mean.
+    mean_checks : float
+        Checks per case.
+    accuracy : float
+        Share of cases whose first repair was of a truly failed root.
+    wrong_repairs : float
+        Wrong repairs (of a root that had not failed) per case.
+    outcomes : dict
+        Count of cases by outcome (:data:`OUTCOMES`).
+    costs : tuple of float
+        Every case's cost, in case order (for the plot).
+    """
+
+    name: str
+    cases: int
+    mean_cost: float
+    sd_cost: float
+    ci95: tuple[float, float]
+    mean_checks: float
+    accuracy: float
+    wrong_repairs: float
+    outcomes: dict
+    costs: tuple[float, ...]
+
+
+def summarise(name: str, results: list[CaseResult]) -> StrategySummary:
+    """Mean cost with its 95% interval (normal approximation), checks, accuracy, wrong repairs."""
+    costs = np.array([r.cost for r in results], dtype=float)
+    n = len(costs)
+    mean = float(costs.mean()) if n else math.nan
+    sd = float(costs.std(ddof=1)) if n > 1 else 0.0
+    half = Z95 * sd / math.sqrt(n) if n else math.nan
+    outcomes = {k: 0 for k in OUTCOMES}
+    for r in results:
+        outcomes[r.outcome] += 1
+    return StrategySummary(
+        name=name, cases=n, mean_cost=mean, sd_cost=sd, ci95=(mean - half, mean + half),
+        mean_checks=float(np.mean([r.checks for r in results])) if n else math.nan,
+        accuracy=float(np.mean([r.first_repair_right for r in results])) if n else math.nan,
+        wrong_repairs=float(np.mean([r.wrong_repairs for r in results])) if n else math.nan,
+        outcomes=outcomes, costs=tuple(float(c) for c in costs),
+    )
+
+
+# Worker state: one engine per process, compiled once.
+_WORKER: dict = {}
+
+
+def _init_worker(model: Model, strategy_specs, seed: int, settings: SessionSettings) -> None:
+    from troubleshoot.strategies import make_strategy
+
+    _WORKER["engine"] = Engine(model)
+    _WORKER["strategies"] = [make_strategy(name, policy) for name, policy in strategy_specs]
+    _WORKER["seed"] = seed
+    _WORKER["settings"] = settings
+
+
+def _run_one_case(case: int) -> list[CaseResult]:
+    engine = _WORKER["engine"]
+    seed = _WORKER["seed"]
+    equipment = draw_case(engine, seed, case)
+    out = []
+    for strategy in _WORKER["strategies"]:
+        # Each strategy gets its own copy of the case's strategy stream, so
+        # adding a strategy never changes another one's draws.
+        rng = case_generator(seed, case, STREAM_STRATEGY)
+        out.append(run_case(engine, strategy, equipment, rng, _WORKER["settings"]))
+    return out
+
+
+def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str, dict | None]],
+             settings: SessionSettings | None = None, workers: int = 1, progress=None) -> dict[str, list[CaseResult]]:
+    """Run every strategy on the same ``cases`` sampled units.
+
+    Parameters
+    ----------
+    model : Model
+    cases : int
+    seed : int
+        Non-negative; case i draws only from (seed, i).
+    strategy_specs : list of (name, policy or None)
+        ``policy`` is the table of the ``optimal`` strategy, None for the others.
+    settings : SessionSettings, optional
+        Default: :func:`~troubleshoot.session.settings_for` the model.
+    workers : int
+        Processes; 1 runs in this process. The results are the same for any count.
+    progress : callable, optional
+        Called with (cases done, cases) now and then.
+
+    Returns
+    -------
+    dict
+        Strategy name -> list of CaseResult in case order.
+    """
+    settings = settings or settings_for(model)
+    specs = list(strategy_specs)
+    per_case: list[list[CaseResult]] = []
+    step = max(1, cases // 20)
+    if workers <= 1 or cases < 2:
+        _init_worker(model, specs, seed, settings)
+        for case in range(cases):
+            per_case.append(_run_one_case(case))
+            if progress and ((case + 1) % step == 0 or case + 1 == cases):
+                progress(case + 1, cases)
+    else:
+        import multiprocessing
+
+        with multiprocessing.get_context("spawn" if sys.platform == "win32" else "fork").Pool(
+                workers, initializer=_init_worker, initargs=(model, specs, seed, settings)) as pool:
+            for case, result in enumerate(pool.imap(_run_one_case, range(cases),
+                                                    chunksize=max(1, min(16, cases // (workers * 8) or 1)))):
+                per_case.append(result)
+                if progress and ((case + 1) % step == 0 or case + 1 == cases):
+                    progress(case + 1, cases)
+    return {name: [row[i] for row in per_case] for i, (name, _) in enumerate(specs)}
+
+
+def default_workers() -> int:
+    """The cores this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not every platform has it
+        return max(1, os.cpu_count() or 1)
