@@ -345,3 +345,30 @@ def test_aralia_top_event_probability(file_name):
     model, _ = read_mef(str(folder / file_name))
     p = Engine(model).propagate().p_failed(model.top)
     assert f"{p:.5E}" == ARALIA_P_TOP[file_name]
+
+
+def test_many_repairs_with_the_unit_still_failing_stay_exact_and_small():
+    # Six repairs, the unit still failing after each, then working; checks
+    # before and between repairs. Reference: brute force (tests/bruteforce.py).
+    model = random_model(21, n_events=9, n_gates=6, n_checks=5)
+    model = Model(name=model.name, top=model.top, basic_events=model.basic_events, checks=model.checks,
+                  gates=tuple(g if g.kind != "not" else Gate(g.id, g.label, "or", g.inputs) for g in model.gates))
+    engine = Engine(model)
+    rng = random.Random(3)
+    repairs: tuple[str, ...] = ()
+    findings = [Finding(model.top, 1, 0)]
+    for event in [e.id for e in model.basic_events][:6]:
+        findings.append(Finding(rng.choice(model.checks).id, rng.randint(0, 1), len(repairs)))
+        trial_repairs = repairs + (event,)
+        trial = findings + [Finding(model.top, 1, len(trial_repairs))]
+        if brute_posterior(model, trial, trial_repairs)["log_p"] == -math.inf:
+            break
+        repairs, findings = trial_repairs, trial
+    ref = brute_posterior(model, findings, repairs)
+    if ref["log_p"] == -math.inf:
+        pytest.skip("drawn findings are impossible")  # not expected for this seed
+    post = engine.propagate(findings, repairs)
+    assert post.log_p == pytest.approx(ref["log_p"], abs=TOL)
+    for node, p in ref["marginals"].items():
+        assert post.marginals[node] == pytest.approx(p, abs=TOL), node
+    assert post.tree.width <= 2 * engine.tree.width + 2

@@ -111,8 +111,22 @@ def test_verify_check_named_by_the_repair():
     s.record_repair("impeller")
     assert s.state.verification.target == "flow"
     s.record_verification("flow normal")
-    assert s.status == CONFIRMED
     assert s.findings[-1] == Finding("flow", 0, 1)
+    # Only a working unit confirms a repair (common practice): the top event is asked next.
+    assert s.status == AWAITING_VERIFICATION
+    assert s.state.verification.target == s.model.top
+    s.record_verification(0)
+    assert s.status == CONFIRMED
+    assert s.findings[-1] == Finding(s.model.top, 0, 1)
+
+
+def test_verify_check_still_abnormal_sends_the_diagnosis_on():
+    s = Session(pump_model())
+    s.record_finding("flow", "flow low")
+    s.record_repair("impeller")
+    s.record_verification("flow low")
+    assert s.status not in (CONFIRMED, AWAITING_VERIFICATION)
+    assert s.state.verification is None
 
 
 def test_ambiguity_group_and_repair_order_when_no_check_is_worth_doing():
@@ -245,4 +259,5 @@ def test_doing_the_verify_check_records_the_verification():
     s = Session(pump_model())
     s.record_repair("impeller")
     s.record_finding("flow", "flow normal")  # the impeller repair's verify check
-    assert s.status == CONFIRMED and s.actions[-1] == {"action": "verify", "outcome": "flow normal"}
+    assert s.actions[-1] == {"action": "verify", "outcome": "flow normal"}
+    assert s.status == AWAITING_VERIFICATION and s.state.verification.target == s.model.top

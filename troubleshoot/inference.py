@@ -67,22 +67,44 @@ class Engine:
         Bytes the join tree's tables may take (see NetworkTooLarge).
     """
 
+    #: Compiled trees kept (a session moves forward; undo goes back one step).
+    cache_size = 6
+
     def __init__(self, model: Model, memory_budget: int = DEFAULT_MEMORY_BUDGET):
         self.model = model
         self.memory_budget = memory_budget
-        self._trees: dict[tuple[str, ...], tuple[Network, JoinTree]] = {}
+        self._trees: dict = {}
+        self._networks: dict = {}
+        self._coherent = all(g.kind != "not" for g in model.gates)
         self.compiled(())  # compile now, so a model too large is refused at once
 
-    def compiled(self, repairs: tuple[str, ...]) -> tuple[Network, JoinTree]:
-        """The network and join tree for a sequence of repairs (compiled once, then cached)."""
+    def compiled(self, repairs: tuple[str, ...], past_targets=frozenset()) -> tuple[Network, JoinTree]:
+        """The network and join tree for a sequence of repairs, compiled once and cached.
+
+        ``past_targets`` are the (target, epoch) pairs of findings made before
+        the last repair: only what they read of the old logic is carried, so
+        findings made now never recompile, and the tree stays as small as the
+        evidence allows. The cache keeps the most recent few trees.
+        """
         repairs = tuple(repairs)
-        if repairs not in self._trees:
-            for r in repairs:
-                if r not in self.model.hypotheses:
-                    raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
-            net = build_network(self.model, repairs, with_checks=False)
-            self._trees[repairs] = (net, JoinTree(net, self.memory_budget))
-        return self._trees[repairs]
+        key = (repairs, frozenset(past_targets))
+        if key in self._trees:
+            self._trees[key] = self._trees.pop(key)  # most recently used last
+            return self._trees[key]
+        for r in repairs:
+            if r not in self.model.hypotheses:
+                raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
+        if repairs not in self._networks:
+            self._networks[repairs] = build_network(self.model, repairs, with_checks=False)
+        net = self._networks[repairs]
+        variables, families = net.relevant(key[1])
+        tree = JoinTree(net, self.memory_budget, families=families, variables=variables)
+        self._trees[key] = (net, tree)
+        while len(self._trees) > self.cache_size:
+            self._trees.pop(next(iter(self._trees)))
+        while len(self._networks) > self.cache_size:
+            self._networks.pop(next(iter(self._networks)))
+        return net, tree
 
     @property
     def tree(self) -> JoinTree:
@@ -111,8 +133,36 @@ class Engine:
             return tree.evidence_on_variables((node,), lik)
         raise SessionError(f"unknown check, symptom or event {finding.target!r} in model {self.model.name!r}")
 
+    def implied_dropped(self, findings) -> list[Finding]:
+        """The findings without exact observations that other findings already imply.
+
+        In a coherent tree (no NOT gate) a gate or event that still fails
+        after more repairs failed after fewer too, and one that was ok stays
+        ok after more repairs. So "top failed" at epoch j is implied by "top
+        failed" at a later epoch, and "ok" at a later epoch by "ok" at an
+        earlier one. An implied finding has likelihood one wherever the
+        others hold, so dropping it changes neither the posterior nor
+        P(findings); it keeps the old epochs' logic out of the join tree.
+        """
+        if not self._coherent:
+            return list(findings)
+        exact = [f for f in findings if f.target not in self.model.check_by_id]
+        kept = []
+        for f in findings:
+            if f.target not in self.model.check_by_id:
+                if f.outcome == 1 and any(g.target == f.target and g.outcome == 1 and g.epoch > f.epoch
+                                          for g in exact):
+                    continue
+                if f.outcome == 0 and any(g.target == f.target and g.outcome == 0 and g.epoch < f.epoch
+                                          for g in exact):
+                    continue
+            kept.append(f)
+        return kept
+
     def _run(self, findings, repairs):
-        net, tree = self.compiled(repairs)
+        findings = self.implied_dropped(findings)
+        now = len(repairs)
+        net, tree = self.compiled(repairs, frozenset((f.target, f.epoch) for f in findings if f.epoch < now))
         evidence, log_constant = [], 0.0
         for f in findings:
             ev = self._evidence(net, tree, f)
@@ -196,6 +246,9 @@ class Posterior:
         node = self.network.node_for(node_id, epoch)
         if isinstance(node, bool):
             return float(node)
+        if node not in self.tree.index:
+            raise SessionError(f"{node_id!r} as it was after {epoch} repair(s) is not carried: no finding "
+                               "of that time reads it")
         return float(self._node_marginals[self.tree.index[node]])
 
     def root_marginals(self) -> np.ndarray:

@@ -127,10 +127,13 @@ class JoinTree:
     """
 
     def __init__(self, network: Network, memory_budget: int = DEFAULT_MEMORY_BUDGET,
-                 merge_entries: int = MERGE_ENTRIES):
+                 merge_entries: int = MERGE_ENTRIES, families=None, variables=None):
         self.network = network
         graph = network.graph
-        self.variables = network.inference_nodes()
+        # Barren parts may be left out: ``variables`` (closed under parents)
+        # and the check ``families`` whose cause sets must share a clique.
+        self.variables = network.inference_nodes() if variables is None else list(variables)
+        families = network.families if families is None else families
         self.index = {v: i for i, v in enumerate(self.variables)}
         n = len(self.variables)
 
@@ -138,7 +141,7 @@ class JoinTree:
         groups: list[tuple[int, ...]] = []
         for v in self.variables:
             groups.append(tuple(self.index[x] for x in (v, *graph.nodes[v]["parents"])))
-        family_groups = {key: tuple(self.index[x] for x in fam.nodes) for key, fam in network.families.items()}
+        family_groups = {key: tuple(self.index[x] for x in fam.nodes) for key, fam in families.items()}
         groups.extend(g for g in family_groups.values() if g)
         adjacency: dict[int, set[int]] = {i: set() for i in range(n)}
         for grp in groups:

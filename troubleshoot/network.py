@@ -127,6 +127,36 @@ class Network:
         """Nodes the join tree carries: everything but check nodes (absorbed as findings)."""
         return [n for n, r in self.graph.nodes(data="role") if r not in (CHECK, CHECK_AUX)]
 
+    def relevant(self, past_targets) -> tuple[list[str], dict]:
+        """The nodes and check families a join tree needs now; the rest is barren.
+
+        Kept: every root, every gate at the current epoch, every check's
+        family at the current epoch (to rank it), and for earlier epochs only
+        what ``past_targets`` ((target id, epoch) pairs of findings made
+        then) reads, each with all its ancestors. Leaving out an unobserved,
+        unqueried part sums it to one, so nothing changes but the size.
+        """
+        model, now = self.model, self.epochs
+        families = {key: fam for key, fam in self.families.items() if key[1] == now}
+        wanted: set[str] = set(model.hypotheses)
+        for gate in model.gates:
+            node = self.gate_node.get((gate.id, now))
+            if isinstance(node, str):
+                wanted.add(node)
+        for target, epoch in past_targets:
+            if (target, epoch) in self.families:
+                families[(target, epoch)] = self.families[(target, epoch)]
+            else:
+                node = self.gate_node.get((target, epoch))
+                if isinstance(node, str):
+                    wanted.add(node)
+        for fam in families.values():
+            wanted.update(fam.nodes)
+        closure = set(wanted)
+        for node in wanted:
+            closure.update(nx.ancestors(self.graph, node))
+        return [n for n in self.inference_nodes() if n in closure], families
+
 
 def _deterministic_table(kind: str, arity: int) -> np.ndarray:
     """P(node | parents) for a deterministic function, shape (2,)*arity + (2,)."""

@@ -50,7 +50,7 @@ import numpy as np
 from troubleshoot.diagnosis import Suspect, is_unlisted
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.model import Model, unlisted_id
-from troubleshoot.session import Session, SessionSettings, settings_for, verification_for
+from troubleshoot.session import Session, SessionSettings, settings_for, top_verification, verification_for
 from troubleshoot.simulation import CLEARED_P, next_repair, repair_cost
 
 #: Largest number of root events the enumeration takes (2^16 joint states).
@@ -195,38 +195,44 @@ def repair_phase_cost(enumeration: Enumeration, weights: np.ndarray, settings: S
 
     Notes
     -----
-    The phase is a chain: only a failed verification leads on, so the
-    expectation is one pass, each step conditioning the joint on "the
-    verification failed" (the top event after the repairs so far, or the
-    repair's verifying check through its noise).
+    Each repair is verified as the session asks: the top event, or first
+    the repair's own check (through its noise) and, when that reads normal,
+    the top event. Every branch that does not end in a working unit leads to
+    the next repair, conditioned on what was seen; the recursion sums over
+    the branches exactly (a branch of probability at most CLEARED_P is
+    dropped).
 
     References
     ----------
     Heckerman, Breese & Rommelse 1995 (expected cost of a repair sequence).
     """
     model = enumeration.model
-    w = weights / weights.sum()
-    reach = 1.0
-    repaired: tuple[str, ...] = ()
-    total = 0.0
-    for _ in range(len(model.hypotheses)):
+    top_cost = top_verification(model).cost
+    limit = len(model.hypotheses)
+
+    def phase(w: np.ndarray, repaired: tuple[str, ...]) -> float:
+        """Expected cost from here, times the probability of getting here (the mass of w)."""
+        mass = float(w.sum())
+        if mass <= CLEARED_P or len(repaired) >= limit:
+            return 0.0
         root = next_repair(model, enumeration.suspects(w, repaired), settings.group_min_p)
         if root is None:
-            break
+            return 0.0
         repaired = repaired + (root,)
         request = verification_for(model, root)
-        total += reach * (repair_cost(model, root) + request.cost)
+        total = mass * (repair_cost(model, root) + request.cost)
+        top_fails = enumeration.values(repaired)[model.top].astype(float)
         if request.target == model.top:
-            p_fail = enumeration.values(repaired)[model.top].astype(float)
-        else:
-            p_fail = enumeration.p_abnormal(request.target, repaired)
-        w = w * p_fail
-        still = float(w.sum())
-        if still <= CLEARED_P:
-            break
-        reach *= still
-        w = w / still
-    return total
+            return total + phase(w * top_fails, repaired)
+        # The repair's own check first: still abnormal, the diagnosis goes on;
+        # normal, the unit itself is checked, and only a working unit ends it.
+        p_abn = enumeration.p_abnormal(request.target, repaired)
+        normal = w * (1.0 - p_abn)
+        total += phase(w * p_abn, repaired)
+        total += float(normal.sum()) * top_cost
+        return total + phase(normal * top_fails, repaired)
+
+    return phase(weights / weights.sum(), ())
 
 
 @dataclass(frozen=True)

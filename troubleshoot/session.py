@@ -273,18 +273,29 @@ class SessionView:
 
     @cached_property
     def verification_request(self) -> VerificationRequest | None:
+        """What to check now to verify the last repair, or None.
+
+        First the repair's own check, if the model names one; when that reads
+        normal, the unit itself (the top event), because only a working unit
+        confirms the repair. A verifying check that still reads abnormal, or
+        a unit that still fails, sends the diagnosis on.
+        """
         rec = self.record
         if not rec.repairs:
             return None
-        if any(o.kind == VERIFICATION and o.finding.epoch == rec.epoch for o in rec.observations):
+        done = [o for o in rec.observations if o.kind == VERIFICATION and o.finding.epoch == rec.epoch]
+        if not done:
+            return verification_for(self.model, rec.repairs[-1])
+        if any(o.finding.target == self.model.top for o in done) or done[-1].finding.outcome == 1:
             return None
-        return verification_for(self.model, rec.repairs[-1])
+        return top_verification(self.model)
 
     @cached_property
     def confirmed(self) -> bool:
         rec = self.record
-        return any(o.kind == VERIFICATION and o.finding.epoch == rec.epoch and o.finding.outcome == 0
-                   for o in rec.observations) and bool(rec.repairs)
+        return bool(rec.repairs) and any(
+            o.kind == VERIFICATION and o.finding.epoch == rec.epoch and o.finding.target == self.model.top
+            and o.finding.outcome == 0 for o in rec.observations)
 
     @cached_property
     def candidates(self) -> tuple[str, ...]:
@@ -342,7 +353,7 @@ class SessionView:
             if o.kind == OBSERVATION:
                 total += model.check_by_id[o.finding.target].cost
             elif o.kind == VERIFICATION:
-                total += verification_for(model, self.record.repairs[o.finding.epoch - 1]).cost
+                total += verification_of(model, o.finding.target, self.record.repairs[o.finding.epoch - 1]).cost
         for r in self.record.repairs:
             event = model.event_by_id.get(r)
             if event is not None and event.repair is not None:
@@ -358,12 +369,12 @@ class SessionView:
                 check = model.check_by_id[f.target]
                 outcome, cost = check.outcomes[f.outcome], check.cost
             elif o.kind == VERIFICATION:
-                request = verification_for(model, self.record.repairs[f.epoch - 1])
+                request = verification_of(model, f.target, self.record.repairs[f.epoch - 1])
                 outcome, cost = request.outcomes[f.outcome], request.cost
             else:
                 outcome, cost = ("ok", "failed")[f.outcome], 0.0
             if o.kind == VERIFICATION and f.target in model.check_by_id:
-                cost = verification_for(model, self.record.repairs[f.epoch - 1]).cost
+                cost = verification_of(model, f.target, self.record.repairs[f.epoch - 1]).cost
             out.append(FindingView(f.target, model.label_of(f.target), outcome, f.outcome, f.epoch, o.kind,
                                    float(cost)))
         return tuple(out)
@@ -409,18 +420,28 @@ class SessionView:
 
 
 def verification_for(model: Model, repaired: str) -> VerificationRequest:
-    """How a repair of ``repaired`` is confirmed: its ``verify`` check, else the top event."""
+    """The first check after a repair of ``repaired``: its ``verify`` check, else the top event."""
     event = model.event_by_id.get(repaired)
     verify = event.repair.verify if event is not None and event.repair is not None else None
     if verify is not None and verify in model.check_by_id:
         check = model.check_by_id[verify]
         return VerificationRequest(check.id, check.label, float(check.cost), tuple(check.outcomes),
                                    check.instructions, check.caution)
+    return top_verification(model)
+
+
+def top_verification(model: Model) -> VerificationRequest:
+    """Checking the unit itself after a repair ("does it work now?"), which alone confirms it."""
     v = model.verification
     if v is None:
         return VerificationRequest(model.top, f"does the unit work now? ({model.label_of(model.top)})",
                                    0.0, ("works", "still fails"))
     return VerificationRequest(model.top, v.label, float(v.cost), tuple(v.outcomes), v.instructions)
+
+
+def verification_of(model: Model, target: str, repaired: str) -> VerificationRequest:
+    """The verification a recorded verification finding on ``target`` answered."""
+    return top_verification(model) if target == model.top else verification_for(model, repaired)
 
 
 def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:

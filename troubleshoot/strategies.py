@@ -112,7 +112,7 @@ def expected_repair_cost(view_or_posterior) -> float:
     Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995, eq. for ECR.
     """
     from troubleshoot.diagnosis import repair_order, suspects
-    from troubleshoot.session import verification_for
+    from troubleshoot.session import top_verification, verification_for
 
     posterior = getattr(view_or_posterior, "posterior", view_or_posterior)
     model = posterior.model
@@ -125,7 +125,9 @@ def expected_repair_cost(view_or_posterior) -> float:
     for step in repair_order(model, tuple(ranked)):
         if step.cost is None:
             continue
-        cost += remaining * (step.cost + verification_for(model, step.id).cost)
+        verify = verification_for(model, step.id)
+        extra = top_verification(model).cost if verify.target != model.top else 0.0
+        cost += remaining * (step.cost + verify.cost + extra)
         remaining -= step.p / total_p
         if remaining <= 1e-12:
             break

@@ -9,7 +9,6 @@ to the exact optimal policy.
 
 from __future__ import annotations
 
-import argparse
 import json
 import math
 import sys
