@@ -57,7 +57,7 @@ def test_case_draws_depend_on_seed_and_case_only():
     assert [a.answer(c.id, ()) for c in model.checks] == [b.answer(c.id, ()) for c in model.checks]
 
 
-@pytest.mark.parametrize("name", ["info-per-cost", "info-per-cost-voi", "cheapest", "likeliest"])
+@pytest.mark.parametrize("name", ["info-per-cost", "info-per-cost-bits", "cheapest", "likeliest"])
 def test_simulated_mean_cost_converges_to_the_exact_expected_cost(name):
     model = small_model()
     settings = settings_for(model)

@@ -328,3 +328,107 @@ def repair_order(model: Model, group: tuple[Suspect, ...]) -> tuple[RepairStep, 
     repairable.sort(key=lambda r: (-r.ratio, -r.p, r.id))
     other.sort(key=lambda r: (-r.p, r.id))
     return tuple(repairable + other)
+
+
+# ---------------------------------------------------------------- verification and value
+
+@dataclass(frozen=True)
+class VerificationRequest:
+    """What to check after the last repair to confirm it."""
+
+    target: str  # the repair's verify check, or the top event
+    label: str
+    cost: float
+    outcomes: tuple[str, str]  # (works / normal, still fails / abnormal)
+    instructions: str = ""
+    caution: str | None = None
+
+
+
+def verification_for(model: Model, repaired: str) -> VerificationRequest:
+    """The first check after a repair of ``repaired``: its ``verify`` check, else the top event."""
+    event = model.event_by_id.get(repaired)
+    verify = event.repair.verify if event is not None and event.repair is not None else None
+    if verify is not None and verify in model.check_by_id:
+        check = model.check_by_id[verify]
+        return VerificationRequest(check.id, check.label, float(check.cost), tuple(check.outcomes),
+                                   check.instructions, check.caution)
+    return top_verification(model)
+
+
+def top_verification(model: Model) -> VerificationRequest:
+    """Checking the unit itself after a repair ("does it work now?"), which alone confirms it."""
+    v = model.verification
+    if v is None:
+        return VerificationRequest(model.top, f"does the unit work now? ({model.label_of(model.top)})",
+                                   0.0, ("works", "still fails"))
+    return VerificationRequest(model.top, v.label, float(v.cost), tuple(v.outcomes), v.instructions)
+
+
+def verification_of(model: Model, target: str, repaired: str) -> VerificationRequest:
+    """The verification a recorded verification finding on ``target`` answered."""
+    return top_verification(model) if target == model.top else verification_for(model, repaired)
+
+
+def expected_repair_cost(posterior: Posterior) -> float:
+    """Expected cost of repairing now, in the repair order, each repair verified, one fault assumed.
+
+    Notes
+    -----
+    With the suspects not yet repaired renormalised to a single fault, p_i,
+    and the repairs in order of p_i / c_i, the expected cost is
+    sum_j (c_j + v_j) * (1 - sum_(i<j) p_i): repair j (cost c_j, its
+    verification v_j: the repair's own check, if any, and the unit itself)
+    is reached only if none of the earlier ones was the fault. Suspects with
+    no repair (unlisted causes) are passed over.
+
+    References
+    ----------
+    Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995 (expected cost of repair).
+    """
+    model = posterior.model
+    ranked = tuple(s for s in suspects(posterior) if not s.repaired and s.p > 1e-12)
+    total_p = sum(s.p for s in ranked)
+    if total_p <= 0.0:
+        return 0.0
+    top_cost = top_verification(model).cost
+    remaining, cost = 1.0, 0.0
+    for step in repair_order(model, ranked):
+        if step.cost is None:
+            continue
+        verify = verification_for(model, step.id)
+        cost += remaining * (step.cost + verify.cost + (top_cost if verify.target != model.top else 0.0))
+        remaining -= step.p / total_p
+        if remaining <= 1e-12:
+            break
+    return cost
+
+
+def check_pays(engine: Engine, posterior: Posterior, check_id: str, cost: float,
+               p_outcomes: tuple[float, float], repair_cost_now: float | None = None) -> bool:
+    """Whether doing a check now is expected to cost less than repairing at once.
+
+    True when cost + sum_o P(o | e) ECR(e, o) < ECR(e), ECR being
+    :func:`expected_repair_cost` (a free informative check always pays).
+    Two propagations, one per outcome.
+
+    References
+    ----------
+    Heckerman, Breese & Rommelse 1995 (myopic value of information: observe, or repair now).
+    """
+    if cost <= 0.0:
+        return True
+    now = expected_repair_cost(posterior) if repair_cost_now is None else repair_cost_now
+    after = cost
+    findings = tuple(posterior.findings)
+    for outcome, p in enumerate(p_outcomes):
+        if p <= 0.0:
+            continue
+        try:
+            later = engine.propagate(findings + (Finding(check_id, outcome, posterior.epoch),), posterior.repairs)
+        except ImpossibleFindings:
+            continue
+        after += p * expected_repair_cost(later)
+        if after >= now:
+            return False
+    return after < now

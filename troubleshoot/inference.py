@@ -69,6 +69,9 @@ class Engine:
 
     #: Compiled trees kept (a session moves forward; undo goes back one step).
     cache_size = 6
+    #: Posteriors kept: a propagation of findings already seen (undo, a note,
+    #: weighing a check's outcomes again) is answered from memory.
+    posterior_cache_size = 16
 
     def __init__(self, model: Model, memory_budget: int = DEFAULT_MEMORY_BUDGET):
         self.model = model
@@ -76,6 +79,9 @@ class Engine:
         self._trees: dict = {}
         self._networks: dict = {}
         self._coherent = all(g.kind != "not" for g in model.gates)
+        self._posteriors: dict = {}
+        #: Propagations actually run (not answered from memory).
+        self.propagations = 0
         self.compiled(())  # compile now, so a model too large is refused at once
 
     def compiled(self, repairs: tuple[str, ...], past_targets=frozenset()) -> tuple[Network, JoinTree]:
@@ -187,12 +193,21 @@ class Engine:
         """
         findings = tuple(findings)
         repairs = tuple(repairs)
+        key = (findings, repairs)
+        if key in self._posteriors:
+            self._posteriors[key] = self._posteriors.pop(key)  # most recently used last
+            return self._posteriors[key]
         try:
             net, tree, calibrated, log_constant = self._run(findings, repairs)
         except ZeroProbability:
             raise ImpossibleFindings([describe_finding(self.model, f, repairs)
                                       for f in self.conflict(findings, repairs)]) from None
-        return Posterior(self.model, net, tree, calibrated, calibrated.log_p + log_constant, findings, repairs)
+        self.propagations += 1
+        post = Posterior(self.model, net, tree, calibrated, calibrated.log_p + log_constant, findings, repairs)
+        self._posteriors[key] = post
+        while len(self._posteriors) > self.posterior_cache_size:
+            self._posteriors.pop(next(iter(self._posteriors)))
+        return post
 
     def conflict(self, findings, repairs=()) -> list[Finding]:
         """A minimal subset of findings with probability zero (deletion filter)."""

@@ -38,7 +38,8 @@ Status, in this order of precedence:
 ``isolated``
     A suspect (not repaired) has P(failed | findings) >= the isolation threshold.
 ``ambiguity``
-    No remaining check gives at least ``min_bits`` bits (or none is left):
+    No remaining check is worth doing (none gives at least ``min_bits`` bits,
+    none of the best few is expected to save more than it costs, or none is left):
     the suspects with P >= ``group_min_p`` form the ambiguity group; repair
     them in :attr:`SessionState.repair_order`.
 ``diagnosing``
@@ -58,6 +59,12 @@ from functools import cached_property
 from typing import Any, Protocol
 
 from troubleshoot.diagnosis import (
+    VerificationRequest,
+    check_pays,
+    expected_repair_cost,
+    top_verification,
+    verification_for,
+    verification_of,
     Explanation,
     RepairStep,
     Suspect,
@@ -84,6 +91,7 @@ STATUSES = (DIAGNOSING, ISOLATED, AMBIGUITY, AWAITING_VERIFICATION, CONFIRMED)
 DEFAULT_MIN_BITS = 0.01
 #: Default: suspects at or above this posterior form the ambiguity group.
 DEFAULT_GROUP_MIN_P = 0.05
+DEFAULT_VALUE_LOOKAHEAD = 3
 
 # Kinds of recorded observations.
 COMPLAINT, OBSERVATION, VERIFICATION = "complaint", "finding", "verification"
@@ -101,11 +109,18 @@ class SessionSettings:
         A check giving fewer bits is not worth doing (bits).
     group_min_p : float
         Suspects at or above this posterior form the ambiguity group.
+    value_lookahead : int
+        How many of the best-scoring checks are weighed against repairing at
+        once (one step ahead, Heckerman, Breese & Rommelse 1995): the first
+        of them expected to cost less than it saves is recommended; when none
+        is, no check is worth doing and the repair order is proposed. 0 turns
+        the comparison off (only ``min_bits`` decides).
     """
 
     isolation_threshold: float = 0.95
     min_bits: float = DEFAULT_MIN_BITS
     group_min_p: float = DEFAULT_GROUP_MIN_P
+    value_lookahead: int = DEFAULT_VALUE_LOOKAHEAD
 
     def validated(self) -> "SessionSettings":
         for name, low_open in (("isolation_threshold", True), ("group_min_p", True)):
@@ -115,17 +130,21 @@ class SessionSettings:
                                    f"not {value!r}")
         if not (isinstance(self.min_bits, (int, float)) and 0.0 <= self.min_bits < math.inf):
             raise SessionError(f"min bits must be a number of bits, 0 or more, not {self.min_bits!r}")
+        if not (isinstance(self.value_lookahead, int) and 0 <= self.value_lookahead <= 50):
+            raise SessionError(f"value lookahead must be a whole number of checks from 0 to 50, "
+                               f"not {self.value_lookahead!r}")
         return replace(self, isolation_threshold=float(self.isolation_threshold),
                        min_bits=float(self.min_bits), group_min_p=float(self.group_min_p))
 
 
 def settings_for(model: Model, isolation_threshold: float | None = None, min_bits: float | None = None,
-                 group_min_p: float | None = None) -> SessionSettings:
+                 group_min_p: float | None = None, value_lookahead: int | None = None) -> SessionSettings:
     """Settings with the model's isolation threshold and the defaults, overridden where given."""
     return SessionSettings(
         model.isolation_threshold if isolation_threshold is None else isolation_threshold,
         DEFAULT_MIN_BITS if min_bits is None else min_bits,
         DEFAULT_GROUP_MIN_P if group_min_p is None else group_min_p,
+        DEFAULT_VALUE_LOOKAHEAD if value_lookahead is None else value_lookahead,
     ).validated()
 
 
@@ -166,18 +185,6 @@ class FindingView:
     epoch: int
     kind: str
     cost: float
-
-
-@dataclass(frozen=True)
-class VerificationRequest:
-    """What to check after the last repair to confirm it."""
-
-    target: str  # the repair's verify check, or the top event
-    label: str
-    cost: float
-    outcomes: tuple[str, str]  # (works / normal, still fails / abnormal)
-    instructions: str = ""
-    caution: str | None = None
 
 
 @dataclass(frozen=True)
@@ -337,9 +344,26 @@ class SessionView:
             return AWAITING_VERIFICATION
         if self.isolated is not None:
             return ISOLATED
-        if not self.ranking.worth_doing(self.settings.min_bits):
+        if self.recommended is None:
             return AMBIGUITY
         return DIAGNOSING
+
+    @cached_property
+    def recommended(self) -> RankRow | None:
+        """The check to do next, or None when no check is worth doing.
+
+        A check is worth doing when it gives at least ``min_bits`` bits and,
+        among the ``value_lookahead`` best-scoring such checks, it is the
+        first expected to cost less than it saves in repairs.
+        """
+        rows = self.ranking.worth_doing(self.settings.min_bits)
+        if not rows or self.settings.value_lookahead == 0:
+            return rows[0] if rows else None
+        now = expected_repair_cost(self.posterior)
+        for row in rows[: self.settings.value_lookahead]:
+            if check_pays(self.engine, self.posterior, row.check, row.cost, row.p_outcomes, now):
+                return row
+        return None
 
     @cached_property
     def repair_order(self) -> tuple[RepairStep, ...]:
@@ -385,8 +409,8 @@ class SessionView:
         request = self.verification_request
         if request is not None and request.caution:
             out.append(f"{request.label}: {request.caution}")
-        elif self.status == DIAGNOSING and self.ranking.best is not None and self.ranking.best.caution:
-            out.append(f"{self.ranking.best.label}: {self.ranking.best.caution}")
+        elif self.status == DIAGNOSING and self.recommended is not None and self.recommended.caution:
+            out.append(f"{self.recommended.label}: {self.recommended.caution}")
         if self.status in (ISOLATED, AMBIGUITY) and self.repair_order:
             first = self.repair_order[0]
             verify = verification_for(model, first.id) if first.cost is not None else None
@@ -399,7 +423,7 @@ class SessionView:
         return SessionState(
             status=status,
             ranking=self.ranking.rows,
-            next_check=self.ranking.best if status == DIAGNOSING else None,
+            next_check=self.recommended if status == DIAGNOSING else None,
             suspects=self.suspects,
             entropy_bits=self.entropy_bits,
             log_p_findings=self.posterior.log_p,
@@ -417,31 +441,6 @@ class SessionView:
             epoch=self.record.epoch,
             settings=self.settings,
         )
-
-
-def verification_for(model: Model, repaired: str) -> VerificationRequest:
-    """The first check after a repair of ``repaired``: its ``verify`` check, else the top event."""
-    event = model.event_by_id.get(repaired)
-    verify = event.repair.verify if event is not None and event.repair is not None else None
-    if verify is not None and verify in model.check_by_id:
-        check = model.check_by_id[verify]
-        return VerificationRequest(check.id, check.label, float(check.cost), tuple(check.outcomes),
-                                   check.instructions, check.caution)
-    return top_verification(model)
-
-
-def top_verification(model: Model) -> VerificationRequest:
-    """Checking the unit itself after a repair ("does it work now?"), which alone confirms it."""
-    v = model.verification
-    if v is None:
-        return VerificationRequest(model.top, f"does the unit work now? ({model.label_of(model.top)})",
-                                   0.0, ("works", "still fails"))
-    return VerificationRequest(model.top, v.label, float(v.cost), tuple(v.outcomes), v.instructions)
-
-
-def verification_of(model: Model, target: str, repaired: str) -> VerificationRequest:
-    """The verification a recorded verification finding on ``target`` answered."""
-    return top_verification(model) if target == model.top else verification_for(model, repaired)
 
 
 def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:

@@ -97,6 +97,7 @@ def header_record(session: Session) -> dict:
             "isolation_threshold": session.settings.isolation_threshold,
             "min_bits": session.settings.min_bits,
             "group_min_p": session.settings.group_min_p,
+            "value_lookahead": session.settings.value_lookahead,
         },
         "time": utc_now(),
         **snapshot(session.view),
@@ -434,7 +435,8 @@ def _model_for(contents: LogContents, model: Model | None) -> tuple[Model, str |
 def _settings_from(contents: LogContents, model: Model) -> SessionSettings:
     s = contents.header.get("settings") or {}
     try:
-        return settings_for(model, s.get("isolation_threshold"), s.get("min_bits"), s.get("group_min_p"))
+        return settings_for(model, s.get("isolation_threshold"), s.get("min_bits"), s.get("group_min_p"),
+                            s.get("value_lookahead"))
     except SessionError as exc:
         raise LogError(f"{contents.path}:1: bad settings in the header: {exc}") from None
 

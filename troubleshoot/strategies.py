@@ -5,14 +5,16 @@ findings, the ranking of the remaining checks, the suspects and the session's
 status) and answers with a check id, or ``None`` for "stop checking and
 repair in the session's order". Every strategy except ``likeliest`` and
 ``optimal`` keeps the session's stopping rule: it stops as soon as a suspect
-is isolated or no check gives at least ``min_bits`` bits.
+is isolated or the session finds no check worth doing (none gives
+``min_bits`` bits, or none of the best few is expected to save more than it
+costs); ``info-per-cost-bits`` drops the second half.
 
 =================  ===========================================================
 name               next check
 =================  ===========================================================
 ``info-per-cost``  the session's recommendation: most bits per unit of cost
-``info-per-cost-voi``  the same check, done only when a one-step lookahead says
-                   it lowers the expected cost of repair by more than it costs
+``info-per-cost-bits``  the same order, checking while any check gives
+                   ``min_bits`` bits (no comparison with repairing at once)
 ``info``           most bits, whatever the cost
 ``cheapest``       cheapest check giving at least ``min_bits`` bits
 ``likeliest``      none: repair at once in order of P(failed) / repair cost
@@ -38,10 +40,10 @@ from typing import Protocol
 import numpy as np
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.session import DIAGNOSING, SessionView
+from troubleshoot.session import AMBIGUITY, DIAGNOSING, SessionView
 
 #: Every strategy name, in the order reports list them.
-STRATEGY_NAMES = ("info-per-cost", "info-per-cost-voi", "info", "cheapest", "likeliest", "random", "optimal")
+STRATEGY_NAMES = ("info-per-cost", "info-per-cost-bits", "info", "cheapest", "likeliest", "random", "optimal")
 
 
 class Strategy(Protocol):
@@ -87,83 +89,30 @@ class _Deterministic:
 
 
 class InfoPerCost(_Deterministic):
-    """The session's own recommendation: the check with the most bits per unit of cost."""
+    """The session's own recommendation: most bits per unit of cost, while a check pays for itself."""
 
     name = "info-per-cost"
 
     def pick(self, view):
-        if view.status != DIAGNOSING or view.ranking.best is None:
+        if view.status != DIAGNOSING or view.recommended is None:
             return None
-        return view.ranking.best.check
+        return view.recommended.check
 
 
-def expected_repair_cost(view_or_posterior) -> float:
-    """Expected cost of repairing now in order of P / cost, each repair verified, one fault assumed.
+class InfoPerCostBitsOnly(_Deterministic):
+    """The tool's order with the plain stopping rule: check while any check gives ``min_bits`` bits.
 
-    Notes
-    -----
-    With the suspects' posteriors renormalised to one fault, p_i, and the
-    repairs in the session's order (p_i / c_i), the expected cost is
-    sum_j (c_j + v_j) * (1 - sum_(i<j) p_i): repair j (cost c_j, its
-    verification v_j) is reached only if none of the earlier ones was the fault.
-
-    References
-    ----------
-    Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995, eq. for ECR.
-    """
-    from troubleshoot.diagnosis import repair_order, suspects
-    from troubleshoot.session import top_verification, verification_for
-
-    posterior = getattr(view_or_posterior, "posterior", view_or_posterior)
-    model = posterior.model
-    ranked = [s for s in suspects(posterior) if not s.repaired and s.p > 1e-12]
-    total_p = sum(s.p for s in ranked)
-    if total_p <= 0.0:
-        return 0.0
-    remaining = 1.0
-    cost = 0.0
-    for step in repair_order(model, tuple(ranked)):
-        if step.cost is None:
-            continue
-        verify = verification_for(model, step.id)
-        extra = top_verification(model).cost if verify.target != model.top else 0.0
-        cost += remaining * (step.cost + verify.cost + extra)
-        remaining -= step.p / total_p
-        if remaining <= 1e-12:
-            break
-    return cost
-
-
-class InfoPerCostValueOfInformation(_Deterministic):
-    """The session's recommended check, done only when it pays for itself one step ahead.
-
-    The check t is done when cost(t) + sum_o P(t = o | e) ECR(e + {t = o}) < ECR(e),
-    ECR being :func:`expected_repair_cost`; otherwise the strategy stops and
-    repairs. Two extra propagations per step.
-
-    References
-    ----------
-    Heckerman, Breese & Rommelse 1995 (myopic comparison of observing with repairing).
+    The ablation of the session's value comparison (a check is recommended
+    only when it is expected to save more than it costs).
     """
 
-    name = "info-per-cost-voi"
+    name = "info-per-cost-bits"
 
     def pick(self, view):
-        from troubleshoot.inference import Finding
-
-        if view.status != DIAGNOSING or view.ranking.best is None:
+        if view.status not in (DIAGNOSING, AMBIGUITY):
             return None
-        best = view.ranking.best
-        now = expected_repair_cost(view)
-        after = best.cost
-        findings = tuple(view.posterior.findings)
-        for o, p in enumerate(best.p_outcomes):
-            if p <= 0.0:
-                continue
-            posterior = view.engine.propagate(findings + (Finding(best.check, o, view.record.epoch),),
-                                              view.record.repairs)
-            after += p * expected_repair_cost(posterior)
-        return best.check if after < now else None
+        rows = _worth_doing(view)
+        return rows[0].check if rows else None
 
 
 class MostInformative(_Deterministic):
@@ -239,7 +188,7 @@ class PolicyStrategy(_Deterministic):
 
 def make_strategy(name: str, optimal_policy: dict | None = None) -> Strategy:
     """The strategy called ``name``; ``optimal`` needs the policy table of :func:`troubleshoot.optimal.solve`."""
-    simple = {"info-per-cost": InfoPerCost, "info-per-cost-voi": InfoPerCostValueOfInformation,
+    simple = {"info-per-cost": InfoPerCost, "info-per-cost-bits": InfoPerCostBitsOnly,
               "info": MostInformative, "cheapest": Cheapest,
               "likeliest": Likeliest, "random": RandomCheck}
     if name in simple:

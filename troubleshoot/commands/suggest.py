@@ -50,6 +50,9 @@ def add_parser(subparsers, name):
                         help="a check giving fewer bits is not worth doing (default 0.01 bits)")
     parser.add_argument("--group-p", metavar="P", type=float,
                         help="suspects at or above this probability form the ambiguity group (default 0.05)")
+    parser.add_argument("--lookahead", metavar="N", type=int,
+                        help="how many of the best checks are weighed against repairing at once "
+                             "(default 3; 0: only --min-bits decides when to stop checking)")
     parser.add_argument("--json", action="store_true", help="print the result as JSON (see the README)")
     parser.set_defaults(steps=[])
     return parser
@@ -193,7 +196,7 @@ def run(args) -> int:
     model, warnings = load_any_model(str(path))
     for warning in warnings:
         print(f"troubleshoot: {warning}", file=sys.stderr)
-    settings = settings_for(model, args.threshold, args.min_bits, args.group_p)
+    settings = settings_for(model, args.threshold, args.min_bits, args.group_p, args.lookahead)
     session = Session(model, settings, model_path=str(path))
     apply_steps(session, args.steps)
     if args.json:
