@@ -49,8 +49,15 @@ import numpy as np
 
 from troubleshoot.diagnosis import Suspect, is_unlisted
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.model import Model, unlisted_id
-from troubleshoot.session import Session, SessionSettings, settings_for, top_verification, verification_for
+from troubleshoot.logic import gate_values
+from troubleshoot.model import Model
+from troubleshoot.session import (
+    Session,
+    SessionSettings,
+    settings_for,
+    top_verification,
+    verification_for,
+)
 from troubleshoot.simulation import CLEARED_P, next_repair, repair_cost
 
 #: Largest number of root events the enumeration takes (2^16 joint states).
@@ -109,32 +116,8 @@ class Enumeration:
             return self._values[key]
         model = self.model
         rows = len(self.states)
-        value = {r: (np.zeros(rows, bool) if r in key else self.states[:, i]) for i, r in enumerate(self.roots)}
-
-        def of(node):
-            if node in value:
-                return value[node]
-            gate = model.gate_by_id[node]
-            ins = [of(x) for x in gate.inputs]
-            if gate.kind == "and":
-                v = np.logical_and.reduce(ins)
-            elif gate.kind == "or":
-                v = np.logical_or.reduce(ins)
-                if gate.unlisted is not None:
-                    v = v | of(unlisted_id(gate.id))
-            elif gate.kind == "atleast":
-                v = np.sum(ins, axis=0) >= gate.k
-            elif gate.kind == "not":
-                v = ~ins[0]
-            elif gate.kind == "inhibit":
-                v = ins[0] & of(gate.condition)
-            else:
-                raise ValueError(gate.kind)
-            value[node] = v
-            return v
-
-        for g in model.gates:
-            of(g.id)
+        value = gate_values(model, {r: (np.zeros(rows, bool) if r in key else self.states[:, i])
+                                    for i, r in enumerate(self.roots)})
         self._values[key] = value
         return value
 

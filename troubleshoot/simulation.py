@@ -15,13 +15,16 @@ The protocol of a case (the same for every strategy):
    outcome recorded. The strategy stops by naming none (the tool's rule
    stops when a suspect is isolated or no check gives ``min_bits`` bits).
 3. Repair: the first repairable entry of the session's repair order (P(failed)
-   / repair cost over the ambiguity group; when the group holds no
-   repairable suspect, over every unrepaired suspect with P > 1e-12) is
-   repaired and the repair verified as the session asks (the top event, or
-   the repair's own verifying check). A failed verification leads to the
-   next repair in the order recomputed from the new findings; no check is
-   made after the first repair. The case ends when a verification passes,
-   when no repairable suspect is left ("unresolved"), or at the step cap.
+   / repair cost over the ambiguity group) is
+   repaired and the repair verified as the session asks (the repair's own
+   check if the model names one, then the unit itself). A failed
+   verification sends the case back to step 2 with the repair taken into
+   account (``checks_after_repair``, the tool's own behaviour), or, in the
+   repair-only protocol (where :mod:`troubleshoot.optimal` is exact), on to
+   the next repair in the order recomputed from the new findings. The case
+   ends when the unit is verified working, when the ambiguity group holds
+   no repairable suspect ("unresolved": the technician escalates, as the
+   tool says the cause lies outside the model), or at the step cap.
 
 Common random numbers: every draw of a case comes from generators seeded by
 (seed, case index, stream), so every strategy meets the same true state and,
@@ -48,11 +51,18 @@ from dataclasses import dataclass
 import numpy as np
 
 from troubleshoot.diagnosis import Suspect, ambiguity_group, repair_order
-from troubleshoot.inference import Engine, Finding
-from troubleshoot.model import Model, unlisted_id
 from troubleshoot.errors import NetworkTooLarge
-from troubleshoot.session import (AWAITING_VERIFICATION, CONFIRMED, OBSERVATION, Session, SessionSettings,
-                                  settings_for)
+from troubleshoot.inference import Engine, Finding
+from troubleshoot.logic import gate_values
+from troubleshoot.model import Model
+from troubleshoot.session import (
+    AWAITING_VERIFICATION,
+    CONFIRMED,
+    OBSERVATION,
+    Session,
+    SessionSettings,
+    settings_for,
+)
 
 #: A suspect below this posterior is treated as cleared (rounding of an exact zero).
 CLEARED_P = 1e-12
@@ -93,19 +103,19 @@ def next_repair(model: Model, ranked: tuple[Suspect, ...], group_min_p: float) -
     -------
     str or None
         The first repairable suspect of :func:`~troubleshoot.diagnosis.repair_order`
-        over the ambiguity group; when the group holds none, over every
-        unrepaired suspect with P > :data:`CLEARED_P`; None when no
-        repairable suspect is left.
+        over the ambiguity group; None when the group holds none: the cause
+        lies outside the model (an unlisted cause) or below the group's
+        threshold, and the technician escalates instead of replacing parts
+        at random.
 
     References
     ----------
     Kadane & Simon 1977 (order by probability over cost).
     """
-    for min_p in (group_min_p, CLEARED_P):
-        group = tuple(s for s in ambiguity_group(ranked, min_p) if s.p > CLEARED_P)
-        for step in repair_order(model, group):
-            if step.cost is not None:
-                return step.id
+    group = tuple(s for s in ambiguity_group(ranked, group_min_p) if s.p > CLEARED_P)
+    for step in repair_order(model, group):
+        if step.cost is not None:
+            return step.id
     return None
 
 
@@ -144,31 +154,8 @@ def sample_true_state(engine: Engine, rng: np.random.Generator) -> frozenset[str
 
 def true_values(model: Model, failed: frozenset[str], repaired: frozenset[str]) -> dict[str, bool]:
     """Whether each root and gate is failed in the true state, with the repaired roots working."""
-    value: dict[str, bool] = {r: (r in failed and r not in repaired) for r in model.hypotheses}
-
-    def of(node: str) -> bool:
-        if node in value:
-            return value[node]
-        gate = model.gate_by_id[node]
-        ins = [of(x) for x in gate.inputs]
-        if gate.kind == "and":
-            v = all(ins)
-        elif gate.kind == "or":
-            v = any(ins) or (gate.unlisted is not None and of(unlisted_id(gate.id)))
-        elif gate.kind == "atleast":
-            v = sum(ins) >= gate.k
-        elif gate.kind == "not":
-            v = not ins[0]
-        elif gate.kind == "inhibit":
-            v = ins[0] and of(gate.condition)
-        else:
-            raise ValueError(gate.kind)
-        value[node] = v
-        return v
-
-    for g in model.gates:
-        of(g.id)
-    return value
+    roots = {r: np.array([r in failed and r not in repaired]) for r in model.hypotheses}
+    return {node: bool(v[0]) for node, v in gate_values(model, roots).items()}
 
 
 class Equipment:
@@ -263,7 +250,8 @@ def max_steps_for(model: Model) -> int:
 
 
 def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Generator,
-             settings: SessionSettings, max_steps: int | None = None) -> CaseResult:
+             settings: SessionSettings, max_steps: int | None = None,
+             checks_after_repair: bool = True) -> CaseResult:
     """Drive a Session with one strategy on one unit until the repair is confirmed.
 
     Parameters
@@ -278,6 +266,9 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
     settings : SessionSettings
     max_steps : int, optional
         Default :func:`max_steps_for`.
+    checks_after_repair : bool
+        After a failed verification, let the strategy check again (True),
+        or go straight to the next repair (the repair-only protocol).
 
     Returns
     -------
@@ -291,7 +282,7 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
     symptom_ids = {s.id for s in model.symptoms}
     outcome = "capped"
     try:
-        outcome = _drive(session, strategy, equipment, rng, settings, max_steps)
+        outcome = _drive(session, strategy, equipment, rng, settings, max_steps, checks_after_repair)
     except NetworkTooLarge:
         # A repair whose epoch copy of the gate logic would not fit the memory
         # budget: the session refuses it, and so would a technician's.
@@ -310,12 +301,16 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
 
 
 def _drive(session: Session, strategy, equipment: Equipment, rng, settings: SessionSettings,
-           max_steps: int) -> str:
+           max_steps: int, checks_after_repair: bool = True) -> str:
     """The steps of one case (see the module notes); returns how the case ended."""
     model = session.model
     diagnosing = True
+    epoch = session.epoch
     for _ in range(max_steps):
         view = session.view
+        if session.epoch != epoch:  # a repair was made (and its verification is under way)
+            epoch = session.epoch
+            diagnosing = checks_after_repair
         status = view.status
         if status == CONFIRMED:
             return "left-failed" if equipment.top_fails(session.repairs) else "confirmed"
@@ -327,10 +322,10 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
                 result = equipment.answer(request.target, session.repairs)
             session.record_verification(result)
             continue
-        if diagnosing and session.epoch == 0:
+        if diagnosing:
             choice = strategy.choose(view, rng)
             if choice is not None:
-                session.record_finding(choice, equipment.answer(choice, ()))
+                session.record_finding(choice, equipment.answer(choice, session.repairs))
                 continue
             diagnosing = False
         root = next_repair(model, view.suspects, settings.group_min_p)
@@ -401,13 +396,15 @@ def summarise(name: str, results: list[CaseResult]) -> StrategySummary:
 _WORKER: dict = {}
 
 
-def _init_worker(model: Model, strategy_specs, seed: int, settings: SessionSettings) -> None:
+def _init_worker(model: Model, strategy_specs, seed: int, settings: SessionSettings,
+                 checks_after_repair: bool = True) -> None:
     from troubleshoot.strategies import make_strategy
 
     _WORKER["engine"] = Engine(model)
     _WORKER["strategies"] = [make_strategy(name, policy) for name, policy in strategy_specs]
     _WORKER["seed"] = seed
     _WORKER["settings"] = settings
+    _WORKER["checks_after_repair"] = checks_after_repair
 
 
 def _run_one_case(case: int) -> list[CaseResult]:
@@ -419,12 +416,14 @@ def _run_one_case(case: int) -> list[CaseResult]:
         # Each strategy gets its own copy of the case's strategy stream, so
         # adding a strategy never changes another one's draws.
         rng = case_generator(seed, case, STREAM_STRATEGY)
-        out.append(run_case(engine, strategy, equipment, rng, _WORKER["settings"]))
+        out.append(run_case(engine, strategy, equipment, rng, _WORKER["settings"],
+                            checks_after_repair=_WORKER["checks_after_repair"]))
     return out
 
 
 def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str, dict | None]],
-             settings: SessionSettings | None = None, workers: int = 1, progress=None) -> dict[str, list[CaseResult]]:
+             settings: SessionSettings | None = None, workers: int = 1, progress=None,
+             checks_after_repair: bool = True) -> dict[str, list[CaseResult]]:
     """Run every strategy on the same ``cases`` sampled units.
 
     Parameters
@@ -441,6 +440,8 @@ def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str
         Processes; 1 runs in this process. The results are the same for any count.
     progress : callable, optional
         Called with (cases done, cases) now and then.
+    checks_after_repair : bool
+        See :func:`run_case`; False is the repair-only protocol of :mod:`troubleshoot.optimal`.
 
     Returns
     -------
@@ -452,7 +453,7 @@ def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str
     per_case: list[list[CaseResult]] = []
     step = max(1, cases // 20)
     if workers <= 1 or cases < 2:
-        _init_worker(model, specs, seed, settings)
+        _init_worker(model, specs, seed, settings, checks_after_repair)
         for case in range(cases):
             per_case.append(_run_one_case(case))
             if progress and ((case + 1) % step == 0 or case + 1 == cases):
@@ -461,7 +462,7 @@ def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str
         import multiprocessing
 
         with multiprocessing.get_context("spawn" if sys.platform == "win32" else "fork").Pool(
-                workers, initializer=_init_worker, initargs=(model, specs, seed, settings)) as pool:
+                workers, initializer=_init_worker, initargs=(model, specs, seed, settings, checks_after_repair)) as pool:
             for case, result in enumerate(pool.imap(_run_one_case, range(cases),
                                                     chunksize=max(1, min(16, cases // (workers * 8) or 1)))):
                 per_case.append(result)

@@ -183,6 +183,8 @@ class PolicyStrategy(_Deterministic):
         self.policy = policy
 
     def pick(self, view):
+        if view.record.epoch > 0:  # the policy is over findings made before any repair
+            return None
         return self.policy.get(findings_key(view))
 
 

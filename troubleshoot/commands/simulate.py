@@ -35,6 +35,9 @@ def add_parser(subparsers, name):
     parser.add_argument("--seed", type=int, default=0, metavar="S", help="seed; same seed, same output (default 0)")
     parser.add_argument("--strategy", action="append", choices=STRATEGY_NAMES, metavar="NAME",
                         help="strategy to run (repeat for several; default all: " + ", ".join(STRATEGY_NAMES) + ")")
+    parser.add_argument("--after-repair", choices=("diagnose", "repair"), default="diagnose",
+                        help="after a failed verification: check again as the tool does (diagnose, the "
+                             "default), or go straight to the next repair (repair; always so when optimal runs)")
     parser.add_argument("--json", action="store_true", help="print the figures as JSON")
     parser.add_argument("--plot", metavar="FILE.png", help="write a PNG of the cost distribution per strategy")
     parser.add_argument("--workers", type=int, default=None, metavar="K",
@@ -107,7 +110,15 @@ def run(args) -> int:
         raise SimulationError("no strategy left to simulate")
 
     specs = [(name, optimal.policy if name == "optimal" else None) for name in names]
-    results = simulate(model, args.cases, args.seed, specs, settings, workers, _progress(model.name))
+    # The optimal policy is exact for the repair-only protocol, so a run that
+    # compares with it uses that protocol for every strategy.
+    checks_after_repair = args.after_repair == "diagnose" and optimal is None
+    if optimal is not None and args.after_repair == "diagnose":
+        print("troubleshoot: optimal is exact for the repair-only protocol; every strategy runs under it "
+              "(no checks after the first repair)", file=sys.stderr)
+    args.protocol = "diagnose" if checks_after_repair else "repair"
+    results = simulate(model, args.cases, args.seed, specs, settings, workers, _progress(model.name),
+                       checks_after_repair=checks_after_repair)
     summaries = {name: summarise(name, results[name]) for name in names}
     best = optimal.expected_cost if optimal is not None else None
 
@@ -147,6 +158,7 @@ def _as_json(model, args, summaries, exact, best) -> dict:
         "cost_unit": model.cost_unit,
         "strategies": strategies,
         "optimal_expected_cost": best,
+        "after_repair": args.protocol,
     }
 
 
@@ -154,7 +166,11 @@ def _print_table(model, args, summaries, exact, best, optimal) -> None:
     unit = model.cost_unit
     print(f"Simulated troubleshooting of {model.name}: {args.cases} failed units, seed {args.seed}, costs in {unit}.")
     print("Each unit: faults drawn given the complaint, checks answered from the model's noise, repairs in the "
-          "session's order until a verification passes; every strategy meets the same units and draws.")
+          "session's order until the unit is verified working; every strategy meets the same units and draws.")
+    if args.protocol == "diagnose":
+        print("After a failed verification the strategy checks again, the repair taken into account.")
+    else:
+        print("Repair-only protocol: no check after the first repair (the class in which optimal is exact).")
     print("95% interval of the mean cost: mean +/- 1.96 sd / sqrt(n) (normal approximation).")
     print("First repair right: share of units whose first repair was of a component that had failed.")
     print()
@@ -185,7 +201,8 @@ def _print_table(model, args, summaries, exact, best, optimal) -> None:
             notes.append(f"{o['left-failed']} ended with the repair's verifying check passing while the unit "
                          "still failed")
         if o.get("unresolved"):
-            notes.append(f"{o['unresolved']} ended with no repairable suspect left (cause outside the model)")
+            notes.append(f"{o['unresolved']} ended unresolved: no repairable suspect in the ambiguity group "
+                         "(the cause lies outside the model; escalate)")
         if o.get("engine-refused"):
             notes.append(f"{o['engine-refused']} stopped because the network after a repair exceeded the "
                          "engine's memory budget")
