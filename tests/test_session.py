@@ -183,9 +183,11 @@ def test_one_propagation_per_action():
     start = engine.propagations
     s.record_finding("lamp", "off")
     s.ranking, s.suspects, s.entropy_bits, s.state, s.state
-    # One propagation ranks every check; weighing the best few against
-    # repairing now takes one more per outcome of each.
-    assert engine.propagations <= start + 1 + 2 * s.settings.value_lookahead
+    # One propagation ranks every check; weighing the best k against
+    # repairing now takes one more per outcome of each, and looking a second
+    # check ahead k more per outcome of those.
+    k = s.settings.value_lookahead
+    assert engine.propagations <= start + 1 + 2 * k + 4 * k * k
     before = engine.propagations
     s.add_note("note")
     s.state

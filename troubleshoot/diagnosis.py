@@ -404,6 +404,54 @@ def expected_repair_cost(posterior: Posterior) -> float:
     return cost
 
 
+def expected_cost_ahead(engine: Engine, posterior: Posterior, candidates: tuple[str, ...], depth: int,
+                        breadth: int, min_bits: float) -> float:
+    """Least expected cost from here looking ``depth`` checks ahead, then repairing.
+
+    min(ECR(e), min over the ``breadth`` best-scoring informative checks t of
+    cost(t) + sum_o P(o | e) * expected_cost_ahead(e + o, depth - 1)); at
+    depth 0 it is ECR(e), :func:`expected_repair_cost`.
+
+    References
+    ----------
+    Heckerman, Breese & Rommelse 1995 (observation versus repair; the
+    myopic rule is depth 1).
+    """
+    best = expected_repair_cost(posterior)
+    if depth <= 0:
+        return best
+    from troubleshoot.ranking import rank
+
+    for row in rank(posterior, candidates).worth_doing(min_bits)[:breadth]:
+        best = min(best, cost_of_check_then(engine, posterior, row.check, row.cost, row.p_outcomes,
+                                            candidates, depth, breadth, min_bits, bound=best))
+    return best
+
+
+def cost_of_check_then(engine: Engine, posterior: Posterior, check_id: str, cost: float,
+                       p_outcomes: tuple[float, float], candidates: tuple[str, ...], depth: int,
+                       breadth: int, min_bits: float, bound: float = math.inf) -> float:
+    """Expected cost of doing a check now and then the best of ``depth - 1`` more checks or repairing.
+
+    Stops adding once the sum reaches ``bound`` (the caller only needs to
+    know it is not below it). One propagation per outcome at each level.
+    """
+    total = cost
+    rest = tuple(c for c in candidates if c != check_id)
+    findings = tuple(posterior.findings)
+    for outcome, p in enumerate(p_outcomes):
+        if p <= 0.0:
+            continue
+        try:
+            later = engine.propagate(findings + (Finding(check_id, outcome, posterior.epoch),), posterior.repairs)
+        except ImpossibleFindings:
+            continue
+        total += p * expected_cost_ahead(engine, later, rest, depth - 1, breadth, min_bits)
+        if total >= bound:
+            return total
+    return total
+
+
 def check_pays(engine: Engine, posterior: Posterior, check_id: str, cost: float,
                p_outcomes: tuple[float, float], repair_cost_now: float | None = None) -> bool:
     """Whether doing a check now is expected to cost less than repairing at once.

@@ -69,9 +69,9 @@ class Engine:
 
     #: Compiled trees kept (a session moves forward; undo goes back one step).
     cache_size = 6
-    #: Posteriors kept: a propagation of findings already seen (undo, a note,
-    #: weighing a check's outcomes again) is answered from memory.
-    posterior_cache_size = 16
+    #: Memory the kept posteriors may take: a propagation of findings already
+    #: seen (undo, a note, weighing a check's outcomes again) is answered from it.
+    posterior_cache_bytes = 64 * 1024**2
 
     def __init__(self, model: Model, memory_budget: int = DEFAULT_MEMORY_BUDGET):
         self.model = model
@@ -205,7 +205,8 @@ class Engine:
         self.propagations += 1
         post = Posterior(self.model, net, tree, calibrated, calibrated.log_p + log_constant, findings, repairs)
         self._posteriors[key] = post
-        while len(self._posteriors) > self.posterior_cache_size:
+        keep = max(8, self.posterior_cache_bytes // max(1, 8 * tree.table_entries))
+        while len(self._posteriors) > keep:
             self._posteriors.pop(next(iter(self._posteriors)))
         return post
 

@@ -60,7 +60,7 @@ from typing import Any, Protocol
 
 from troubleshoot.diagnosis import (
     VerificationRequest,
-    check_pays,
+    cost_of_check_then,
     expected_repair_cost,
     top_verification,
     verification_for,
@@ -92,6 +92,7 @@ DEFAULT_MIN_BITS = 0.01
 #: Default: suspects at or above this posterior form the ambiguity group.
 DEFAULT_GROUP_MIN_P = 0.05
 DEFAULT_VALUE_LOOKAHEAD = 3
+DEFAULT_VALUE_DEPTH = 2
 
 # Kinds of recorded observations.
 COMPLAINT, OBSERVATION, VERIFICATION = "complaint", "finding", "verification"
@@ -115,12 +116,17 @@ class SessionSettings:
         of them expected to cost less than it saves is recommended; when none
         is, no check is worth doing and the repair order is proposed. 0 turns
         the comparison off (only ``min_bits`` decides).
+    value_depth : int
+        How many checks ahead the comparison looks: 1 is the myopic rule
+        (one check, then repair); 2 also tries a second check after each
+        outcome of the first, when no single check pays.
     """
 
     isolation_threshold: float = 0.95
     min_bits: float = DEFAULT_MIN_BITS
     group_min_p: float = DEFAULT_GROUP_MIN_P
     value_lookahead: int = DEFAULT_VALUE_LOOKAHEAD
+    value_depth: int = DEFAULT_VALUE_DEPTH
 
     def validated(self) -> "SessionSettings":
         for name, low_open in (("isolation_threshold", True), ("group_min_p", True)):
@@ -130,6 +136,8 @@ class SessionSettings:
                                    f"not {value!r}")
         if not (isinstance(self.min_bits, (int, float)) and 0.0 <= self.min_bits < math.inf):
             raise SessionError(f"min bits must be a number of bits, 0 or more, not {self.min_bits!r}")
+        if not (isinstance(self.value_depth, int) and 1 <= self.value_depth <= 3):
+            raise SessionError(f"value depth must be 1, 2 or 3 checks, not {self.value_depth!r}")
         if not (isinstance(self.value_lookahead, int) and 0 <= self.value_lookahead <= 50):
             raise SessionError(f"value lookahead must be a whole number of checks from 0 to 50, "
                                f"not {self.value_lookahead!r}")
@@ -138,13 +146,15 @@ class SessionSettings:
 
 
 def settings_for(model: Model, isolation_threshold: float | None = None, min_bits: float | None = None,
-                 group_min_p: float | None = None, value_lookahead: int | None = None) -> SessionSettings:
+                 group_min_p: float | None = None, value_lookahead: int | None = None,
+                 value_depth: int | None = None) -> SessionSettings:
     """Settings with the model's isolation threshold and the defaults, overridden where given."""
     return SessionSettings(
         model.isolation_threshold if isolation_threshold is None else isolation_threshold,
         DEFAULT_MIN_BITS if min_bits is None else min_bits,
         DEFAULT_GROUP_MIN_P if group_min_p is None else group_min_p,
         DEFAULT_VALUE_LOOKAHEAD if value_lookahead is None else value_lookahead,
+        DEFAULT_VALUE_DEPTH if value_depth is None else value_depth,
     ).validated()
 
 
@@ -356,13 +366,28 @@ class SessionView:
         among the ``value_lookahead`` best-scoring such checks, it is the
         first expected to cost less than it saves in repairs.
         """
-        rows = self.ranking.worth_doing(self.settings.min_bits)
-        if not rows or self.settings.value_lookahead == 0:
+        settings = self.settings
+        rows = self.ranking.worth_doing(settings.min_bits)
+        if not rows or settings.value_lookahead == 0:
             return rows[0] if rows else None
         now = expected_repair_cost(self.posterior)
-        for row in rows[: self.settings.value_lookahead]:
-            if check_pays(self.engine, self.posterior, row.check, row.cost, row.p_outcomes, now):
-                return row
+        shortlist = rows[: settings.value_lookahead]
+        for row in shortlist:
+            if row.cost <= 0.0:
+                return row  # a free informative check always pays
+        # Of the shortlist, the check with the least expected cost of finishing
+        # (it, then repair in order), if that beats repairing at once; when no
+        # check pays so, a second check ahead, so a pair worth doing is not missed.
+        for depth in range(1, settings.value_depth + 1):
+            best, best_cost = None, now
+            for row in shortlist:
+                ahead = cost_of_check_then(self.engine, self.posterior, row.check, row.cost, row.p_outcomes,
+                                           self.candidates, depth, settings.value_lookahead, settings.min_bits,
+                                           bound=best_cost)
+                if ahead < best_cost:
+                    best, best_cost = row, ahead
+            if best is not None:
+                return best
         return None
 
     @cached_property

@@ -98,6 +98,7 @@ def header_record(session: Session) -> dict:
             "min_bits": session.settings.min_bits,
             "group_min_p": session.settings.group_min_p,
             "value_lookahead": session.settings.value_lookahead,
+            "value_depth": session.settings.value_depth,
         },
         "time": utc_now(),
         **snapshot(session.view),
@@ -436,7 +437,7 @@ def _settings_from(contents: LogContents, model: Model) -> SessionSettings:
     s = contents.header.get("settings") or {}
     try:
         return settings_for(model, s.get("isolation_threshold"), s.get("min_bits"), s.get("group_min_p"),
-                            s.get("value_lookahead"))
+                            s.get("value_lookahead"), s.get("value_depth"))
     except SessionError as exc:
         raise LogError(f"{contents.path}:1: bad settings in the header: {exc}") from None
 

@@ -22,9 +22,10 @@ The protocol of a case (the same for every strategy):
    account (``checks_after_repair``, the tool's own behaviour), or, in the
    repair-only protocol (where :mod:`troubleshoot.optimal` is exact), on to
    the next repair in the order recomputed from the new findings. The case
-   ends when the unit is verified working, when the ambiguity group holds
-   no repairable suspect ("unresolved": the technician escalates, as the
-   tool says the cause lies outside the model), or at the step cap.
+   ends when the unit is verified working; when the session isolates an
+   unlisted-cause event ("outside-model": the tool says the cause lies
+   outside the model, under that gate, and the technician escalates); when
+   no repairable suspect is left ("unresolved"); or at the step cap.
 
 Common random numbers: every draw of a case comes from generators seeded by
 (seed, case index, stream), so every strategy meets the same true state and,
@@ -50,7 +51,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.diagnosis import Suspect, ambiguity_group, repair_order
+from troubleshoot.diagnosis import Suspect, ambiguity_group, is_unlisted, repair_order
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.inference import Engine, Finding
 from troubleshoot.logic import gate_values
@@ -71,7 +72,7 @@ CLEARED_P = 1e-12
 STREAM_TRUE_STATE, STREAM_OUTCOMES, STREAM_STRATEGY = 0, 1, 2
 
 #: How a case can end (see :class:`CaseResult`).
-OUTCOMES = ("confirmed", "left-failed", "unresolved", "engine-refused", "capped")
+OUTCOMES = ("confirmed", "outside-model", "left-failed", "unresolved", "engine-refused", "capped")
 
 #: z of the two-sided 95% normal interval.
 Z95 = 1.96
@@ -103,19 +104,19 @@ def next_repair(model: Model, ranked: tuple[Suspect, ...], group_min_p: float) -
     -------
     str or None
         The first repairable suspect of :func:`~troubleshoot.diagnosis.repair_order`
-        over the ambiguity group; None when the group holds none: the cause
-        lies outside the model (an unlisted cause) or below the group's
-        threshold, and the technician escalates instead of replacing parts
-        at random.
+        over the ambiguity group; when the group holds none, over every
+        unrepaired suspect with P > :data:`CLEARED_P`; None when no
+        repairable suspect is left.
 
     References
     ----------
     Kadane & Simon 1977 (order by probability over cost).
     """
-    group = tuple(s for s in ambiguity_group(ranked, group_min_p) if s.p > CLEARED_P)
-    for step in repair_order(model, group):
-        if step.cost is not None:
-            return step.id
+    for min_p in (group_min_p, CLEARED_P):
+        group = tuple(s for s in ambiguity_group(ranked, min_p) if s.p > CLEARED_P)
+        for step in repair_order(model, group):
+            if step.cost is not None:
+                return step.id
     return None
 
 
@@ -294,7 +295,8 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
         cost=float(session.view.cost_spent),
         checks=checks,
         repairs=repairs,
-        first_repair_right=bool(repairs) and repairs[0] in equipment.failed,
+        first_repair_right=(repairs[0] in equipment.failed) if repairs else (
+            outcome == "outside-model" and session.view.isolated.id in equipment.failed),
         wrong_repairs=sum(1 for r in repairs if r not in equipment.failed),
         outcome=outcome,
     )
@@ -322,6 +324,8 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
                 result = equipment.answer(request.target, session.repairs)
             session.record_verification(result)
             continue
+        if view.isolated is not None and is_unlisted(model, view.isolated.id):
+            return "outside-model"
         if diagnosing:
             choice = strategy.choose(view, rng)
             if choice is not None:

@@ -172,7 +172,8 @@ def _print_table(model, args, summaries, exact, best, optimal) -> None:
     else:
         print("Repair-only protocol: no check after the first repair (the class in which optimal is exact).")
     print("95% interval of the mean cost: mean +/- 1.96 sd / sqrt(n) (normal approximation).")
-    print("First repair right: share of units whose first repair was of a component that had failed.")
+    print("First repair right: share of units whose first repair was of a component that had failed (or, with "
+          "no repair, whose cause was rightly isolated outside the model).")
     print()
     header = f"{'strategy':<17} {'mean cost':>14} {'95% interval':>24} {'checks':>7} {'first repair right':>19} " \
              f"{'wrong repairs':>14}"
@@ -201,8 +202,10 @@ def _print_table(model, args, summaries, exact, best, optimal) -> None:
             notes.append(f"{o['left-failed']} ended with the repair's verifying check passing while the unit "
                          "still failed")
         if o.get("unresolved"):
-            notes.append(f"{o['unresolved']} ended unresolved: no repairable suspect in the ambiguity group "
-                         "(the cause lies outside the model; escalate)")
+            notes.append(f"{o['unresolved']} ended with no repairable suspect left")
+        if o.get("outside-model"):
+            notes.append(f"{o['outside-model']} ended with the cause isolated outside the model (an unlisted "
+                         "cause: escalate)")
         if o.get("engine-refused"):
             notes.append(f"{o['engine-refused']} stopped because the network after a repair exceeded the "
                          "engine's memory budget")
