@@ -375,33 +375,79 @@ def expected_repair_cost(posterior: Posterior) -> float:
 
     Notes
     -----
-    With the suspects not yet repaired renormalised to a single fault, p_i,
-    and the repairs in order of p_i / c_i, the expected cost is
-    sum_j (c_j + v_j) * (1 - sum_(i<j) p_i): repair j (cost c_j, its
-    verification v_j: the repair's own check, if any, and the unit itself)
-    is reached only if none of the earlier ones was the fault. Suspects with
-    no repair (unlisted causes) are passed over.
+    With the suspects not yet repaired (P > 1e-12) renormalised to a single
+    fault, p_i, and the repairs in the order of :func:`repair_order`, the
+    expected cost is sum_j (c_j + v_j) * (1 - sum_(i<j) p_i): repair j (cost
+    c_j, its verification v_j: the repair's own check, if any, and the unit
+    itself) is reached only if none of the earlier ones was the fault.
+    Suspects with no repair (unlisted causes) are passed over. Whole arrays:
+    it runs several times per action.
 
     References
     ----------
     Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995 (expected cost of repair).
     """
     model = posterior.model
-    ranked = tuple(s for s in suspects(posterior) if not s.repaired and s.p > 1e-12)
-    total_p = sum(s.p for s in ranked)
-    if total_p <= 0.0:
+    table = _repair_table(model)
+    p = posterior.root_marginals()
+    live = p > 1e-12
+    for r in posterior.repairs:
+        live[table.index[r]] = False
+    total = float(p[live].sum())
+    if total <= 0.0:
         return 0.0
+    cand = np.flatnonzero(live & table.repairable)
+    if cand.size == 0:
+        return 0.0
+    pc, cost = p[cand], table.repair_cost[cand]
+    with np.errstate(divide="ignore"):
+        ratio = np.where(cost > 0, pc / np.where(cost > 0, cost, 1.0), np.inf)
+    order = cand[np.lexsort((table.id_rank[cand], -pc, -ratio))]
+    q = p[order] / total
+    before = 1.0 - np.concatenate(([0.0], np.cumsum(q)[:-1]))  # P(repair j is reached)
+    reached = np.concatenate(([True], before[1:] > 1e-12))
+    return float(np.sum(before[reached] * table.full_cost[order][reached]))
+
+
+@dataclass(frozen=True)
+class _RepairTable:
+    index: dict
+    repairable: np.ndarray
+    repair_cost: np.ndarray
+    full_cost: np.ndarray  # repair + its verification (own check, then the unit)
+    id_rank: np.ndarray
+
+
+_REPAIR_TABLES: dict[int, tuple] = {}
+
+
+def _repair_table(model: Model) -> _RepairTable:
+    """Per-hypothesis repair costs as arrays, built once per model."""
+    hit = _REPAIR_TABLES.get(id(model))
+    if hit is not None and hit[0]() is model:
+        return hit[1]
+    import weakref
+
+    hyps = model.hypotheses
     top_cost = top_verification(model).cost
-    remaining, cost = 1.0, 0.0
-    for step in repair_order(model, ranked):
-        if step.cost is None:
+    repairable, repair_cost, full_cost = [], [], []
+    for h in hyps:
+        event = model.event_by_id.get(h)
+        repair = event.repair if event is not None else None
+        repairable.append(repair is not None)
+        cost = float(repair.cost) if repair is not None else 0.0
+        repair_cost.append(cost)
+        if repair is None:
+            full_cost.append(0.0)
             continue
-        verify = verification_for(model, step.id)
-        cost += remaining * (step.cost + verify.cost + (top_cost if verify.target != model.top else 0.0))
-        remaining -= step.p / total_p
-        if remaining <= 1e-12:
-            break
-    return cost
+        verify = verification_for(model, h)
+        full_cost.append(cost + verify.cost + (top_cost if verify.target != model.top else 0.0))
+    id_rank = np.empty(len(hyps), dtype=np.int64)
+    id_rank[np.argsort(np.array(hyps, dtype=object), kind="stable")] = np.arange(len(hyps))
+    table = _RepairTable({h: i for i, h in enumerate(hyps)}, np.array(repairable, dtype=bool),
+                         np.array(repair_cost), np.array(full_cost), id_rank)
+    _REPAIR_TABLES[id(model)] = (weakref.ref(model), table)
+    return table
 
 
 def expected_cost_ahead(engine: Engine, posterior: Posterior, candidates: tuple[str, ...], depth: int,

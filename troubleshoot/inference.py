@@ -112,6 +112,10 @@ class Engine:
             self._networks.pop(next(iter(self._networks)))
         return net, tree
 
+    def forget(self) -> None:
+        """Drop the posteriors kept in memory (the next propagation runs afresh)."""
+        self._posteriors.clear()
+
     @property
     def tree(self) -> JoinTree:
         """The join tree with no repairs (for reports: width, table size)."""

@@ -153,8 +153,12 @@ class Network:
         for fam in families.values():
             wanted.update(fam.nodes)
         closure = set(wanted)
-        for node in wanted:
-            closure.update(nx.ancestors(self.graph, node))
+        stack = list(wanted)
+        while stack:  # every ancestor, in one walk up the graph
+            for parent in self.graph.nodes[stack.pop()]["parents"]:
+                if parent not in closure:
+                    closure.add(parent)
+                    stack.append(parent)
         return [n for n in self.inference_nodes() if n in closure], families
 
 

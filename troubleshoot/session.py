@@ -92,7 +92,7 @@ DEFAULT_MIN_BITS = 0.01
 #: Default: suspects at or above this posterior form the ambiguity group.
 DEFAULT_GROUP_MIN_P = 0.05
 DEFAULT_VALUE_LOOKAHEAD = 3
-DEFAULT_VALUE_DEPTH = 2
+DEFAULT_VALUE_DEPTH = 1
 
 # Kinds of recorded observations.
 COMPLAINT, OBSERVATION, VERIFICATION = "complaint", "finding", "verification"
