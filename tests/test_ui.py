@@ -486,6 +486,24 @@ def test_larger_terminal_shows_whole_labels(tmp_path):
     assert run(scenario()) == 0
 
 
+def test_recommended_check_is_marked_and_under_the_cursor(tmp_path):
+    app, _ = new_app(tmp_path)
+
+    async def scenario():
+        async with app.run_test(size=(140, 40)) as pilot:
+            await settle(app, pilot)
+            await pilot.press("b")
+            await settle(app, pilot)
+            recommended = app.state.next_check
+            assert recommended is not None
+            assert app.screen.query_one("#checks").highlighted_check() == recommended.check
+            assert "► " + ("⚠ " if recommended.caution else "") + recommended.label in screen_text(app)
+            await pilot.press("q")
+        return app.return_code
+
+    assert run(scenario()) == 0
+
+
 # ---------------------------------------------------------------------- summary, command, boundaries
 
 

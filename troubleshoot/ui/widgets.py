@@ -163,7 +163,7 @@ def diagnosis_text(state) -> str:
         lines += repair_order_lines(state, limit=3)
         return "\n".join(lines)
     if state.status == "ambiguity":
-        lines = ["" + word + ": no check left tells these suspects apart. "
+        lines = [word + ": no check left is expected to save more than it costs. "
                  "Repair in this order (key r records a repair):"]
         lines += repair_order_lines(state)
         return "\n".join(lines)
@@ -220,7 +220,11 @@ class ChecksTable(DataTable):
         self.zebra_stripes = True
 
     def show(self, state, keep_cursor: bool = False) -> None:
-        """Fill the table; the cursor goes to the best check unless ``keep_cursor`` (a resize)."""
+        """Fill the table; the cursor goes to the recommended check unless ``keep_cursor`` (a resize).
+
+        The recommended check (the session's next check: of the best few by
+        score, the one expected to cost least to finish) is marked ``►``.
+        """
         unit = state.cost_unit
         keep = self.cursor_row if keep_cursor else 0
         self.clear(columns=True)
@@ -232,12 +236,17 @@ class ChecksTable(DataTable):
         self.add_column("Info", key="bits")
         self.add_column("Score", key="score")
         self.add_column("Odds n/abn", key="odds")
+        recommended = state.next_check.check if state.next_check is not None else None
         for i, row in enumerate(state.ranking, 1):
-            label = ("⚠ " if row.caution else "") + row.label
+            label = ("► " if row.check == recommended else "") + ("⚠ " if row.caution else "") + row.label
             self.add_row(str(i), truncate(label, label_width), cost_text(row.cost, unit), bits_text(row.bits),
                          score_text(row.score, unit), odds_text(row.p_outcomes), key=row.check)
         if state.ranking:
-            self.move_cursor(row=min(max(keep, 0), len(state.ranking) - 1) if keep else 0)
+            if keep:
+                self.move_cursor(row=min(max(keep, 0), len(state.ranking) - 1))
+            else:
+                ids = [r.check for r in state.ranking]
+                self.move_cursor(row=ids.index(recommended) if recommended in ids else 0)
 
     def highlighted_check(self) -> str | None:
         """Id of the check under the cursor, or None when the table is empty."""
