@@ -471,7 +471,7 @@ def test_every_panel_and_footer_key_fits_80_by_24(tmp_path, theme):
     assert run(scenario()) == 0
 
 
-def test_larger_terminal_shows_whole_labels(tmp_path):
+def test_larger_terminal_shows_whole_labels_and_marks_the_recommended_check(tmp_path):
     app, _ = new_app(tmp_path)
 
     async def scenario():
@@ -480,20 +480,7 @@ def test_larger_terminal_shows_whole_labels(tmp_path):
             await pilot.press("b")
             await settle(app, pilot)
             assert app.state.ranking[0].label in screen_text(app)
-            await pilot.press("q")
-        return app.return_code
-
-    assert run(scenario()) == 0
-
-
-def test_recommended_check_is_marked_and_under_the_cursor(tmp_path):
-    app, _ = new_app(tmp_path)
-
-    async def scenario():
-        async with app.run_test(size=(140, 40)) as pilot:
-            await settle(app, pilot)
-            await pilot.press("b")
-            await settle(app, pilot)
+            # The recommended check is marked and under the cursor.
             recommended = app.state.next_check
             assert recommended is not None
             assert app.screen.query_one("#checks").highlighted_check() == recommended.check

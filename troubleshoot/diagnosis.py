@@ -496,33 +496,3 @@ def cost_of_check_then(engine: Engine, posterior: Posterior, check_id: str, cost
         if total >= bound:
             return total
     return total
-
-
-def check_pays(engine: Engine, posterior: Posterior, check_id: str, cost: float,
-               p_outcomes: tuple[float, float], repair_cost_now: float | None = None) -> bool:
-    """Whether doing a check now is expected to cost less than repairing at once.
-
-    True when cost + sum_o P(o | e) ECR(e, o) < ECR(e), ECR being
-    :func:`expected_repair_cost` (a free informative check always pays).
-    Two propagations, one per outcome.
-
-    References
-    ----------
-    Heckerman, Breese & Rommelse 1995 (myopic value of information: observe, or repair now).
-    """
-    if cost <= 0.0:
-        return True
-    now = expected_repair_cost(posterior) if repair_cost_now is None else repair_cost_now
-    after = cost
-    findings = tuple(posterior.findings)
-    for outcome, p in enumerate(p_outcomes):
-        if p <= 0.0:
-            continue
-        try:
-            later = engine.propagate(findings + (Finding(check_id, outcome, posterior.epoch),), posterior.repairs)
-        except ImpossibleFindings:
-            continue
-        after += p * expected_repair_cost(later)
-        if after >= now:
-            return False
-    return after < now

@@ -47,3 +47,11 @@ def load_any_model(spec: str) -> tuple[Model, list[Problem]]:
     from troubleshoot.modelfile import load_model
 
     return load_model(str(path)), []
+
+
+def load_optional_model(spec: str | None) -> Model | None:
+    """The Model a ``--model`` option names, or None when it is not given."""
+    if not spec:
+        return None
+    model, _ = load_any_model(spec)
+    return model

@@ -27,13 +27,10 @@ def add_parser(subparsers, name):
 
 
 def run(args) -> int:
+    from troubleshoot.modelsource import load_optional_model
     from troubleshoot.sessionlog import replay_log
 
-    model = None
-    if args.model:
-        from troubleshoot.modelsource import load_any_model
-
-        model, _ = load_any_model(args.model)
+    model = load_optional_model(args.model)
     report = replay_log(args.log, model=model)
     for message in report.messages:
         print(f"troubleshoot: {message}", file=sys.stderr)

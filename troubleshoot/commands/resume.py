@@ -139,13 +139,10 @@ def interact(session: Session, stdin=None, stdout=None) -> None:
 
 
 def run(args) -> int:
+    from troubleshoot.modelsource import load_optional_model
     from troubleshoot.sessionlog import resume_session
 
-    model = None
-    if args.model:
-        from troubleshoot.modelsource import load_any_model
-
-        model, _ = load_any_model(args.model)
+    model = load_optional_model(args.model)
     session = resume_session(args.log, model=model)
     for warning in session.resume_warnings:
         print(f"troubleshoot: warning: {warning}", file=sys.stderr)
