@@ -33,13 +33,14 @@ def random_model(seed: int, n_events: int = 6, n_gates: int = 5, n_checks: int =
         k = rng.randint(1, width) if kind == "atleast" else None
         unlisted = rng.choice([None, None, 0.05]) if kind == "or" else None
         gates.append(Gate(f"g{j}", f"gate {j}", kind, inputs, k=k, unlisted=unlisted))
-    # The top reads the last gate and anything left unread, so everything is reachable.
+    # The top reads everything no gate reads, so every event is reachable;
+    # with a single such input it also reads the first event.
     read = {x for g in gates for x in g.operands}
     loose = [x for x in [e.id for e in events] + [g.id for g in gates] if x not in read]
-    top = Gate("top", "the unit fails", rng.choice(["or", "and"]) if len(loose) > 1 else "or",
-               tuple(loose) if len(loose) > 1 else tuple(loose) + (gates[-1].id,) * 0 + (events[0].id,))
-    if top.inputs == (loose[0], events[0].id) or len(set(top.inputs)) != len(top.inputs):
-        top = Gate("top", "the unit fails", "or", tuple(dict.fromkeys(top.inputs)))
+    if len(loose) > 1:
+        top = Gate("top", "the unit fails", rng.choice(["or", "and"]), tuple(loose))
+    else:
+        top = Gate("top", "the unit fails", "or", tuple(dict.fromkeys(loose + [events[0].id])))
     gates.append(top)
     targets = [e.id for e in events] + [g.id for g in gates]
     checks = []
