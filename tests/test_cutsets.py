@@ -14,6 +14,7 @@ import math
 import os
 from pathlib import Path
 
+import bruteforce
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
@@ -34,42 +35,13 @@ def tree(top: str, gates: list[Gate], priors: dict[str, float]) -> Model:
 
 def gate_values(model: Model, states: np.ndarray) -> np.ndarray:
     """Top event for each row of ``states`` (columns = model.hypotheses), evaluated
-    straight from the gate definitions: the brute-force reference."""
-    roots = list(model.hypotheses)
-    value = {r: states[:, i] for i, r in enumerate(roots)}
-
-    def of(node: str) -> np.ndarray:
-        if node in value:
-            return value[node]
-        g = model.gate_by_id[node]
-        ins = [of(x) for x in g.inputs]
-        if g.kind == "and":
-            v = np.logical_and.reduce(ins)
-        elif g.kind == "or":
-            v = np.logical_or.reduce(ins)
-        elif g.kind == "atleast":
-            v = np.sum(ins, axis=0) >= g.k
-        elif g.kind == "not":
-            v = ~ins[0]
-        elif g.kind == "inhibit":
-            v = ins[0] & of(g.condition)
-        else:
-            raise AssertionError(g.kind)
-        if g.unlisted is not None:
-            v = v | of(unlisted_id(g.id))
-        value[node] = v
-        return v
-
-    return of(model.top)
+    straight from the gate definitions: the brute-force reference (tests/bruteforce.py)."""
+    return bruteforce.evaluate(model, states, list(model.hypotheses), set())[model.top]
 
 
 def all_states(model: Model) -> tuple[np.ndarray, np.ndarray]:
     """Every joint root state (rows) and its prior weight."""
-    n = len(model.hypotheses)
-    codes = np.arange(2**n)
-    states = ((codes[:, None] >> np.arange(n)) & 1).astype(bool)
-    priors = np.array([model.prior_of(r) for r in model.hypotheses])
-    weight = np.prod(np.where(states, priors, 1.0 - priors), axis=1)
+    _, states, weight = bruteforce.root_states(model)
     return states, weight
 
 
