@@ -24,7 +24,8 @@ The protocol of a case (the same for every strategy):
    the next repair in the order recomputed from the new findings. The case
    ends when the unit is verified working; when the session isolates an
    unlisted-cause event ("outside-model": the tool says the cause lies
-   outside the model, under that gate, and the technician escalates); when
+   outside the model, under that gate, and the technician escalates; not in
+   the repair-only protocol, whose exact counterpart has no such stop); when
    no repairable suspect is left ("unresolved"); or at the step cap.
 
 Common random numbers: every draw of a case comes from generators seeded by
@@ -324,7 +325,8 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
                 result = equipment.answer(request.target, session.repairs)
             session.record_verification(result)
             continue
-        if view.isolated is not None and is_unlisted(model, view.isolated.id):
+        if checks_after_repair and view.isolated is not None and is_unlisted(model, view.isolated.id):
+            # The repair-only protocol (optimal's) has no such stop: repairs go on down the order.
             return "outside-model"
         if diagnosing:
             choice = strategy.choose(view, rng)
