@@ -30,7 +30,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.faulttree_bdd import FALSE, TRUE, FaultTreeBdd, deep_recursion
+from troubleshoot.faulttree_bdd import FALSE, TRUE, FaultTreeBdd, NodeStore, deep_recursion
 from troubleshoot.model import Model
 
 #: Empty family of sets.
@@ -50,7 +50,7 @@ class TooManyCutSets(TroubleshootError):
     """Listing the minimal cut sets would not fit in memory; the message says how to truncate."""
 
 
-class CutSetFamily:
+class CutSetFamily(NodeStore):
     """The minimal cut sets of a fault tree as a ZBDD.
 
     Node 0 is the empty family, node 1 the family {{}}; node ``i`` stands for
@@ -65,35 +65,23 @@ class CutSetFamily:
     def __init__(self, bdd: FaultTreeBdd):
         self.bdd = bdd
         n_vars = bdd.diagram.n_vars
-        self.var: list[int] = [n_vars, n_vars]
-        self.low: list[int] = [-1, -1]
-        self.high: list[int] = [-1, -1]
-        self._unique: dict[tuple[int, int, int], int] = {}
+        NodeStore.__init__(self, n_vars, bdd.diagram.node_limit)
         self._without_cache: dict[tuple[int, int], int] = {}
         self._minimal_cache: dict[int, int] = {FALSE: EMPTY, TRUE: BASE}
         self._has_empty: dict[int, bool] = {EMPTY: False, BASE: True}
-        self.node_limit = bdd.diagram.node_limit
         with deep_recursion(4 * n_vars + 1000):
             self.root = self._minimal(bdd.root)
 
     def _node(self, level: int, low: int, high: int) -> int:
         if high == EMPTY:  # zero-suppression rule
             return low
-        key = (level, low, high)
-        found = self._unique.get(key)
-        if found is not None:
-            return found
-        new = len(self.var)
-        if new >= self.node_limit:
-            raise TooManyCutSets(
-                f"the diagram of the minimal cut sets passed {self.node_limit:,} nodes; "
-                "rerun with --max-order or --min-probability to keep fewer cut sets"
-            )
-        self.var.append(level)
-        self.low.append(low)
-        self.high.append(high)
-        self._unique[key] = new
-        return new
+        return self.intern(level, low, high)
+
+    def too_large(self) -> TroubleshootError:
+        return TooManyCutSets(
+            f"the diagram of the minimal cut sets passed {self.node_limit:,} nodes; "
+            "rerun with --max-order or --min-probability to keep fewer cut sets"
+        )
 
     def _contains_empty(self, f: int) -> bool:
         found = self._has_empty.get(f)

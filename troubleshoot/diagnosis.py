@@ -28,6 +28,7 @@ import numpy as np
 from troubleshoot.errors import ImpossibleFindings
 from troubleshoot.inference import Engine, Finding, Posterior
 from troubleshoot.model import DERIVED, Model
+from troubleshoot.ranking import rank
 
 #: The most probable explanation search gives up (and says so) after this many propagations.
 MPE_MAX_PROPAGATIONS = 2000
@@ -466,8 +467,6 @@ def expected_cost_ahead(engine: Engine, posterior: Posterior, candidates: tuple[
     best = expected_repair_cost(posterior)
     if depth <= 0:
         return best
-    from troubleshoot.ranking import rank
-
     for row in rank(posterior, candidates).worth_doing(min_bits)[:breadth]:
         best = min(best, cost_of_check_then(engine, posterior, row.check, row.cost, row.p_outcomes,
                                             candidates, depth, breadth, min_bits, bound=best))

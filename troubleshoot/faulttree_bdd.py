@@ -102,7 +102,41 @@ def variable_order(model: Model) -> tuple[str, ...]:
     return tuple(order)
 
 
-class Diagram:
+class NodeStore:
+    """Hash-consed nodes (level, low, high) in three parallel lists, with a size limit.
+
+    Nodes 0 and 1 are the two terminals. Each diagram applies its own
+    reduction rule before :meth:`intern` and words its own refusal in
+    :meth:`too_large`.
+    """
+
+    def __init__(self, n_vars: int, node_limit: int):
+        self.node_limit = node_limit
+        self.var: list[int] = [n_vars, n_vars]
+        self.low: list[int] = [-1, -1]
+        self.high: list[int] = [-1, -1]
+        self._unique: dict[tuple[int, int, int], int] = {}
+
+    def intern(self, level: int, low: int, high: int) -> int:
+        """The one node (level, low, high), made if new; too_large() past the limit."""
+        key = (level, low, high)
+        found = self._unique.get(key)
+        if found is not None:
+            return found
+        new = len(self.var)
+        if new >= self.node_limit:
+            raise self.too_large()
+        self.var.append(level)
+        self.low.append(low)
+        self.high.append(high)
+        self._unique[key] = new
+        return new
+
+    def too_large(self) -> TroubleshootError:
+        raise NotImplementedError
+
+
+class Diagram(NodeStore):
     """A shared store of reduced ordered BDD nodes over ``n_vars`` levels.
 
     Node 0 is FALSE and node 1 is TRUE; every other node ``i`` tests the
@@ -113,11 +147,7 @@ class Diagram:
 
     def __init__(self, n_vars: int, node_limit: int = DEFAULT_NODE_LIMIT):
         self.n_vars = n_vars
-        self.node_limit = node_limit
-        self.var: list[int] = [n_vars, n_vars]
-        self.low: list[int] = [-1, -1]
-        self.high: list[int] = [-1, -1]
-        self._unique: dict[tuple[int, int, int], int] = {}
+        NodeStore.__init__(self, n_vars, node_limit)
         self._and_cache: dict[tuple[int, int], int] = {}
         self._or_cache: dict[tuple[int, int], int] = {}
         self._not_cache: dict[int, int] = {FALSE: TRUE, TRUE: FALSE}
@@ -129,22 +159,14 @@ class Diagram:
         """The unique node (level, low, high), reduced (low == high gives low)."""
         if low == high:
             return low
-        key = (level, low, high)
-        found = self._unique.get(key)
-        if found is not None:
-            return found
-        new = len(self.var)
-        if new >= self.node_limit:
-            raise DiagramTooLarge(
-                f"the decision diagram of this fault tree passed {self.node_limit:,} nodes; "
-                "the tree is too large for exact analysis in memory: analyse a subtree "
-                "(a gate below the top) or simplify repeated events"
-            )
-        self.var.append(level)
-        self.low.append(low)
-        self.high.append(high)
-        self._unique[key] = new
-        return new
+        return self.intern(level, low, high)
+
+    def too_large(self) -> TroubleshootError:
+        return DiagramTooLarge(
+            f"the decision diagram of this fault tree passed {self.node_limit:,} nodes; "
+            "the tree is too large for exact analysis in memory: analyse a subtree "
+            "(a gate below the top) or simplify repeated events"
+        )
 
     def variable(self, level: int) -> int:
         """The function "root event at ``level`` is failed"."""

@@ -312,7 +312,6 @@ class JoinTree:
         sizes = np.diff(self.offsets)
         self._blocks = []
         pos = np.empty(len(self.variables), dtype=np.int64)
-        start = 0
         flat_start = 0
         for size in sorted(set(int(s) for s in sizes)):
             k = int(round(math.log2(size)))
@@ -325,7 +324,6 @@ class JoinTree:
                     if self.var_host[var] == c:
                         pos[var] = flat_start + row * k + axis
             flat_start += len(ids) * k
-            start += len(ids)
         self._marginal_pos = pos
 
     # -- evidence --------------------------------------------------------

@@ -36,8 +36,6 @@ MAX_FANIN = 3
 #: Node roles in the network.
 ROOT, GATE, AUX, CHECK, CHECK_AUX = "root", "gate", "aux", "check", "check-aux"
 
-Operand = "str | bool"  # a node id, or a constant the logic folded to
-
 
 @dataclass(frozen=True)
 class CheckFamily:
