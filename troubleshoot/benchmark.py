@@ -22,6 +22,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Callable
 
+from troubleshoot.errors import ImpossibleFindings
 from troubleshoot.inference import Engine, Finding
 from troubleshoot.network import build_network
 from troubleshoot.synthetic import synthetic_model
@@ -68,7 +69,7 @@ def _findings(model, engine, seed: int) -> list[Finding]:
         trial = findings + [Finding(check.id, rng.randint(0, 1))]
         try:
             engine.propagate(trial)
-        except Exception:  # an impossible combination: leave that check out
+        except ImpossibleFindings:  # an impossible combination: leave that check out
             continue
         findings = trial
     return findings
