@@ -16,7 +16,7 @@ import pytest
 from test_cutsets import P_A, P_B, P_C, read_benchmark, shared_dir, tree
 
 from troubleshoot import cli
-from troubleshoot.faulttree_bdd import FaultTreeBdd
+from troubleshoot.analysis.bdd import FaultTreeBdd
 from troubleshoot.model import Gate, Model, unlisted_id
 
 REQUIRED_IMPORTANCE_KEYS = {"birnbaum", "fussell_vesely", "criticality", "raw", "rrw", "diagnostic"}
@@ -40,7 +40,7 @@ def run_cli(capsys, *argv) -> tuple[int, str, str]:
 @pytest.fixture
 def small_model_file(tmp_path):
     """(A + B.C) OR-ed with unlisted causes, written in our XML format."""
-    modelfile = pytest.importorskip("troubleshoot.modelfile", reason="the model file writer is absent")
+    modelfile = pytest.importorskip("troubleshoot.model.xmlfile", reason="the model file writer is absent")
     gates = [Gate("t", "unit fails", "or", ("A", "g"), unlisted=0.01), Gate("g", "both", "and", ("B", "C"))]
     model = tree("t", gates, {"A": P_A, "B": P_B, "C": P_C})
     path = tmp_path / "small.xml"
@@ -79,7 +79,7 @@ def test_json_has_the_documented_shape_and_the_handbook_figures(capsys, small_mo
 
 
 def test_infinite_rrw_is_null_in_json_and_inf_in_text(capsys, tmp_path):
-    modelfile = pytest.importorskip("troubleshoot.modelfile", reason="the model file writer is absent")
+    modelfile = pytest.importorskip("troubleshoot.model.xmlfile", reason="the model file writer is absent")
     model = tree("t", [Gate("t", "", "and", ("A", "B"))], {"A": P_A, "B": P_B})
     path = tmp_path / "and.xml"
     modelfile.save_model(model, path)
@@ -129,8 +129,8 @@ def test_bad_option_values_exit_2(capsys, small_model_file):
 
 
 def test_too_many_cut_sets_is_refused_with_exit_2(capsys, tmp_path, monkeypatch):
-    modelfile = pytest.importorskip("troubleshoot.modelfile", reason="the model file writer is absent")
-    import troubleshoot.cutsets as cutsets
+    modelfile = pytest.importorskip("troubleshoot.model.xmlfile", reason="the model file writer is absent")
+    import troubleshoot.analysis.cutsets as cutsets
 
     priors = {f"e{i}": 0.01 for i in range(10)}
     model = tree("t", [Gate("t", "", "atleast", tuple(priors), k=3)], priors)  # C(10,3) = 120 sets
@@ -154,7 +154,7 @@ def benchmark_path(name: str):
     shared = shared_dir()
     if shared is None:
         pytest.skip("../shared/benchmarks/aralia is absent (set TROUBLESHOOT_SHARED to the shared folder)")
-    pytest.importorskip("troubleshoot.mef", reason="the Open-PSA MEF reader troubleshoot.mef is absent")
+    pytest.importorskip("troubleshoot.model.mef.read", reason="the Open-PSA MEF reader troubleshoot.model.mef.read is absent")
     return shared / "benchmarks" / "aralia" / f"{name}.xml"
 
 
@@ -228,8 +228,8 @@ def pyagrum_top_probability(model: Model) -> float:
 
 
 def demo_model(name: str) -> Model:
-    demos = pytest.importorskip("troubleshoot.demos")
-    modelfile = pytest.importorskip("troubleshoot.modelfile", reason="the model file reader is absent")
+    demos = pytest.importorskip("troubleshoot.model.demos")
+    modelfile = pytest.importorskip("troubleshoot.model.xmlfile", reason="the model file reader is absent")
     path = demos.demo_path(name)
     if not path.is_file():
         pytest.skip(f"the demo model file {path.name} does not exist yet")
@@ -239,7 +239,7 @@ def demo_model(name: str) -> Model:
 def exact_three_ways(model: Model) -> tuple[float, float | None, float]:
     bdd = FaultTreeBdd.from_model(model).probability()
     try:
-        from troubleshoot.inference import Engine
+        from troubleshoot.engine.inference import Engine
     except ModuleNotFoundError:
         engine = None
     else:

@@ -10,8 +10,8 @@ from pathlib import Path
 import pytest
 
 from troubleshoot.cli import main
-from troubleshoot.demos import demo_path
-from troubleshoot.modelfile import load_model
+from troubleshoot.model.demos import demo_path
+from troubleshoot.model.xmlfile import load_model
 
 BAD = Path(__file__).parent / "bad_models"
 MARK = "expected problem"

@@ -20,8 +20,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from troubleshoot.cutsets import TooManyCutSets, minimal_cut_sets
-from troubleshoot.faulttree_bdd import FaultTreeBdd, variable_order
+from troubleshoot.analysis.cutsets import TooManyCutSets, minimal_cut_sets
+from troubleshoot.analysis.bdd import FaultTreeBdd, variable_order
 from troubleshoot.model import BasicEvent, Gate, Model, unlisted_id
 
 # --------------------------------------------------------------------------- helpers
@@ -288,7 +288,7 @@ def read_benchmark(name: str) -> Model:
     shared = shared_dir()
     if shared is None:
         pytest.skip("../shared/benchmarks/aralia is absent (set TROUBLESHOOT_SHARED to the shared folder)")
-    mef = pytest.importorskip("troubleshoot.mef", reason="the Open-PSA MEF reader troubleshoot.mef is absent")
+    mef = pytest.importorskip("troubleshoot.model.mef.read", reason="the Open-PSA MEF reader troubleshoot.model.mef.read is absent")
     model, _ = mef.read_mef(shared / "benchmarks" / "aralia" / f"{name}.xml")
     return model
 

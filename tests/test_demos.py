@@ -7,9 +7,9 @@ import re
 import pytest
 
 from troubleshoot.commands.check import repeated_events
-from troubleshoot.demos import DEFAULT_DEMO, DEMOS, demo_path
+from troubleshoot.model.demos import DEFAULT_DEMO, DEMOS, demo_path
 from troubleshoot.model import exponential_probability
-from troubleshoot.modelfile import load_model_with_warnings
+from troubleshoot.model.xmlfile import load_model_with_warnings
 
 # Words in a check's instructions that mean the work itself carries a hazard
 # (electrical, stored pressure, refrigerant, rotating parts): common practice

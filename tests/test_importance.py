@@ -17,8 +17,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from test_cutsets import P_A, P_B, P_C, fault_trees, gate_values, read_benchmark, tree
 
-from troubleshoot.faulttree_bdd import FaultTreeBdd
-from troubleshoot.importance import importance_measures
+from troubleshoot.analysis.bdd import FaultTreeBdd
+from troubleshoot.analysis.importance import importance_measures
 from troubleshoot.model import Gate
 
 
@@ -109,7 +109,7 @@ def test_unlisted_cause_is_a_root_with_its_own_measures():
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(fault_trees())
 def test_bdd_and_join_tree_engine_agree(model):
-    inference = pytest.importorskip("troubleshoot.inference", reason="the join-tree engine is absent")
+    inference = pytest.importorskip("troubleshoot.engine.inference", reason="the join-tree engine is absent")
     engine = inference.Engine(model)
     bdd = FaultTreeBdd.from_model(model)
     assert abs(engine.propagate([]).p_failed(model.top) - bdd.probability()) <= 1e-12
@@ -129,7 +129,7 @@ def test_bdd_and_engine_agree_on_the_aralia_trees(name):
     # Two independent exact computations (Shannon decomposition, join tree) of the
     # published P(top) (Rauzy et al. 2003, via openpra-org/generic-openpsa-models).
     model = read_benchmark(name)
-    inference = pytest.importorskip("troubleshoot.inference", reason="the join-tree engine is absent")
+    inference = pytest.importorskip("troubleshoot.engine.inference", reason="the join-tree engine is absent")
     engine = inference.Engine(model)
     bdd = FaultTreeBdd.from_model(model)
     assert abs(engine.propagate([]).p_failed(model.top) - bdd.probability()) <= 1e-12

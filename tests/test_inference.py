@@ -18,9 +18,9 @@ from hypothesis import strategies as st
 from bruteforce import posterior as brute_posterior
 from randommodels import random_model
 from troubleshoot.errors import ImpossibleFindings, NetworkTooLarge, SessionError
-from troubleshoot.inference import Engine, Finding
+from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model
-from troubleshoot.network import build_network
+from troubleshoot.engine.network import build_network
 
 TOL = 1e-9
 
@@ -227,13 +227,13 @@ def test_too_large_is_refused_before_allocation():
 # -- reference libraries on exported XMLBIF -----------------------------------
 
 def _demo_models():
-    from troubleshoot.demos import DEMOS, demo_path
+    from troubleshoot.model.demos import DEMOS, demo_path
 
     out = []
     for name in DEMOS:
         path = demo_path(name)
         if path.is_file():
-            from troubleshoot.modelfile import load_model
+            from troubleshoot.model.xmlfile import load_model
 
             out.append(load_model(path))
     return out
@@ -271,7 +271,7 @@ def _evidence_by_name(model, findings):
 def test_pyagrum_lazy_propagation_agrees(tmp_path):
     # Reference: pyAgrum LazyPropagation on our XMLBIF export.
     gum = pytest.importorskip("pyagrum")
-    from troubleshoot.xmlbif import network_to_xmlbif
+    from troubleshoot.engine.xmlbif import network_to_xmlbif
 
     rng = random.Random(7)
     for model in _reference_models():
@@ -296,7 +296,7 @@ def test_pgmpy_variable_elimination_agrees(tmp_path):
         warnings.simplefilter("ignore")
         from pgmpy.inference import VariableElimination
         from pgmpy.readwrite import XMLBIFReader
-    from troubleshoot.xmlbif import network_to_xmlbif
+    from troubleshoot.engine.xmlbif import network_to_xmlbif
 
     rng = random.Random(8)
     for model in _reference_models():
@@ -340,7 +340,7 @@ def test_aralia_top_event_probability(file_name):
     folder = _shared()
     if folder is None:
         pytest.skip("shared/benchmarks/aralia not found beside the repository (set TROUBLESHOOT_SHARED)")
-    from troubleshoot.mef import read_mef
+    from troubleshoot.model.mef.read import read_mef
 
     model, _ = read_mef(str(folder / file_name))
     p = Engine(model).propagate().p_failed(model.top)

@@ -21,7 +21,7 @@ import pytest
 
 from troubleshoot import cli
 from troubleshoot.errors import ModelError
-from troubleshoot.mef import DEFAULT_MISSION_TIME_HOURS, read_mef, write_mef
+from troubleshoot.model.mef.read import DEFAULT_MISSION_TIME_HOURS, read_mef, write_mef
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, exponential_probability
 
 FILES = Path(__file__).resolve().parent / "mef_files"
@@ -47,9 +47,9 @@ def aralia_file(name: str) -> Path:
 
 def validation_errors(model: Model) -> list[str]:
     try:
-        from troubleshoot.validate import validate_model
+        from troubleshoot.model.validate import validate_model
     except ImportError:
-        pytest.skip("troubleshoot.validate is not available in this installation")
+        pytest.skip("troubleshoot.model.validate is not available in this installation")
     return [str(p) for p in validate_model(model) if p.severity == "error"]
 
 
@@ -382,9 +382,9 @@ def test_import_command_on_bad_file_exits_2_with_file_and_line(name, line, tmp_p
 
 def test_import_command_writes_a_model_file(tmp_path, capsys):
     try:
-        from troubleshoot.modelfile import load_model
+        from troubleshoot.model.xmlfile import load_model
     except ImportError:
-        pytest.skip("troubleshoot.modelfile is not available in this installation")
+        pytest.skip("troubleshoot.model.xmlfile is not available in this installation")
     out = tmp_path / "small.xml"
     status = cli.main(["import-mef", str(FILES / "small_tree.xml"), "-o", str(out)])
     captured = capsys.readouterr()

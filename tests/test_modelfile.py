@@ -12,18 +12,18 @@ from hypothesis import HealthCheck, given, settings
 from lxml import etree
 from strategies import models
 
-from troubleshoot.demos import DEMOS, demo_path
+from troubleshoot.model.demos import DEMOS, demo_path
 from troubleshoot.errors import ModelError
 from troubleshoot.model import BasicEvent, Gate, Model, exponential_probability
-from troubleshoot.modelfile import (
+from troubleshoot.model.xmlfile import (
     load_model,
     load_model_with_warnings,
     model_schema,
     save_model,
     schema_path,
 )
-from troubleshoot.validate import validate_model
-from troubleshoot.xmlsafe import parse_xml_file
+from troubleshoot.model.validate import validate_model
+from troubleshoot.model.xmlsafe import parse_xml_file
 
 BAD = Path(__file__).parent / "bad_models"
 

@@ -1,7 +1,7 @@
 """The exact optimal policy and exact expected costs, checked by brute force.
 
 Reference: every probability here comes from tests/bruteforce.py (enumeration
-of every root state, independent of the engine and of troubleshoot.optimal),
+of every root state, independent of the engine and of troubleshoot.study.optimal),
 and the optimum from a plain recursion over every policy, without memoisation
 or pruning (Bellman 1957).
 """
@@ -16,13 +16,13 @@ import pytest
 
 import bruteforce
 from randommodels import random_model
-from troubleshoot.diagnosis import Suspect, is_unlisted
+from troubleshoot.advice.diagnosis import Suspect, is_unlisted
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair, Verification
-from troubleshoot.optimal import Enumeration, OptimalTooLarge, expected_cost, repair_phase_cost, solve
+from troubleshoot.study.optimal import Enumeration, OptimalTooLarge, expected_cost, repair_phase_cost, solve
 from troubleshoot.session import settings_for, verification_for
-from troubleshoot.simulation import next_repair, repair_cost
-from troubleshoot.strategies import STRATEGY_NAMES, make_strategy
-from troubleshoot.synthetic import synthetic_model
+from troubleshoot.study.simulation import next_repair, repair_cost
+from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy
+from troubleshoot.study.synthetic import synthetic_model
 
 TOLERANCE = 1e-9  # exact paths (DESIGN.md)
 
@@ -174,7 +174,7 @@ def test_strategy_exact_cost_matches_bruteforce_and_is_no_better_than_optimal(na
 
 @pytest.mark.parametrize("seed", range(6))
 def test_optimal_is_a_lower_bound_on_generated_models(seed):
-    # Models from troubleshoot.synthetic and tests/randommodels (every gate kind, unlisted causes).
+    # Models from troubleshoot.study.synthetic and tests/randommodels (every gate kind, unlisted causes).
     models = [synthetic_model(6 + seed % 3, seed), random_model(seed, n_events=5, n_gates=3, n_checks=3)]
     for model in models:
         settings = settings_for(model)

@@ -18,7 +18,7 @@ from hypothesis import strategies as st
 
 import bruteforce as bf
 from randommodels import random_model
-from troubleshoot.diagnosis import (
+from troubleshoot.advice.diagnosis import (
     Suspect,
     entropy_bits,
     most_probable_explanation,
@@ -26,9 +26,9 @@ from troubleshoot.diagnosis import (
     suspects,
 )
 from troubleshoot.errors import ImpossibleFindings
-from troubleshoot.inference import Engine, Finding
+from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair
-from troubleshoot.ranking import information_bits, rank, score_of
+from troubleshoot.advice.ranking import information_bits, rank, score_of
 
 TOL = 1e-9  # exact paths (DESIGN.md, Numbers)
 

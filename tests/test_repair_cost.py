@@ -7,9 +7,9 @@ import random
 import pytest
 
 from randommodels import random_model
-from troubleshoot.diagnosis import expected_repair_cost, repair_order, suspects, top_verification, verification_for
+from troubleshoot.advice.diagnosis import expected_repair_cost, repair_order, suspects, top_verification, verification_for
 from troubleshoot.errors import ImpossibleFindings
-from troubleshoot.inference import Engine, Finding
+from troubleshoot.engine.inference import Engine, Finding
 
 
 def plain_expected_repair_cost(posterior) -> float:

@@ -35,8 +35,8 @@ MAX_STEPS = 200
 
 
 def load_demo(name: str):
-    from troubleshoot.demos import demo_path
-    from troubleshoot.modelfile import load_model
+    from troubleshoot.model.demos import demo_path
+    from troubleshoot.model.xmlfile import load_model
 
     path = demo_path(name)
     if not path.is_file():

@@ -15,7 +15,7 @@ import pytest
 
 import bruteforce as bf
 from troubleshoot.errors import ImpossibleFindings, SessionError, TroubleshootError
-from troubleshoot.inference import Engine, Finding
+from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair, Verification
 from troubleshoot.session import (
     AMBIGUITY,

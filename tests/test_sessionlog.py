@@ -19,8 +19,8 @@ import pytest
 from test_session import pump_model
 from troubleshoot.cli import main
 from troubleshoot.errors import LogError
-from troubleshoot.modelfile import save_model
-from troubleshoot.sessionlog import (
+from troubleshoot.model.xmlfile import save_model
+from troubleshoot.session.logfile import (
     file_sha256,
     new_session,
     read_log,
@@ -144,7 +144,7 @@ def test_damaged_middle_line_is_an_error(model_file, tmp_path):
 
 SCRIPT = """
 import json, sys
-from troubleshoot.sessionlog import new_session
+from troubleshoot.session.logfile import new_session
 session = new_session(sys.argv[1], sys.argv[2])
 print("ready", flush=True)
 for line in sys.stdin:

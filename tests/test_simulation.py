@@ -18,13 +18,13 @@ import pytest
 import bruteforce
 from test_optimal import reference_strategy_cost, small_model
 from troubleshoot.cli import main
-from troubleshoot.inference import Engine
-from troubleshoot.modelfile import save_model
-from troubleshoot.optimal import solve
+from troubleshoot.engine.inference import Engine
+from troubleshoot.model.xmlfile import save_model
+from troubleshoot.study.optimal import solve
 from troubleshoot.session import settings_for
-from troubleshoot.simulation import (case_generator, draw_case, sample_true_state, simulate, summarise,
+from troubleshoot.study.simulation import (case_generator, draw_case, sample_true_state, simulate, summarise,
                                      true_values)
-from troubleshoot.strategies import STRATEGY_NAMES, make_strategy
+from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy
 
 
 def test_true_state_is_drawn_from_the_posterior_given_the_complaint():

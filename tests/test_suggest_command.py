@@ -12,8 +12,8 @@ import pytest
 import bruteforce as bf
 from test_session import pump_model
 from troubleshoot.cli import main
-from troubleshoot.inference import Finding
-from troubleshoot.modelfile import save_model
+from troubleshoot.engine.inference import Finding
+from troubleshoot.model.xmlfile import save_model
 
 TOL = 1e-9
 CONTRACT_KEYS = {"model", "log_p_findings", "entropy_bits", "suspects", "ranking", "explanation",
@@ -103,7 +103,7 @@ def test_bad_arguments_exit_2_with_a_clear_message(model_file, capsys, args, wor
 
 
 def test_demo_model_by_name(capsys):
-    from troubleshoot.demos import demo_path
+    from troubleshoot.model.demos import demo_path
 
     if not demo_path("rooftop").is_file():
         pytest.skip("the rooftop demo model is not installed")

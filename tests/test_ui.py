@@ -20,7 +20,7 @@ from pathlib import Path
 import pytest
 from rich.console import Console
 
-from troubleshoot.summary import summary_markdown, summary_path
+from troubleshoot.session.summary import summary_markdown, summary_path
 from troubleshoot.ui.app import TroubleshootApp
 from troubleshoot.ui.screens import (
     SAFETY_NOTICE,
@@ -37,12 +37,12 @@ from troubleshoot.ui.screens import (
 
 SIZE = (80, 24)
 UI_SOURCES = sorted((Path(__file__).resolve().parents[1] / "troubleshoot" / "ui").glob("*.py")) + [
-    Path(__file__).resolve().parents[1] / "troubleshoot" / "summary.py"
+    Path(__file__).resolve().parents[1] / "troubleshoot" / "session" / "summary.py"
 ]
 
 
 def sessionlog():
-    return pytest.importorskip("troubleshoot.sessionlog", reason="the session log module is not written yet")
+    return pytest.importorskip("troubleshoot.session.logfile", reason="the session log module is not written yet")
 
 
 def screen_text(app) -> str:
@@ -528,8 +528,8 @@ def test_start_command_refuses_an_unknown_model(capsys, tmp_path):
 
 def test_ui_imports_neither_numpy_nor_the_numeric_core():
     # DESIGN.md: the TUI never imports numpy and never computes posteriors or rankings.
-    forbidden = {"numpy", "troubleshoot.inference", "troubleshoot.ranking", "troubleshoot.jointree",
-                 "troubleshoot.network", "troubleshoot.diagnosis"}
+    forbidden = {"numpy", "troubleshoot.engine.inference", "troubleshoot.advice.ranking", "troubleshoot.engine.jointree",
+                 "troubleshoot.engine.network", "troubleshoot.advice.diagnosis"}
     for source in UI_SOURCES:
         tree = ast.parse(source.read_text(encoding="utf-8"))
         for node in ast.walk(tree):

@@ -41,7 +41,7 @@ def _wait_for(predicate, what: str):
 
 
 def test_start_in_tmux_shows_the_top_check_and_quits_with_status_0(tmp_path):
-    from troubleshoot.sessionlog import new_session
+    from troubleshoot.session.logfile import new_session
 
     # What the screen should show first: the top-ranked check of the demo before any finding.
     probe = new_session("rooftop", write_log=False)

@@ -18,7 +18,7 @@ from troubleshoot.model import (
     Verification,
     exponential_probability,
 )
-from troubleshoot.validate import (
+from troubleshoot.model.validate import (
     errors_only,
     is_valid_id,
     validate_model,

@@ -19,14 +19,14 @@ def load_model(path):
 
     Raises ModelError listing every problem (file:line and the fix) in one pass.
     """
-    from troubleshoot.modelfile import load_model as _load
+    from troubleshoot.model.xmlfile import load_model as _load
 
     return _load(path)
 
 
 def save_model(model, path):
     """Write a Model in the XML model format; load_model of it gives an equal Model."""
-    from troubleshoot.modelfile import save_model as _save
+    from troubleshoot.model.xmlfile import save_model as _save
 
     return _save(model, path)
 

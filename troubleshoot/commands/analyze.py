@@ -21,10 +21,10 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from troubleshoot.cutsets import CutSetAnalysis, minimal_cut_sets
+from troubleshoot.analysis.cutsets import CutSetAnalysis, minimal_cut_sets
 from troubleshoot.errors import NetworkTooLarge, TroubleshootError
-from troubleshoot.faulttree_bdd import FaultTreeBdd
-from troubleshoot.importance import Importance, importance_measures
+from troubleshoot.analysis.bdd import FaultTreeBdd
+from troubleshoot.analysis.importance import Importance, importance_measures
 from troubleshoot.model import Model
 
 #: How the probability cut away by truncation is bounded (said in every output).
@@ -90,7 +90,7 @@ def _probability(text: str) -> float:
 # --------------------------------------------------------------------------- loading
 
 
-from troubleshoot.modelsource import load_any_model  # noqa: E402  (MODEL is read the same way by every command)
+from troubleshoot.model.source import load_any_model  # noqa: E402  (MODEL is read the same way by every command)
 
 
 # --------------------------------------------------------------------------- figures
@@ -111,7 +111,7 @@ class FaultTreeFigures:
 
 def exact_top_probability(model: Model) -> tuple[float | None, str]:
     """P(top) from the join-tree engine, or (None, reason) when it cannot run."""
-    from troubleshoot.inference import Engine
+    from troubleshoot.engine.inference import Engine
 
     try:
         engine = Engine(model)

@@ -7,7 +7,7 @@ import sys
 
 
 def add_parser(subparsers, name):
-    from troubleshoot.benchmark import REFERENCE_BUDGET_S, SIZES
+    from troubleshoot.study.benchmark import REFERENCE_BUDGET_S, SIZES
 
     p = subparsers.add_parser(
         name, help="measure compile and propagation speed, memory, and speed against pgmpy and pyAgrum",
@@ -25,7 +25,7 @@ def add_parser(subparsers, name):
 
 
 def run(args) -> int:
-    from troubleshoot.benchmark import as_json, as_table, run_size
+    from troubleshoot.study.benchmark import as_json, as_table, run_size
 
     def progress(text):
         print(f"bench: {text}", file=sys.stderr, flush=True)

@@ -10,9 +10,9 @@ import json
 from collections import Counter
 from pathlib import Path
 
-from troubleshoot.demos import DEMOS, demo_path
+from troubleshoot.model.demos import DEMOS, demo_path
 from troubleshoot.model import Model
-from troubleshoot.modelfile import load_model_with_warnings
+from troubleshoot.model.xmlfile import load_model_with_warnings
 
 
 def add_parser(subparsers, name):

@@ -20,13 +20,13 @@ def add_parser(subparsers, name):
 
 
 def run(args) -> int:
-    from troubleshoot.modelsource import load_any_model
+    from troubleshoot.model.source import load_any_model
 
     model, warnings = load_any_model(args.model)
     for w in warnings:
         print(f"troubleshoot: {w}", file=sys.stderr)
     if args.format == "mef":
-        from troubleshoot.mef import write_mef
+        from troubleshoot.model.mef.read import write_mef
 
         if not args.output:
             import tempfile
@@ -38,15 +38,15 @@ def run(args) -> int:
             return 0
         write_mef(model, args.output)
     else:
-        from troubleshoot.network import build_network
+        from troubleshoot.engine.network import build_network
 
         net = build_network(model)
         if args.format == "xmlbif":
-            from troubleshoot.xmlbif import network_to_xmlbif
+            from troubleshoot.engine.xmlbif import network_to_xmlbif
 
             data = network_to_xmlbif(net)
         else:
-            from troubleshoot.graphviz import network_to_dot
+            from troubleshoot.engine.graphviz import network_to_dot
 
             data = network_to_dot(net).encode("utf-8")
         if args.output:

@@ -26,7 +26,7 @@ def add_parser(subparsers, name):
 
 
 def run(args) -> int:
-    from troubleshoot.mef import read_mef
+    from troubleshoot.model.mef.read import read_mef
 
     if args.mission_time is not None and not args.mission_time >= 0:
         raise TroubleshootError("--mission-time must be a number of hours, 0 or more")
@@ -34,7 +34,7 @@ def run(args) -> int:
     for problem in report:
         print(f"troubleshoot: {problem}", file=sys.stderr)
     try:
-        from troubleshoot.validate import validate_model
+        from troubleshoot.model.validate import validate_model
     except ImportError:
         validate_model = None
     if validate_model is not None:
@@ -46,7 +46,7 @@ def run(args) -> int:
         if errors:
             raise ModelError(errors)
     try:
-        from troubleshoot.modelfile import save_model
+        from troubleshoot.model.xmlfile import save_model
     except ImportError as exc:
         raise TroubleshootError("writing model files is not available in this installation "
                                 f"({exc}); reinstall troubleshoot") from None

@@ -27,8 +27,8 @@ def add_parser(subparsers, name):
 
 
 def run(args) -> int:
-    from troubleshoot.modelsource import load_optional_model
-    from troubleshoot.sessionlog import replay_log
+    from troubleshoot.model.source import load_optional_model
+    from troubleshoot.session.logfile import replay_log
 
     model = load_optional_model(args.model)
     report = replay_log(args.log, model=model)

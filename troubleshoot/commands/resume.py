@@ -7,7 +7,7 @@ it reads one command per line instead.
 The log is re-run from the model, a torn last line (the session was killed
 while writing it) is reported and cut off, and every new action is appended
 after the last good line. The prompt takes one command per line; ``help``
-lists them. The terminal UI reuses :func:`troubleshoot.sessionlog.resume_session`.
+lists them. The terminal UI reuses :func:`troubleshoot.session.logfile.resume_session`.
 """
 
 from __future__ import annotations
@@ -139,8 +139,8 @@ def interact(session: Session, stdin=None, stdout=None) -> None:
 
 
 def run(args) -> int:
-    from troubleshoot.modelsource import load_optional_model
-    from troubleshoot.sessionlog import resume_session
+    from troubleshoot.model.source import load_optional_model
+    from troubleshoot.session.logfile import resume_session
 
     model = load_optional_model(args.model)
     session = resume_session(args.log, model=model)

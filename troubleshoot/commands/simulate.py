@@ -21,7 +21,7 @@ class SimulationError(TroubleshootError):
 
 
 def add_parser(subparsers, name):
-    from troubleshoot.strategies import STRATEGY_NAMES
+    from troubleshoot.study.strategies import STRATEGY_NAMES
 
     parser = subparsers.add_parser(
         name,
@@ -78,11 +78,11 @@ def _progress(model_name: str):
 
 
 def run(args) -> int:
-    from troubleshoot.modelsource import load_any_model
-    from troubleshoot.optimal import OptimalTooLarge, expected_cost, solve
+    from troubleshoot.model.source import load_any_model
+    from troubleshoot.study.optimal import OptimalTooLarge, expected_cost, solve
     from troubleshoot.session import settings_for
-    from troubleshoot.simulation import default_workers, simulate, summarise
-    from troubleshoot.strategies import STRATEGY_NAMES, make_strategy
+    from troubleshoot.study.simulation import default_workers, simulate, summarise
+    from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy
 
     _check_arguments(args)
     plt = _require_matplotlib() if args.plot else None

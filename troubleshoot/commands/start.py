@@ -7,7 +7,7 @@ works; ``troubleshoot resume LOG`` reopens it where it stopped.
 
 from __future__ import annotations
 
-from troubleshoot.demos import DEFAULT_DEMO, DEMOS
+from troubleshoot.model.demos import DEFAULT_DEMO, DEMOS
 from troubleshoot.errors import SessionError
 
 
@@ -31,8 +31,8 @@ def add_parser(subparsers, name):
 
 
 def run(args) -> int:
-    from troubleshoot.modelsource import resolve_model_path
-    from troubleshoot.sessionlog import new_session
+    from troubleshoot.model.source import resolve_model_path
+    from troubleshoot.session.logfile import new_session
     from troubleshoot.ui.app import run_app
 
     if args.threshold is not None and not 0.0 < args.threshold <= 1.0:

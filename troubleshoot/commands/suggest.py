@@ -190,7 +190,7 @@ def render_text(session: Session) -> str:
 
 
 def run(args) -> int:
-    from troubleshoot.modelsource import load_any_model, resolve_model_path
+    from troubleshoot.model.source import load_any_model, resolve_model_path
 
     path = resolve_model_path(args.model)
     model, warnings = load_any_model(str(path))

@@ -24,7 +24,7 @@ from textual.app import App
 from textual.binding import Binding
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.summary import summary_markdown, summary_path
+from troubleshoot.session.summary import summary_markdown, summary_path
 from troubleshoot.ui.screens import (
     CheckCard,
     CheckScreen,
@@ -264,8 +264,8 @@ def run_app(session, fresh: bool | None = None) -> int:
     Parameters
     ----------
     session : Session
-        From :func:`troubleshoot.sessionlog.new_session` or
-        :func:`troubleshoot.sessionlog.resume_session`.
+        From :func:`troubleshoot.session.logfile.new_session` or
+        :func:`troubleshoot.session.logfile.resume_session`.
     fresh : bool, optional
         Show the start screen (symptoms); default: when the session holds no action yet.
 
@@ -284,6 +284,6 @@ def run_app(session, fresh: bool | None = None) -> int:
 
 
 if __name__ == "__main__":  # pragma: no cover - python -m troubleshoot.ui.app MODEL
-    from troubleshoot.sessionlog import new_session
+    from troubleshoot.session.logfile import new_session
 
     sys.exit(run_app(new_session(sys.argv[1] if len(sys.argv) > 1 else "rooftop")))

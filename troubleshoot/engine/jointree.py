@@ -35,7 +35,7 @@ import numpy as np
 
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.model import DERIVED
-from troubleshoot.network import Network
+from troubleshoot.engine.network import Network
 
 #: Default ceiling on the memory the tables may take, in bytes.
 DEFAULT_MEMORY_BUDGET = 2 * 1024**3
@@ -103,7 +103,7 @@ def _min_fill_order(adjacency: dict[int, set[int]]) -> list[int]:
 
 
 class JoinTree:
-    """A compiled join tree over a :class:`~troubleshoot.network.Network`.
+    """A compiled join tree over a :class:`~troubleshoot.engine.network.Network`.
 
     Parameters
     ----------

@@ -20,7 +20,7 @@ The protocol of a case (the same for every strategy):
    check if the model names one, then the unit itself). A failed
    verification sends the case back to step 2 with the repair taken into
    account (``checks_after_repair``, the tool's own behaviour), or, in the
-   repair-only protocol (where :mod:`troubleshoot.optimal` is exact), on to
+   repair-only protocol (where :mod:`troubleshoot.study.optimal` is exact), on to
    the next repair in the order recomputed from the new findings. The case
    ends when the unit is verified working; when the session isolates an
    unlisted-cause event ("outside-model": the tool says the cause lies
@@ -52,10 +52,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.diagnosis import Suspect, ambiguity_group, is_unlisted, repair_order
+from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, is_unlisted, repair_order
 from troubleshoot.errors import NetworkTooLarge
-from troubleshoot.inference import Engine, Finding
-from troubleshoot.logic import gate_values
+from troubleshoot.engine.inference import Engine, Finding
+from troubleshoot.model.gates import gate_values
 from troubleshoot.model import Model
 from troubleshoot.session import (
     AWAITING_VERIFICATION,
@@ -104,7 +104,7 @@ def next_repair(model: Model, ranked: tuple[Suspect, ...], group_min_p: float) -
     Returns
     -------
     str or None
-        The first repairable suspect of :func:`~troubleshoot.diagnosis.repair_order`
+        The first repairable suspect of :func:`~troubleshoot.advice.diagnosis.repair_order`
         over the ambiguity group; when the group holds none, over every
         unrepaired suspect with P > :data:`CLEARED_P`; None when no
         repairable suspect is left.
@@ -404,7 +404,7 @@ _WORKER: dict = {}
 
 def _init_worker(model: Model, strategy_specs, seed: int, settings: SessionSettings,
                  checks_after_repair: bool = True) -> None:
-    from troubleshoot.strategies import make_strategy
+    from troubleshoot.study.strategies import make_strategy
 
     _WORKER["engine"] = Engine(model)
     _WORKER["strategies"] = [make_strategy(name, policy) for name, policy in strategy_specs]
@@ -447,7 +447,7 @@ def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str
     progress : callable, optional
         Called with (cases done, cases) now and then.
     checks_after_repair : bool
-        See :func:`run_case`; False is the repair-only protocol of :mod:`troubleshoot.optimal`.
+        See :func:`run_case`; False is the repair-only protocol of :mod:`troubleshoot.study.optimal`.
 
     Returns
     -------

@@ -32,7 +32,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from troubleshoot.faulttree_bdd import FaultTreeBdd
+from troubleshoot.analysis.bdd import FaultTreeBdd
 from troubleshoot.model import Model
 
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from troubleshoot.network import AUX, CHECK, CHECK_AUX, GATE, ROOT, Network
+from troubleshoot.engine.network import AUX, CHECK, CHECK_AUX, GATE, ROOT, Network
 
 #: Shape per role, so the kind of a node reads without colour.
 _SHAPES = {ROOT: "ellipse", GATE: "box", AUX: "box", CHECK: "diamond", CHECK_AUX: "diamond"}

@@ -19,9 +19,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from troubleshoot.errors import ImpossibleFindings, SessionError
-from troubleshoot.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability
+from troubleshoot.engine.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability
 from troubleshoot.model import Model
-from troubleshoot.network import CheckFamily, Network, build_network
+from troubleshoot.engine.network import CheckFamily, Network, build_network
 
 
 @dataclass(frozen=True)

@@ -35,7 +35,7 @@ from typing import Iterable
 
 import numpy as np
 
-from troubleshoot.inference import Posterior
+from troubleshoot.engine.inference import Posterior
 from troubleshoot.model import Check
 
 #: Information below this many bits is treated as exactly zero (floating-point

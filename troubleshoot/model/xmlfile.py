@@ -2,8 +2,8 @@
 
 The format is documented element by element in ``faulttrees/FORMAT.md`` and
 fixed by the XML Schema ``troubleshoot/schema/model-1.0.xsd``. Reading goes
-through the hardened parser of :mod:`troubleshoot.xmlsafe`, then the schema,
-then the semantic checks of :mod:`troubleshoot.validate`; every problem found
+through the hardened parser of :mod:`troubleshoot.model.xmlsafe`, then the schema,
+then the semantic checks of :mod:`troubleshoot.model.validate`; every problem found
 is reported in one :class:`~troubleshoot.errors.ModelError`, each with its
 file, line and fix.
 
@@ -37,13 +37,13 @@ from troubleshoot.model import (
     Verification,
     exponential_probability,
 )
-from troubleshoot.validate import (
+from troubleshoot.model.validate import (
     check_model,
     errors_only,
     validate_model,
     warnings_only,
 )
-from troubleshoot.xmlsafe import DEFAULT_MAX_BYTES, parse_xml_file, validation_problems
+from troubleshoot.model.xmlsafe import DEFAULT_MAX_BYTES, parse_xml_file, validation_problems
 
 ROOT_TAG = "troubleshooting-model"
 SCHEMA_FILE = f"model-{FORMAT_VERSION}.xsd"
@@ -63,7 +63,7 @@ _KIND_OF_TAG = {tag: kind for kind, tag in GATE_TAGS.items()}
 def model_schema() -> etree.XMLSchema:
     """The XML Schema of the current format version, parsed once."""
     try:
-        text = (resources.files("troubleshoot.schema") / SCHEMA_FILE).read_bytes()
+        text = (resources.files("troubleshoot.model.schema") / SCHEMA_FILE).read_bytes()
     except (ModuleNotFoundError, FileNotFoundError):  # source tree without install
         text = (Path(__file__).resolve().parent / "schema" / SCHEMA_FILE).read_bytes()
     return etree.XMLSchema(etree.fromstring(text))

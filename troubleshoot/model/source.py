@@ -23,7 +23,7 @@ def is_mef_file(path: Path) -> bool:
 
 def resolve_model_path(spec: str) -> Path:
     """The file a MODEL argument names: an existing path, or a bundled demo's name."""
-    from troubleshoot.demos import DEMOS, demo_path
+    from troubleshoot.model.demos import DEMOS, demo_path
 
     path = Path(spec)
     if not path.exists() and spec in DEMOS:
@@ -40,11 +40,11 @@ def load_any_model(spec: str) -> tuple[Model, list[Problem]]:
     """The Model named by ``spec`` (our XML, MEF, or a demo name) and the reader's warnings."""
     path = resolve_model_path(spec)
     if is_mef_file(path):
-        from troubleshoot.mef import read_mef
+        from troubleshoot.model.mef.read import read_mef
 
         model, problems = read_mef(str(path))
         return model, [p for p in problems if p.severity != "error"]
-    from troubleshoot.modelfile import load_model
+    from troubleshoot.model.xmlfile import load_model
 
     return load_model(str(path)), []
 

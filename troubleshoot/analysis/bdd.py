@@ -3,9 +3,9 @@
 A BDD is an exact, canonical form of the top event as a Boolean function of
 the root events (basic events and unlisted-cause events). Its probability
 follows by Shannon decomposition, one pass over the nodes; the minimal cut
-sets follow from it as a zero-suppressed diagram (:mod:`troubleshoot.cutsets`);
+sets follow from it as a zero-suppressed diagram (:mod:`troubleshoot.analysis.cutsets`);
 the importance measures follow from the same nodes with one root pinned
-failed or working (:mod:`troubleshoot.importance`).
+failed or working (:mod:`troubleshoot.analysis.importance`).
 
 The diagram is pure data built once from a :class:`~troubleshoot.model.Model`;
 nothing here reads files or the clock.

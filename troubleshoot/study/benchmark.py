@@ -23,9 +23,9 @@ from pathlib import Path
 from typing import Callable
 
 from troubleshoot.errors import ImpossibleFindings
-from troubleshoot.inference import Engine, Finding
-from troubleshoot.network import build_network
-from troubleshoot.synthetic import synthetic_model
+from troubleshoot.engine.inference import Engine, Finding
+from troubleshoot.engine.network import build_network
+from troubleshoot.study.synthetic import synthetic_model
 
 SIZES = (100, 500, 2000, 5000)
 #: Seconds a reference library may take for one job before it counts as not finished.
@@ -192,7 +192,7 @@ def _session_step_time(model, engine: Engine, findings: list[Finding], repeats: 
 def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats: int = 15,
              budget: float = REFERENCE_BUDGET_S, progress: Callable[[str], None] = lambda s: None) -> SizeResult:
     """Measure one size."""
-    from troubleshoot.ranking import rank
+    from troubleshoot.advice.ranking import rank
 
     model = synthetic_model(basic_events, seed=seed)
     progress(f"{basic_events} basic events: compiling")
@@ -225,7 +225,7 @@ def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats:
     pgmpy_s = pyagrum_s = pgmpy_step_s = None
     if references:
         with tempfile.TemporaryDirectory() as tmp:
-            from troubleshoot.xmlbif import network_to_xmlbif
+            from troubleshoot.engine.xmlbif import network_to_xmlbif
 
             bif = Path(tmp) / "network.bifxml"
             bif.write_bytes(network_to_xmlbif(build_network(model)))

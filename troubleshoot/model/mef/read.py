@@ -90,7 +90,7 @@ _ID_PATTERN = re.compile(r"^[^\W\d][\w.-]*$")
 def _parse_xml(path: Path):
     """Root element of an XML file, hardened (no DTD, no entities, no network)."""
     try:
-        from troubleshoot.xmlsafe import parse_xml_file
+        from troubleshoot.model.xmlsafe import parse_xml_file
     except ImportError:
         parse_xml_file = None
     if parse_xml_file is not None:

@@ -231,7 +231,7 @@ def _load_model(model_or_path) -> tuple[Model, str | None]:
         if source and Path(source).is_file():
             return model_or_path, str(Path(source).resolve())
         return model_or_path, None
-    from troubleshoot.modelsource import load_any_model, resolve_model_path
+    from troubleshoot.model.source import load_any_model, resolve_model_path
 
     path = resolve_model_path(str(model_or_path))
     model, _warnings = load_any_model(str(path))
@@ -425,7 +425,7 @@ def _model_for(contents: LogContents, model: Model | None) -> tuple[Model, str |
         raise LogError(f"{path}:1: the log does not say which model file it used; give the model with --model")
     if not Path(model_path).is_file():
         raise LogError(f"{path}:1: the model file {model_path} is gone; give the model with --model")
-    from troubleshoot.modelsource import load_any_model
+    from troubleshoot.model.source import load_any_model
 
     loaded, _warnings = load_any_model(model_path)
     if header.get("model_sha256") and file_sha256(model_path) != header["model_sha256"]:

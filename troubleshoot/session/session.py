@@ -58,7 +58,7 @@ from dataclasses import asdict, dataclass, replace
 from functools import cached_property
 from typing import Any, Protocol
 
-from troubleshoot.diagnosis import (
+from troubleshoot.advice.diagnosis import (
     VerificationRequest,
     cost_of_check_then,
     expected_repair_cost,
@@ -76,9 +76,9 @@ from troubleshoot.diagnosis import (
     suspects,
 )
 from troubleshoot.errors import SessionError
-from troubleshoot.inference import Engine, Finding, Posterior
+from troubleshoot.engine.inference import Engine, Finding, Posterior
 from troubleshoot.model import Model
-from troubleshoot.ranking import Ranking, RankRow, rank
+from troubleshoot.advice.ranking import Ranking, RankRow, rank
 
 DIAGNOSING = "diagnosing"
 ISOLATED = "isolated"
@@ -270,7 +270,7 @@ class SessionState:
 
 
 class SessionLogWriter(Protocol):
-    """What a session needs from its log (see :class:`troubleshoot.sessionlog.LogWriter`)."""
+    """What a session needs from its log (see :class:`troubleshoot.session.logfile.LogWriter`)."""
 
     def write_action(self, action: dict, view: "SessionView") -> None: ...
 
@@ -495,7 +495,7 @@ class Session:
     engine : Engine, optional
         Reuse a compiled engine for the model.
     log : SessionLogWriter, optional
-        Receives every committed action (see :mod:`troubleshoot.sessionlog`).
+        Receives every committed action (see :mod:`troubleshoot.session.logfile`).
     model_path : str, optional
         Where the model came from (shown and logged).
 
@@ -504,8 +504,8 @@ class Session:
     ImpossibleFindings.
 
     Most front ends create a session with
-    :func:`troubleshoot.sessionlog.new_session` (which opens the log) or
-    :func:`troubleshoot.sessionlog.resume_session`.
+    :func:`troubleshoot.session.logfile.new_session` (which opens the log) or
+    :func:`troubleshoot.session.logfile.resume_session`.
     """
 
     def __init__(self, model: Model, settings: SessionSettings | None = None, engine: Engine | None = None,

@@ -1,8 +1,8 @@
 """What the findings say about the faults: suspects, remaining uncertainty, the
 most probable explanation, isolation, the ambiguity group and the repair order.
 
-Pure functions of a :class:`~troubleshoot.inference.Posterior` (and, for the
-most probable explanation, the :class:`~troubleshoot.inference.Engine` that
+Pure functions of a :class:`~troubleshoot.engine.inference.Posterior` (and, for the
+most probable explanation, the :class:`~troubleshoot.engine.inference.Engine` that
 made it).
 
 References
@@ -26,9 +26,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from troubleshoot.errors import ImpossibleFindings
-from troubleshoot.inference import Engine, Finding, Posterior
+from troubleshoot.engine.inference import Engine, Finding, Posterior
 from troubleshoot.model import DERIVED, Model
-from troubleshoot.ranking import rank
+from troubleshoot.advice.ranking import rank
 
 #: The most probable explanation search gives up (and says so) after this many propagations.
 MPE_MAX_PROPAGATIONS = 2000

@@ -1,8 +1,8 @@
 """The diagnostic model: a fault tree plus the checks and symptoms a technician can observe.
 
 A :class:`Model` is immutable. It is built by the XML loader
-(:func:`troubleshoot.modelfile.load_model`), by the Open-PSA importer, or by
-code (tests, the benchmark generator); :func:`troubleshoot.validate.validate_model`
+(:func:`troubleshoot.model.xmlfile.load_model`), by the Open-PSA importer, or by
+code (tests, the benchmark generator); :func:`troubleshoot.model.validate.validate_model`
 reports every problem in one pass.
 
 Ids are unique across basic events, gates, checks and symptoms, so a finding

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 from lxml import etree
 
-from troubleshoot.network import Network
+from troubleshoot.engine.network import Network
 
 
 def network_to_xmlbif(network: Network) -> bytes:

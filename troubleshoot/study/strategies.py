@@ -19,7 +19,7 @@ name               next check
 ``cheapest``       cheapest check giving at least ``min_bits`` bits
 ``likeliest``      none: repair at once in order of P(failed) / repair cost
 ``random``         a check giving at least ``min_bits`` bits, uniformly at random
-``optimal``        the least-expected-cost policy (:mod:`troubleshoot.optimal`)
+``optimal``        the least-expected-cost policy (:mod:`troubleshoot.study.optimal`)
 =================  ===========================================================
 
 References
@@ -189,7 +189,7 @@ class PolicyStrategy(_Deterministic):
 
 
 def make_strategy(name: str, optimal_policy: dict | None = None) -> Strategy:
-    """The strategy called ``name``; ``optimal`` needs the policy table of :func:`troubleshoot.optimal.solve`."""
+    """The strategy called ``name``; ``optimal`` needs the policy table of :func:`troubleshoot.study.optimal.solve`."""
     simple = {"info-per-cost": InfoPerCost, "info-per-cost-bits": InfoPerCostBitsOnly,
               "info": MostInformative, "cheapest": Cheapest,
               "likeliest": Likeliest, "random": RandomCheck}

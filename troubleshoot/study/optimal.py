@@ -2,12 +2,12 @@
 
 What "optimal" means here
 -------------------------
-The protocol is the simulator's (:mod:`troubleshoot.simulation`): the
+The protocol is the simulator's (:mod:`troubleshoot.study.simulation`): the
 complaint and every symptom are observed first; then, before any repair, the
 policy either does a check not yet done or stops; once it stops, the repair
 phase is fixed: repair the first repairable entry of the session's repair
 order (P(failed | findings) / repair cost over the ambiguity group, see
-:func:`troubleshoot.simulation.next_repair`), verify as the session asks,
+:func:`troubleshoot.study.simulation.next_repair`), verify as the session asks,
 and on a failed verification repair the next one in the order recomputed
 from the new findings, until a verification passes or no repairable suspect
 is left. The cost of a case is the sum of the check, repair and
@@ -47,9 +47,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.diagnosis import Suspect, is_unlisted
+from troubleshoot.advice.diagnosis import Suspect, is_unlisted
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.logic import gate_values
+from troubleshoot.model.gates import gate_values
 from troubleshoot.model import Model
 from troubleshoot.session import (
     Session,
@@ -58,7 +58,7 @@ from troubleshoot.session import (
     top_verification,
     verification_for,
 )
-from troubleshoot.simulation import CLEARED_P, next_repair, repair_cost
+from troubleshoot.study.simulation import CLEARED_P, next_repair, repair_cost
 
 #: Largest number of root events the enumeration takes (2^16 joint states).
 MAX_ROOTS = 16
@@ -142,7 +142,7 @@ class Enumeration:
         return self.prior * self.values(())[self.model.top]
 
     def suspects(self, weights: np.ndarray, repaired=()) -> tuple[Suspect, ...]:
-        """Suspects from unnormalised weights, ordered as :func:`troubleshoot.diagnosis.suspects` does."""
+        """Suspects from unnormalised weights, ordered as :func:`troubleshoot.advice.diagnosis.suspects` does."""
         q = weights @ self.states / weights.sum()
         model = self.model
         out = [Suspect(r, model.label_of(r), float(p), r in repaired, is_unlisted(model, r))
@@ -355,7 +355,7 @@ def expected_cost(model: Model, strategy, settings: SessionSettings | None = Non
     enum = Enumeration(model)
     session = Session(model, settings, engine)
     memo: dict[frozenset, float] = {}
-    from troubleshoot.strategies import findings_key
+    from troubleshoot.study.strategies import findings_key
 
     def value(w: np.ndarray) -> float:
         view = session.view

@@ -28,4 +28,4 @@ def demo_path(name: str = DEFAULT_DEMO) -> Path:
     except ModuleNotFoundError:
         pass
     # Running from a source checkout without installing: faulttrees/ beside the package.
-    return Path(__file__).resolve().parent.parent / "faulttrees" / file_name
+    return Path(__file__).resolve().parents[2] / "faulttrees" / file_name

@@ -30,7 +30,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.faulttree_bdd import FALSE, TRUE, FaultTreeBdd, NodeStore, deep_recursion
+from troubleshoot.analysis.bdd import FALSE, TRUE, FaultTreeBdd, NodeStore, deep_recursion
 from troubleshoot.model import Model
 
 #: Empty family of sets.

@@ -1,0 +1,1 @@
+"""Fault-tree figures for reliability engineers: decision diagrams, cut sets, importance. Pure."""
