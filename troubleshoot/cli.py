@@ -25,6 +25,7 @@ COMMANDS = {
     "resume": "resume",
     "analyze": "analyze",
     "simulate": "simulate",
+    "learn": "learn",
     "bench": "bench",
 }
 

@@ -42,6 +42,14 @@ def add_parser(subparsers, name):
     parser.add_argument("--plot", metavar="FILE.png", help="write a PNG of the cost distribution per strategy")
     parser.add_argument("--workers", type=int, default=None, metavar="K",
                         help="processes to spread the cases over (default: every core)")
+    parser.add_argument("--scheduler", metavar="ADDRESS",
+                        help="run the cases on a Dask cluster, e.g. tcp://127.0.0.1:8786 (pip install '.[cluster]')")
+    parser.add_argument("--logs", metavar="FOLDER",
+                        help="write each simulated unit as a session log (the first strategy's session) into "
+                             "FOLDER, as case-000001.jsonl ..., in the format of a real session")
+    parser.add_argument("--truth", metavar="TRUE_MODEL",
+                        help="draw the units' faults and the checks' answers from this model (same ids) while "
+                             "the sessions reason with MODEL: a fleet whose real figures differ from the model's")
     return parser
 
 
@@ -53,6 +61,8 @@ def _check_arguments(args) -> None:
         problems.append(f"--seed must be 0 or more, not {args.seed}")
     if args.workers is not None and args.workers < 1:
         problems.append(f"--workers must be at least 1, not {args.workers}")
+    if args.workers is not None and args.scheduler:
+        problems.append("give either --workers (local processes) or --scheduler (a Dask cluster), not both")
     if args.plot and not args.plot.lower().endswith(".png"):
         problems.append(f"--plot writes a PNG: give a file name ending in .png, not {args.plot!r}")
     if problems:
@@ -79,8 +89,8 @@ def _progress(model_name: str):
 
 def run(args) -> int:
     from troubleshoot.model.source import load_any_model
-    from troubleshoot.study.optimal import OptimalTooLarge, expected_cost, solve
     from troubleshoot.session import settings_for
+    from troubleshoot.study.optimal import OptimalTooLarge, expected_cost, solve
     from troubleshoot.study.simulation import default_workers, simulate, summarise
     from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy
 
@@ -117,8 +127,18 @@ def run(args) -> int:
         print("troubleshoot: optimal is exact for the repair-only protocol; every strategy runs under it "
               "(no checks after the first repair)", file=sys.stderr)
     args.protocol = "diagnose" if checks_after_repair else "repair"
-    results = simulate(model, args.cases, args.seed, specs, settings, workers, _progress(model.name),
-                       checks_after_repair=checks_after_repair)
+    truth = None
+    if args.truth:
+        truth = _load_truth(args.truth, model)
+    sink = _log_sink(args.logs, args.cases) if args.logs else None
+    from troubleshoot.study.execution import executor_for
+
+    with executor_for(workers if args.cases > 1 else None, args.scheduler) as executor:
+        results = simulate(model, args.cases, args.seed, specs, settings, workers, _progress(model.name),
+                           checks_after_repair=checks_after_repair, truth=truth, log_sink=sink,
+                           executor=executor)
+    if args.logs:
+        print(f"wrote {args.cases} session logs to {args.logs}", file=sys.stderr)
     summaries = {name: summarise(name, results[name]) for name in names}
     best = optimal.expected_cost if optimal is not None else None
 
@@ -129,6 +149,51 @@ def run(args) -> int:
     else:
         _print_table(model, args, summaries, exact, best, optimal)
     return 0
+
+
+def log_name(case: int) -> str:
+    """File name of simulated unit ``case`` (0-based) in a --logs folder."""
+    return f"case-{case + 1:06d}.jsonl"
+
+
+def _log_sink(folder: str, cases: int):
+    """Writes each unit's log into the folder; refuses before any work if a file would be overwritten."""
+    from pathlib import Path
+
+    target = Path(folder)
+    try:
+        target.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise SimulationError(f"{folder}: cannot create the log folder ({exc.strerror}); give a writable --logs "
+                              "folder") from None
+    taken = [name for name in (log_name(c) for c in range(cases)) if (target / name).exists()]
+    if taken:
+        raise SimulationError(f"{target / taken[0]}: already exists ({len(taken)} such files); give an empty "
+                              "--logs folder so no log is overwritten")
+
+    def sink(case: int, data: bytes) -> None:
+        path = target / log_name(case)
+        try:
+            with open(path, "xb") as fh:
+                fh.write(data)
+        except OSError as exc:
+            raise SimulationError(f"{path}: cannot write the session log ({exc.strerror}); check the folder") \
+                from None
+    return sink
+
+
+def _load_truth(path: str, model):
+    from troubleshoot.model.source import load_any_model
+
+    truth, _warnings = load_any_model(path)
+    def shape(m):
+        return (m.top, tuple(m.hypotheses), tuple((g.id, g.kind, g.inputs, g.k, g.condition) for g in m.gates),
+                tuple((c.id, tuple(x.target for x in c.causes)) for c in m.checks + m.symptoms))
+
+    if shape(truth) != shape(model):
+        raise SimulationError(f"{path}: --truth must have the same events, gates and checks as the model "
+                              f"{model.name!r} (only its figures may differ)")
+    return truth
 
 
 def _ratio(value: float, best: float | None) -> float | None:

@@ -47,7 +47,6 @@ from __future__ import annotations
 
 import math
 import os
-import sys
 from dataclasses import dataclass
 
 import numpy as np
@@ -253,7 +252,7 @@ def max_steps_for(model: Model) -> int:
 
 def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Generator,
              settings: SessionSettings, max_steps: int | None = None,
-             checks_after_repair: bool = True) -> CaseResult:
+             checks_after_repair: bool = True, log=None) -> CaseResult:
     """Drive a Session with one strategy on one unit until the repair is confirmed.
 
     Parameters
@@ -271,6 +270,10 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
     checks_after_repair : bool
         After a failed verification, let the strategy check again (True),
         or go straight to the next repair (the repair-only protocol).
+    log : callable, optional
+        Called with the new Session before its first action; returns the
+        session log writer it then writes every action to (a simulated unit
+        logged as a real session is).
 
     Returns
     -------
@@ -279,6 +282,8 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
     model = engine.model
     max_steps = max_steps_for(model) if max_steps is None else max_steps
     session = Session(model, settings, engine)
+    if log is not None:
+        session.log = log(session)
     for symptom in model.symptoms:
         session.record_finding(symptom.id, equipment.answer(symptom.id, ()))
     symptom_ids = {s.id for s in model.symptoms}
@@ -398,43 +403,104 @@ def summarise(name: str, results: list[CaseResult]) -> StrategySummary:
     )
 
 
-# Worker state: one engine per process, compiled once.
+@dataclass(frozen=True)
+class SimulationJob:
+    """Everything a worker needs to run cases (sent once per piece of work; compiled once per process)."""
+
+    model: Model
+    strategy_specs: tuple
+    seed: int
+    settings: SessionSettings
+    checks_after_repair: bool = True
+    truth: Model | None = None
+    logs: bool = False
+
+
+# Per worker process: the last job's engines and strategies, built once.
 _WORKER: dict = {}
 
 
-def _init_worker(model: Model, strategy_specs, seed: int, settings: SessionSettings,
-                 checks_after_repair: bool = True) -> None:
+def _worker_for(job: SimulationJob) -> dict:
     from troubleshoot.study.strategies import make_strategy
 
-    _WORKER["engine"] = Engine(model)
-    _WORKER["strategies"] = [make_strategy(name, policy) for name, policy in strategy_specs]
-    _WORKER["seed"] = seed
-    _WORKER["settings"] = settings
-    _WORKER["checks_after_repair"] = checks_after_repair
+    if _WORKER.get("job") != job:
+        _WORKER.clear()
+        _WORKER["job"] = job
+        _WORKER["engine"] = Engine(job.model)
+        _WORKER["truth"] = Engine(job.truth) if job.truth is not None else _WORKER["engine"]
+        _WORKER["strategies"] = [make_strategy(name, policy) for name, policy in job.strategy_specs]
+    return _WORKER
 
 
-def _run_one_case(case: int) -> list[CaseResult]:
-    engine = _WORKER["engine"]
-    seed = _WORKER["seed"]
-    equipment = draw_case(engine, seed, case)
-    out = []
-    for strategy in _WORKER["strategies"]:
+def _scratch_log() -> str:
+    """A new private file for a session log being written, in memory where the system offers it."""
+    import tempfile
+
+    base = "/dev/shm" if os.path.isdir("/dev/shm") and os.access("/dev/shm", os.W_OK) else None
+    handle, path = tempfile.mkstemp(prefix="troubleshoot-sim-", suffix=".jsonl", dir=base)
+    os.close(handle)
+    os.unlink(path)  # the log writer creates it afresh, exclusively
+    return path
+
+
+def _run_one_case(case: int, job: SimulationJob) -> tuple[list[CaseResult], bytes | None]:
+    """Every strategy on one case; with ``job.logs``, the first strategy's session log as bytes."""
+    from troubleshoot.session.logfile import LogWriter, create_log_file
+
+    state = _worker_for(job)
+    engine = state["engine"]
+    # The unit obeys the truth (its faults and its checks' answers); the sessions reason with the model.
+    equipment = draw_case(state["truth"], job.seed, case)
+    out, log_bytes = [], None
+    for index, strategy in enumerate(state["strategies"]):
         # Each strategy gets its own copy of the case's strategy stream, so
         # adding a strategy never changes another one's draws.
-        rng = case_generator(seed, case, STREAM_STRATEGY)
-        out.append(run_case(engine, strategy, equipment, rng, _WORKER["settings"],
-                            checks_after_repair=_WORKER["checks_after_repair"]))
-    return out
+        rng = case_generator(job.seed, case, STREAM_STRATEGY)
+        writer = None
+        factory = None
+        if job.logs and index == 0:
+            path = _scratch_log()
+
+            def factory(session, path=path):
+                nonlocal writer
+                session.model_path = job.model.source
+                log_path, fd = create_log_file(path)
+                writer = LogWriter(log_path, fd)
+                writer.write_header(session)
+                return writer
+        try:
+            out.append(run_case(engine, strategy, equipment, rng, job.settings,
+                                checks_after_repair=job.checks_after_repair, log=factory))
+        finally:
+            if writer is not None:
+                writer.close()
+                try:
+                    with open(writer.path, "rb") as fh:
+                        log_bytes = fh.read()
+                finally:
+                    os.unlink(writer.path)
+    return out, log_bytes
+
+
+def _run_cases(span: tuple[int, int], job: SimulationJob) -> list[tuple[list[CaseResult], bytes | None]]:
+    """One piece of work: the cases ``span[0]`` to ``span[1] - 1``."""
+    return [_run_one_case(case, job) for case in range(span[0], span[1])]
+
+
+#: Cases per piece of work (fixed, so the pieces do not depend on the workers).
+CASES_PER_PIECE = 16
 
 
 def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str, dict | None]],
              settings: SessionSettings | None = None, workers: int = 1, progress=None,
-             checks_after_repair: bool = True) -> dict[str, list[CaseResult]]:
+             checks_after_repair: bool = True, *, truth: Model | None = None, log_sink=None,
+             executor=None) -> dict[str, list[CaseResult]]:
     """Run every strategy on the same ``cases`` sampled units.
 
     Parameters
     ----------
     model : Model
+        The model the sessions reason with.
     cases : int
     seed : int
         Non-negative; case i draws only from (seed, i).
@@ -443,37 +509,61 @@ def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str
     settings : SessionSettings, optional
         Default: :func:`~troubleshoot.session.settings_for` the model.
     workers : int
-        Processes; 1 runs in this process. The results are the same for any count.
+        Local processes when no ``executor`` is given; 1 runs in this process.
+        The results are the same for any count.
     progress : callable, optional
         Called with (cases done, cases) now and then.
     checks_after_repair : bool
         See :func:`run_case`; False is the repair-only protocol of :mod:`troubleshoot.study.optimal`.
+    truth : Model, optional
+        The units' faults and the checks' answers are drawn from this model
+        (same ids as ``model``) instead of ``model``: a fleet whose real
+        figures differ from the model's, to test learning against a known truth.
+    log_sink : callable, optional
+        Called as ``log_sink(case, data)`` as the cases finish with each unit's
+        session log (the first strategy's session, bytes of a log in the
+        format of :mod:`troubleshoot.session.logfile`).
+    executor : optional
+        From :func:`troubleshoot.study.execution.executor_for` (local
+        processes or a Dask cluster); default by ``workers``.
 
     Returns
     -------
     dict
         Strategy name -> list of CaseResult in case order.
     """
+    from troubleshoot.study.execution import chunks, executor_for
+
     settings = settings or settings_for(model)
     specs = list(strategy_specs)
-    per_case: list[list[CaseResult]] = []
-    step = max(1, cases // 20)
-    if workers <= 1 or cases < 2:
-        _init_worker(model, specs, seed, settings, checks_after_repair)
-        for case in range(cases):
-            per_case.append(_run_one_case(case))
-            if progress and ((case + 1) % step == 0 or case + 1 == cases):
-                progress(case + 1, cases)
-    else:
-        import multiprocessing
+    job = SimulationJob(model, tuple(specs), int(seed), settings, checks_after_repair, truth, log_sink is not None)
+    spans = [(piece[0], piece[-1] + 1) for piece in chunks(range(cases), CASES_PER_PIECE)]
+    report = None
+    if progress is not None:
+        step, shown = max(1, cases // 20), [0]
 
-        with multiprocessing.get_context("spawn" if sys.platform == "win32" else "fork").Pool(
-                workers, initializer=_init_worker, initargs=(model, specs, seed, settings, checks_after_repair)) as pool:
-            for case, result in enumerate(pool.imap(_run_one_case, range(cases),
-                                                    chunksize=max(1, min(16, cases // (workers * 8) or 1)))):
-                per_case.append(result)
-                if progress and ((case + 1) % step == 0 or case + 1 == cases):
-                    progress(case + 1, cases)
+        def report(done: int, total: int) -> None:
+            now = min(cases, done * CASES_PER_PIECE)
+            if now // step > shown[0] or done == total:
+                shown[0] = now // step
+                progress(now, cases)
+    own = executor is None
+    executor = executor_for(workers if workers and workers > 1 and cases > 1 else None) if own else executor
+
+    def keep(index: int, piece) -> list:
+        # Logs are written as each piece returns, so they never pile up in memory.
+        start = spans[index][0]
+        for offset, (_, log_bytes) in enumerate(piece):
+            if log_sink is not None and log_bytes is not None:
+                log_sink(start + offset, log_bytes)
+        return [results for results, _ in piece]
+
+    try:
+        pieces = executor.map(_run_cases, spans, job, progress=report, on_result=keep)
+    finally:
+        if own:
+            executor.close()
+    per_case = [results for piece in pieces for results in piece]
     return {name: [row[i] for row in per_case] for i, (name, _) in enumerate(specs)}
 
 

@@ -1,0 +1,997 @@
+"""Learning a model's figures from the fleet's session logs, by exact EM with the engine as the E-step.
+
+Every session log says what a technician saw on one failed unit: the
+symptoms, each check's outcome, the repairs and their verifications, the
+last "the unit works" included. For a fixed structure (the fault tree and
+which causes each check responds to) the figures are learned by
+expectation-maximisation (Dempster, Laird & Rubin 1977), the usual way to
+fit a Bayesian network's parameters from incomplete data (Lauritzen 1995):
+
+E-step
+    For each session the engine propagates all its findings, repairs and
+    verifications, exactly. The posterior marginal of every root event is its
+    expected "failed" count. For every check made, the joint posterior of its
+    causes' states (one clique holds them) gives the expected count of each
+    outcome each cause produced and of the false alarms (the hidden
+    per-cause variables of the noisy-OR / noisy-MAX decomposition: Heckerman
+    & Breese 1996; Díez 1993).
+M-step
+    Each probability becomes its Beta / Dirichlet posterior mean, the model's
+    own figure being the prior, worth ``prior_weight`` sessions.
+
+Sessions are a sample of failed units: they speak of P(faults | complaint).
+With the exposure (unit-periods of service the sessions come from), the
+units that did not fail are evidence too ("top event did not occur", one
+propagation for all of them). Without it, the number of unseen working
+units is whatever keeps P(top event) at the model's value: each M-step
+solves for it (a Lagrange multiplier of that constraint), so the learned
+model changes what fails given a complaint, not how often units fail.
+
+Identical sessions are one E-step row with a count. Rows are cut into pieces
+whose boundaries depend only on the sessions, run through
+:mod:`troubleshoot.study.execution`, and summed in the pieces' order, so the
+result is the same to the last bit in one process, in several, or on Dask.
+
+References
+----------
+A. P. Dempster, N. M. Laird and D. B. Rubin, "Maximum likelihood from
+incomplete data via the EM algorithm", JRSS B 39(1), 1977.
+S. L. Lauritzen, "The EM algorithm for graphical association models with
+missing data", Computational Statistics & Data Analysis 19, 1995.
+D. Heckerman and J. Breese, "Causal independence for probability assessment
+and inference using Bayesian networks", IEEE SMC 26(6), 1996.
+F. J. Díez, "Parameter adjustment in Bayes networks. The generalized
+noisy OR-gate", UAI 1993.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import threading
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+
+from troubleshoot.advice.diagnosis import top_verification, verification_for
+from troubleshoot.engine.inference import Engine, Finding
+from troubleshoot.errors import (
+    ImpossibleFindings,
+    LogError,
+    SessionError,
+    TroubleshootError,
+)
+from troubleshoot.model import Model
+from troubleshoot.model.types import exponential_probability, unlisted_id
+
+#: Default worth of the model's own figures, in sessions (see the README).
+DEFAULT_PRIOR_WEIGHT = 20.0
+#: EM stops when no probability moves by more than this in an iteration ...
+TOLERANCE = 1e-7
+#: ... or after this many iterations.
+MAX_ITERATIONS = 500
+#: E-step rows per piece of work (fixed: the pieces never depend on the workers).
+ROWS_PER_PIECE = 200
+#: Log files per piece of reading.
+LOGS_PER_PIECE = 500
+#: A session "informs" a root event when it moves its probability by at least this much.
+INFORMS = 0.01
+#: Central interval reported for every learned figure.
+INTERVAL = 0.90
+
+# What can be wrong with a log (the report names each log under one of these).
+TORN, OTHER_MODEL, OTHER_VERSION, DAMAGED, INCONSISTENT, IMPOSSIBLE = (
+    "torn", "other-model", "other-version", "damaged", "inconsistent", "impossible")
+
+
+class LearnError(TroubleshootError):
+    """Learning was asked for with inputs it cannot use (no logs, a bad exposure...)."""
+
+
+# ---------------------------------------------------------------- reading logs
+
+
+@dataclass(frozen=True)
+class SessionData:
+    """What one session log says about its unit, as the E-step needs it.
+
+    Attributes
+    ----------
+    findings : tuple of Finding
+        The complaint first, then every finding and verification still standing (undo, retract and
+        correct applied), each with its epoch.
+    repairs : tuple of str
+        Root events repaired, in order.
+    confirmed : str or None
+        The last repair, when the unit was then verified working.
+    escalated : bool
+        The session ended handed over (an escalation action).
+    time : str
+        The session's start (header time, ISO 8601), or "".
+    """
+
+    findings: tuple[Finding, ...]
+    repairs: tuple[str, ...]
+    confirmed: str | None = None
+    escalated: bool = False
+    time: str = ""
+
+
+@dataclass(frozen=True)
+class LogProblem:
+    """A log left out of learning (or used only in part), and why."""
+
+    path: str
+    kind: str
+    message: str
+
+
+def _outcome_index(outcomes, outcome, what: str) -> int:
+    if isinstance(outcome, bool):
+        outcome = int(outcome)
+    if isinstance(outcome, int) and 0 <= outcome < len(outcomes):
+        return outcome
+    if isinstance(outcome, str):
+        folded = [o.casefold() for o in outcomes]
+        if outcome.strip().casefold() in folded:
+            return folded.index(outcome.strip().casefold())
+    raise SessionError(f"{what} has no outcome {outcome!r}")
+
+
+def fold_actions(model: Model, actions) -> SessionData:
+    """The findings and repairs a session's logged actions leave standing.
+
+    Follows :class:`troubleshoot.session.Session`'s rules without computing
+    a posterior: a finding on the check that verifies the last repair is
+    that verification; after it reads normal, the unit itself is verified;
+    ``undo`` takes back the last action of any kind. Action kinds this
+    version does not know (a later version's) change no finding.
+
+    Raises
+    ------
+    SessionError
+        An action the session would have refused (the log was edited or is inconsistent).
+    """
+    top = model.top
+    obs: list[tuple[Finding, str]] = [(Finding(top, 1, 0), "complaint")]
+    repairs: list[str] = []
+    history: list[tuple[tuple, tuple, bool]] = []
+    escalated = False
+
+    def request():
+        if not repairs:
+            return None
+        done = [(f, k) for f, k in obs if k == "verification" and f.epoch == len(repairs)]
+        if not done:
+            return verification_for(model, repairs[-1])
+        if any(f.target == top for f, _ in done) or done[-1][0].outcome == 1:
+            return None
+        return top_verification(model)
+
+    def find(target, epoch):
+        hits = [i for i, (f, k) in enumerate(obs) if k != "complaint" and f.target == target
+                and (epoch is None or f.epoch == epoch)]
+        if not hits:
+            raise SessionError(f"there is no finding on {target!r} to change")
+        return hits[-1]
+
+    for action in actions:
+        kind = action.get("action") if isinstance(action, dict) else None
+        if kind == "undo":
+            if not history:
+                raise SessionError("undo with nothing to undo")
+            o, r, escalated = history.pop()
+            obs, repairs = list(o), list(r)
+            continue
+        history.append((tuple(obs), tuple(repairs), escalated))
+        epoch = len(repairs)
+        if kind in ("finding", "verify"):
+            req = request()
+            target = action.get("check") if kind == "finding" else None
+            if kind == "verify" or (req is not None and req.target == target):
+                if req is None:
+                    raise SessionError("a verification with no repair awaiting it")
+                index = _outcome_index(req.outcomes, action.get("outcome"), "the verification")
+                obs.append((Finding(req.target, index, epoch), "verification"))
+                continue
+            check = model.check_by_id.get(target)
+            if check is None:
+                raise SessionError(f"unknown check {target!r}")
+            if any(f.target == target and f.epoch == epoch for f, _ in obs):
+                raise SessionError(f"check {target!r} done twice since the last repair")
+            obs.append((Finding(target, _outcome_index(check.outcomes, action.get("outcome"), target), epoch),
+                        "finding"))
+        elif kind == "retract":
+            del obs[find(action.get("check"), action.get("epoch"))]
+        elif kind == "correct":
+            i = find(action.get("check"), action.get("epoch"))
+            f, k = obs[i]
+            if k == "verification":
+                outcomes = (top_verification(model) if f.target == top
+                            else verification_for(model, repairs[f.epoch - 1])).outcomes
+            else:
+                outcomes = model.check_by_id[f.target].outcomes
+            obs[i] = (replace(f, outcome=_outcome_index(outcomes, action.get("outcome"), f.target)), k)
+        elif kind == "repair":
+            event = action.get("event")
+            if event not in model.hypotheses or event in repairs:
+                raise SessionError(f"repair of {event!r} is not possible here")
+            repairs.append(event)
+        elif isinstance(kind, str) and kind.startswith("escalat"):
+            escalated = True
+        # skip, unskip, note and unknown kinds change no finding
+    confirmed = None
+    if repairs and any(k == "verification" and f.epoch == len(repairs) and f.target == top and f.outcome == 0
+                       for f, k in obs):
+        confirmed = repairs[-1]
+    return SessionData(tuple(f for f, _ in obs), tuple(repairs), confirmed, escalated)
+
+
+def model_sha256(spec_path: str | Path) -> str:
+    """SHA-256 of a model file's bytes (what a session log's header records)."""
+    from troubleshoot.session.logfile import file_sha256
+
+    return file_sha256(spec_path)
+
+
+def read_session(path: str, model: Model, sha256: str) -> tuple[SessionData | None, list[LogProblem]]:
+    """One log as SessionData, with what was wrong with it; never raises for a bad log."""
+    from troubleshoot.session.logfile import read_log
+
+    try:
+        contents = read_log(path)
+    except LogError as exc:
+        text = str(exc)
+        kind = OTHER_VERSION if "version" in text else DAMAGED
+        return None, [LogProblem(path, kind, text)]
+    except Exception as exc:  # noqa: BLE001 - a log must never stop the run: name it and go on
+        return None, [LogProblem(path, DAMAGED, f"{path}: cannot be read ({type(exc).__name__}: {exc})")]
+    problems = [LogProblem(path, TORN, w) for w in contents.warnings]
+    header = contents.header
+    if header.get("model_sha256") != sha256:
+        made_on = header.get("model_path") or "an unnamed model"
+        return None, problems + [LogProblem(path, OTHER_MODEL, f"{path}:1: made on another model ({made_on}, "
+                                                                f"SHA-256 {str(header.get('model_sha256'))[:12]}...)")]
+    try:
+        data = fold_actions(model, [record["action"] for _, record in contents.actions])
+    except (SessionError, KeyError, TypeError, AttributeError, ValueError) as exc:
+        return None, problems + [LogProblem(path, INCONSISTENT, f"{path}: an action the session would have "
+                                                                f"refused ({exc}): edited or damaged")]
+    return replace(data, time=str(header.get("time") or "")), problems
+
+
+def _read_piece(paths, shared) -> list:
+    model, sha256 = shared
+    return [read_session(p, model, sha256) for p in paths]
+
+
+def log_files(inputs) -> list[str]:
+    """Every ``*.jsonl`` under the folders given, and the files given, sorted, each once.
+
+    Raises
+    ------
+    LearnError
+        A path that does not exist.
+    """
+    found: list[str] = []
+    for item in inputs:
+        path = Path(item)
+        if path.is_dir():
+            found.extend(str(p) for p in sorted(path.rglob("*.jsonl")) if p.is_file())
+        elif path.is_file():
+            found.append(str(path))
+        else:
+            raise LearnError(f"{item}: no such file or folder; give session logs or folders of them")
+    return list(dict.fromkeys(found))
+
+
+# ---------------------------------------------------------------- parameters
+
+
+@dataclass(frozen=True)
+class Parameters:
+    """Every learnable figure of a model, as arrays.
+
+    Attributes
+    ----------
+    roots : numpy.ndarray
+        P(failed) of each root event in ``model.hypotheses`` order (unlisted-cause events included).
+    leaks : tuple of numpy.ndarray
+        Per check and symptom (``model.checks + model.symptoms`` order): P(outcome) with no cause
+        present, over the check's outcomes (false alarm = everything but the first).
+    causes : tuple of numpy.ndarray
+        Per check and symptom, shape (causes, outcomes): the outcome each cause produces on its own.
+    """
+
+    roots: np.ndarray
+    leaks: tuple
+    causes: tuple
+
+    def flat(self) -> np.ndarray:
+        return np.concatenate([self.roots] + [a.ravel() for a in self.leaks] + [a.ravel() for a in self.causes])
+
+
+def _all_checks(model: Model):
+    return model.checks + model.symptoms
+
+
+def check_tables(check) -> tuple[np.ndarray, np.ndarray]:
+    """(leak, causes) of a check: P(outcome) with no cause, and per cause, over its outcomes.
+
+    Two outcomes (noisy-OR): leak = (1 - false alarm, false alarm), cause = (1 - detection, detection).
+    """
+    leak = np.array([1.0 - check.false_alarm, check.false_alarm])
+    causes = np.array([[1.0 - c.detection, c.detection] for c in check.causes]).reshape(len(check.causes), 2)
+    return leak, causes
+
+
+def with_check_tables(check, leak: np.ndarray, causes: np.ndarray):
+    """The check with its figures replaced by tables in the form :func:`check_tables` gives."""
+    return replace(check, false_alarm=float(leak[1]),
+                   causes=tuple(replace(c, detection=float(row[1])) for c, row in zip(check.causes, causes)))
+
+
+def parameters_of(model: Model) -> Parameters:
+    """The model's own figures."""
+    tables = [check_tables(c) for c in _all_checks(model)]
+    return Parameters(np.array([model.prior_of(r) for r in model.hypotheses], dtype=float),
+                      tuple(t[0] for t in tables), tuple(t[1] for t in tables))
+
+
+def model_with(model: Model, params: Parameters, description: str | None = None) -> Model:
+    """The model with the given figures (a failure rate is kept as a rate over the same exposure)."""
+    p = dict(zip(model.hypotheses, params.roots.tolist()))
+    events = []
+    for e in model.basic_events:
+        if e.rate is not None and e.exposure:
+            rate = -math.log1p(-p[e.id]) / e.exposure if p[e.id] < 1.0 else e.rate
+            events.append(replace(e, rate=rate, probability=exponential_probability(rate, e.exposure)))
+        else:
+            events.append(replace(e, probability=p[e.id]))
+    gates = tuple(replace(g, unlisted=p[unlisted_id(g.id)]) if g.unlisted is not None else g for g in model.gates)
+    checks = [with_check_tables(c, leak, causes) for c, leak, causes
+              in zip(_all_checks(model), params.leaks, params.causes)]
+    n = len(model.checks)
+    return replace(model, basic_events=tuple(events), gates=gates, checks=tuple(checks[:n]),
+                   symptoms=tuple(checks[n:]),
+                   description=model.description if description is None else description)
+
+
+# ---------------------------------------------------------------- E-step
+
+
+@dataclass
+class Counts:
+    """Expected counts of one E-step over some sessions (summed piece by piece, in order).
+
+    Attributes
+    ----------
+    roots : numpy.ndarray
+        Expected number of sessions with each root failed.
+    leaks, causes : list of numpy.ndarray
+        Per check: expected count of each outcome produced by no cause (the leak), and by each cause.
+    log_p : float
+        Sum of log P(findings) (the complaint included) over the sessions.
+    sessions : float
+    root_informed : numpy.ndarray
+        Sessions that moved each root's probability by at least :data:`INFORMS`.
+    check_made : numpy.ndarray
+        Times each check was made.
+    refused : list of int
+        Rows the engine refused (findings impossible under the model).
+    """
+
+    roots: np.ndarray
+    leaks: list
+    causes: list
+    log_p: float = 0.0
+    sessions: float = 0.0
+    root_informed: np.ndarray | None = None
+    check_made: np.ndarray | None = None
+    refused: list = field(default_factory=list)
+
+    @classmethod
+    def zeros(cls, params: Parameters) -> Counts:
+        return cls(np.zeros_like(params.roots), [np.zeros_like(a) for a in params.leaks],
+                   [np.zeros_like(a) for a in params.causes], 0.0, 0.0, np.zeros_like(params.roots),
+                   np.zeros(len(params.leaks)))
+
+    def add(self, other: Counts) -> None:
+        self.roots += other.roots
+        for mine, theirs in zip(self.leaks, other.leaks):
+            mine += theirs
+        for mine, theirs in zip(self.causes, other.causes):
+            mine += theirs
+        self.log_p += other.log_p
+        self.sessions += other.sessions
+        self.root_informed += other.root_informed
+        self.check_made += other.check_made
+        self.refused.extend(other.refused)
+
+
+def hidden_outcome_counts(present: np.ndarray, weights: np.ndarray, leak: np.ndarray, causes: np.ndarray,
+                          outcome: int) -> tuple[np.ndarray, np.ndarray]:
+    """Expected outcome counts of the leak and of each cause, given the check's observed outcome.
+
+    Parameters
+    ----------
+    present : numpy.ndarray of bool, shape (S, I)
+        For each joint state s of the check's causes, which of its I causes are present.
+    weights : numpy.ndarray, shape (S,)
+        P(s | every finding of the session), this one included.
+    leak : numpy.ndarray, shape (K,)
+    causes : numpy.ndarray, shape (I, K)
+        Outcome distributions (first outcome = normal) of the leak and of each cause on its own.
+    outcome : int
+        The outcome observed, y.
+
+    Returns
+    -------
+    leak_counts : numpy.ndarray, shape (K,)
+    cause_counts : numpy.ndarray, shape (I, K)
+        E[number of times the leak / cause i produced outcome k]: a present cause produces one
+        outcome per check made, an absent cause none.
+
+    Notes
+    -----
+    Noisy-MAX (noisy-OR with two outcomes): each present cause i, and the leak, produces an outcome
+    Z_i independently, and the check shows Y = max_i Z_i. With F_i the cumulative distribution of
+    Z_i, P(Y = y) = prod_i F_i(y) - prod_i F_i(y - 1), and P(Z_i = k, Y = y) is
+    q_ik (prod_(j != i) F_j(y) - prod_(j != i) F_j(y - 1)) for k < y, q_iy prod_(j != i) F_j(y)
+    for k = y, and 0 above.
+
+    References
+    ----------
+    F. J. Díez, UAI 1993 (noisy-MAX); Heckerman & Breese 1996 (the hidden per-cause variables).
+    """
+    y = int(outcome)
+    S, I = present.shape
+    K = leak.shape[0]
+    cdf = np.cumsum(causes, axis=1) if I else np.zeros((0, K))
+    leak_cdf = np.cumsum(leak)
+    # Columns: the leak, then each cause (an absent cause is always at the first outcome: F = 1).
+    at_y = np.ones((S, I + 1))
+    below = np.ones((S, I + 1))
+    at_y[:, 0] = leak_cdf[y]
+    below[:, 0] = leak_cdf[y - 1] if y > 0 else 0.0
+    if I:
+        at_y[:, 1:] = np.where(present, cdf[:, y], 1.0)
+        below[:, 1:] = np.where(present, cdf[:, y - 1] if y > 0 else 0.0, 1.0 if y > 0 else 0.0)
+    p_y = at_y.prod(axis=1) - below.prod(axis=1)
+    use = (weights > 0) & (p_y > 0)
+    w = np.where(use, weights / np.where(use, p_y, 1.0), 0.0)
+    tables = [leak] + [causes[i] for i in range(I)]
+    counts = []
+    for col in range(I + 1):
+        others_at = np.prod(np.delete(at_y, col, axis=1), axis=1)
+        others_below = np.prod(np.delete(below, col, axis=1), axis=1)
+        q = tables[col]
+        wc = w * present[:, col - 1] if col else w  # the leak is always there; a cause only when present
+        out = np.zeros(K)
+        out[:y] = q[:y] * np.dot(wc, others_at - others_below)
+        out[y] = q[y] * np.dot(wc, others_at)
+        counts.append(out)
+    return counts[0], np.array(counts[1:]).reshape(I, K)
+
+
+def _cause_presence(posterior, check, epoch: int) -> np.ndarray:
+    """(S, I) bool: for each joint state of the check's family nodes at ``epoch``, which causes are present."""
+    fam = posterior.family(check.id, epoch)
+    m = len(fam.nodes)
+    states = np.arange(2**m)
+    bits = ((states[:, None] >> (m - 1 - np.arange(m))) & 1).astype(bool) if m else np.zeros((1, 0), bool)
+    cols = []
+    for cause in check.causes:
+        node = posterior.network.node_for(cause.target, epoch)
+        if isinstance(node, bool):
+            cols.append(np.full(len(states), node))
+        else:
+            cols.append(bits[:, fam.nodes.index(node)])
+    return np.stack(cols, axis=1) if cols else np.zeros((len(states), 0), bool)
+
+
+class FleetEngine(Engine):
+    """An engine for many sessions: one join tree per sequence of repairs, whatever was observed before.
+
+    The session engine keeps, of the logic before the last repair, only what
+    that session's findings read, so its tree is as small as can be; across
+    a fleet that is a new tree for almost every session. Here the tree for a
+    sequence of repairs carries every check and the top event at every
+    earlier epoch, so all sessions with those repairs share it. The extra
+    parts are barren where unobserved: the posteriors are the same.
+    """
+
+    cache_size = 64
+
+    def compiled(self, repairs, past_targets=frozenset()):
+        now = len(repairs)
+        everything = frozenset((c.id, e) for c in self.model.checks + self.model.symptoms for e in range(now)) \
+            | frozenset((self.model.top, e) for e in range(now))
+        return super().compiled(repairs, everything)
+
+
+_ENGINES = threading.local()
+
+
+def _engine_for(token: str, model: Model) -> Engine:
+    """This thread's engine for a set of figures, compiled once per figures (keyed by their digest)."""
+    if getattr(_ENGINES, "token", None) != token:
+        _ENGINES.engine = FleetEngine(model)
+        _ENGINES.token = token
+    return _ENGINES.engine
+
+
+def session_counts(engine: Engine, params: Parameters, data: SessionData, weight: float, into: Counts,
+                   prior_marginals: np.ndarray | None = None) -> None:
+    """Add one session's expected counts (times ``weight``, identical sessions) to ``into``."""
+    model = engine.model
+    post = engine.propagate(data.findings, data.repairs)
+    marg = post.root_marginals()
+    into.roots += weight * marg
+    into.log_p += weight * post.log_p
+    into.sessions += weight
+    if prior_marginals is not None:
+        into.root_informed += weight * (np.abs(marg - prior_marginals) >= INFORMS)
+    index = _check_index(model)
+    for f in data.findings:
+        j = index.get(f.target)
+        if j is None:
+            continue
+        check = model.check_by_id[f.target]
+        joint, _ = post.check_family(check.id, f.epoch)
+        present = _cause_presence(post, check, f.epoch)
+        leak_c, cause_c = hidden_outcome_counts(present, joint, params.leaks[j], params.causes[j], f.outcome)
+        into.leaks[j] += weight * leak_c
+        into.causes[j] += weight * cause_c
+        into.check_made[j] += weight
+
+
+def _check_index(model: Model) -> dict[str, int]:
+    return {c.id: j for j, c in enumerate(_all_checks(model))}
+
+
+def _estep_piece(piece, shared) -> Counts:
+    """One piece of the E-step: rows (index, SessionData, count) under the shared figures."""
+    token, model, params, prior_marginals = shared
+    engine = _engine_for(token, model)
+    counts = Counts.zeros(params)
+    for index, data, weight in piece:
+        try:
+            session_counts(engine, params, data, float(weight), counts, prior_marginals)
+        except (ImpossibleFindings, SessionError):
+            counts.refused.append(index)
+    engine.forget()
+    return counts
+
+
+def _token(params: Parameters) -> str:
+    return hashlib.sha256(params.flat().tobytes()).hexdigest()
+
+
+# ---------------------------------------------------------------- M-step
+
+
+@dataclass(frozen=True)
+class Prior:
+    """Beta / Dirichlet pseudo-counts built from the model's figures.
+
+    Attributes
+    ----------
+    roots_failed, roots_ok : numpy.ndarray
+        Per root: weight / P(top) times p and times 1 - p (the units it takes to see ``weight``
+        failed ones), so the prior speaks as ``weight`` sessions would.
+    leaks, causes : tuple of numpy.ndarray
+        ``weight`` times each outcome distribution.
+    """
+
+    roots_failed: np.ndarray
+    roots_ok: np.ndarray
+    leaks: tuple
+    causes: tuple
+
+
+def prior_from(params: Parameters, p_top: float, weight: float) -> Prior:
+    units = weight / p_top if p_top > 0 else weight
+    return Prior(units * params.roots, units * (1.0 - params.roots),
+                 tuple(weight * a for a in params.leaks), tuple(weight * a for a in params.causes))
+
+
+def _dirichlet_mean(alpha: np.ndarray, counts: np.ndarray) -> np.ndarray:
+    total = alpha + counts
+    sums = total.sum(axis=-1, keepdims=True)
+    return np.where(sums > 0, total / np.where(sums > 0, sums, 1.0), alpha)
+
+
+class TopProbability:
+    """P(top event) for root probabilities, by the fault tree's decision diagram (the engine if too large)."""
+
+    def __init__(self, model: Model):
+        from troubleshoot.analysis.bdd import DiagramTooLarge, FaultTreeBdd
+
+        self.model = model
+        try:
+            self.bdd = FaultTreeBdd.from_model(model)
+            position = {r: i for i, r in enumerate(model.hypotheses)}
+            self.order = np.array([position[r] for r in self.bdd.order], dtype=np.int64)
+        except DiagramTooLarge:
+            self.bdd = None
+
+    def __call__(self, roots: np.ndarray, params: Parameters) -> float:
+        if self.bdd is not None:
+            return replace(self.bdd, priors=roots[self.order]).probability()
+        model = model_with(self.model, replace(params, roots=roots))
+        return Engine(model).propagate().p_failed(model.top)
+
+
+def roots_step(prior: Prior, counts: Counts, working: np.ndarray, unseen: float) -> np.ndarray:
+    """Root probabilities: Beta posterior means over the sessions and ``unseen`` units that did not fail."""
+    return (prior.roots_failed + counts.roots + unseen * working) / \
+        (prior.roots_failed + prior.roots_ok + counts.sessions + unseen)
+
+
+def unseen_for(p_top_target: float, prior: Prior, counts: Counts, working: np.ndarray, params: Parameters,
+               top_probability: TopProbability) -> float:
+    """How many unseen working units keep P(top) at ``p_top_target`` (bisection on a log scale).
+
+    0 when even none gives a P(top) at or below the target.
+    """
+    def excess(unseen: float) -> float:
+        return top_probability(roots_step(prior, counts, working, unseen), params) - p_top_target
+
+    if excess(0.0) <= 0.0:
+        return 0.0
+    low, high = 0.0, max(1.0, counts.sessions)
+    while excess(high) > 0.0:
+        low, high = high, high * 4.0
+        if high > 1e18:
+            return high
+    for _ in range(200):
+        middle = math.sqrt(max(low, 1e-300) * high) if low > 0 else high / 2.0
+        if excess(middle) > 0.0:
+            low = middle
+        else:
+            high = middle
+        if high - low <= 1e-13 * high:
+            break
+    return high
+
+
+def log_prior(prior: Prior, params: Parameters) -> float:
+    """log of the Beta / Dirichlet prior densities (up to constants) at the figures (MAP objective)."""
+    def term(alpha, p):
+        use = alpha > 0
+        return float(np.sum(alpha[use] * np.log(np.maximum(p[use], 1e-300))))
+
+    total = term(prior.roots_failed, params.roots) + term(prior.roots_ok, 1.0 - params.roots)
+    for a, p in zip(prior.leaks + prior.causes, params.leaks + params.causes):
+        total += term(a, p)
+    return total
+
+
+# ---------------------------------------------------------------- the run
+
+
+@dataclass
+class Figure:
+    """One learned figure: before -> after with its interval and the sessions that informed it."""
+
+    kind: str        # "root" or "detection" or "false-alarm"
+    id: str          # root id, or check id, or "check:cause"
+    label: str
+    before: float
+    after: float
+    low: float
+    high: float
+    informed: float  # sessions (roots) / times made with the cause present (detection) / times made (false alarm)
+    check: str = ""
+    cause: str = ""
+    outcome: str = ""
+
+
+@dataclass
+class LearnResult:
+    """Everything ``learn`` found, for the learned model, the report, the JSON and the plot."""
+
+    model: Model
+    learned: Model
+    params_before: Parameters
+    params_after: Parameters
+    figures: list
+    sessions: int
+    distinct: int
+    logs: int
+    problems: list
+    iterations: int
+    converged: bool
+    log_likelihood: float
+    history: list
+    prior_weight: float
+    exposure: float | None
+    unseen_units: float
+    p_top_before: float
+    p_top_after: float
+    confirmed: dict
+    predicted: dict
+    expected_failed: dict
+    escalated: int
+    dates: tuple
+    model_sha256: str
+    where: str
+
+
+def read_sessions(model: Model, model_sha: str, paths: list[str], executor=None,
+                  progress=None) -> tuple[list[tuple[str, SessionData]], list[LogProblem]]:
+    """Every usable session among the logs (in the order of ``paths``) and what was wrong with the others."""
+    from troubleshoot.study.execution import InProcess, chunks
+
+    executor = executor or InProcess()
+    pieces = chunks(list(paths), LOGS_PER_PIECE)
+
+    def read_progress(done, total):
+        if progress is not None:
+            progress("read", min(len(paths), done * LOGS_PER_PIECE), len(paths), None)
+
+    read = executor.map(_read_piece, pieces, (model, model_sha), progress=read_progress)
+    problems: list[LogProblem] = []
+    sessions: list[tuple[str, SessionData]] = []
+    for piece_paths, piece in zip(pieces, read):
+        for path, (data, probs) in zip(piece_paths, piece):
+            problems.extend(probs)
+            if data is not None:
+                sessions.append((path, data))
+    return sessions, problems
+
+
+def learn(model: Model, model_sha: str, paths: list[str], *, prior_weight: float = DEFAULT_PRIOR_WEIGHT,
+          exposure: float | None = None, executor=None, progress=None, max_iterations: int = MAX_ITERATIONS,
+          tolerance: float = TOLERANCE) -> LearnResult:
+    """Learn a model's figures from session logs (see the module notes).
+
+    Parameters
+    ----------
+    model : Model
+    model_sha : str
+        SHA-256 of the model file; only logs made on it are used.
+    paths : list of str
+        Session log files (see :func:`log_files`).
+    prior_weight : float
+        What the model's own figures are worth, in sessions (> 0).
+    exposure : float, optional
+        Unit-periods of service the sessions come from (at least the number of sessions).
+    executor : optional
+        From :func:`troubleshoot.study.execution.executor_for`; default in this process.
+    progress : callable, optional
+        ``progress(stage, done, total, info)``: stage ``"read"`` (logs read) or ``"em"``
+        (iteration, with ``info`` the log-likelihood and its change).
+
+    Raises
+    ------
+    LearnError
+        No usable session, or a bad prior weight or exposure.
+    """
+    sessions, problems = read_sessions(model, model_sha, paths, executor, progress)
+    if not sessions:
+        raise LearnError(f"none of the {len(paths)} log(s) given is a usable session of model {model.name!r}"
+                         + (f" (first problem: {problems[0].message})" if problems else ""))
+    return learn_sessions(model, sessions, model_sha=model_sha, problems=problems, logs=len(paths),
+                          prior_weight=prior_weight, exposure=exposure, executor=executor, progress=progress,
+                          max_iterations=max_iterations, tolerance=tolerance)
+
+
+def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, model_sha: str = "",
+                   problems: list | None = None, logs: int | None = None,
+                   prior_weight: float = DEFAULT_PRIOR_WEIGHT, exposure: float | None = None, executor=None,
+                   progress=None, max_iterations: int = MAX_ITERATIONS, tolerance: float = TOLERANCE) -> LearnResult:
+    """EM over sessions already read: (name, SessionData) pairs. See :func:`learn`."""
+    from troubleshoot.study.execution import InProcess, chunks
+
+    if not (prior_weight > 0 and math.isfinite(prior_weight)):
+        raise LearnError(f"--prior-weight must be a positive number of sessions, not {prior_weight!r}")
+    if not sessions:
+        raise LearnError("no session to learn from")
+    if exposure is not None and not (math.isfinite(exposure) and exposure >= len(sessions)):
+        raise LearnError(f"--exposure must be at least the number of sessions ({len(sessions)} unit-periods), "
+                         f"not {exposure!r}")
+    executor = executor or InProcess()
+    problems = list(problems or [])
+    logs = len(sessions) if logs is None else logs
+
+    # Identical sessions are one row; rows sorted by their repairs so a piece compiles few join trees.
+    rows: dict = {}
+    paths_of: dict = {}
+    for path, data in sessions:
+        key = (data.findings, data.repairs)
+        rows[key] = rows.get(key, 0) + 1
+        paths_of.setdefault(key, []).append(path)
+    keys = sorted(rows, key=lambda k: (len(k[1]), k[1], len(k[0])))
+    before = parameters_of(model)
+    engine0 = Engine(model)
+    p_top0 = engine0.propagate().p_failed(model.top)
+    prior = prior_from(before, p_top0, prior_weight)
+    top_probability = TopProbability(model)
+    params = before
+    history: list[tuple[int, float, float]] = []
+    unseen = 0.0 if exposure is None else float(exposure) - len(sessions)
+    converged = False
+    iteration = 0
+    previous = None
+    dropped: list[LogProblem] = []
+    while True:
+        current = model_with(model, params)
+        engine = Engine(current)
+        prior_marg = engine.propagate([Finding(model.top, 1, 0)]).root_marginals()
+        table = [(i, SessionData(k[0], k[1]), rows[k]) for i, k in enumerate(keys)]
+        results = executor.map(_estep_piece, chunks(table, ROWS_PER_PIECE),
+                               (_token(params), current, params, prior_marg))
+        counts = Counts.zeros(params)
+        for piece_counts in results:
+            counts.add(piece_counts)
+        if counts.refused:
+            # Findings the model calls impossible: name the logs, leave them out, redo this E-step.
+            for i in sorted(counts.refused):
+                for path in paths_of[keys[i]]:
+                    dropped.append(LogProblem(path, IMPOSSIBLE, f"{path}: its findings are impossible under the "
+                                                                "model (a zero figure contradicts them)"))
+            refused = {keys[i] for i in counts.refused}
+            keys = [k for k in keys if k not in refused]
+            if not keys:
+                raise LearnError("every session's findings are impossible under the model")
+            continue
+        p_top = engine.propagate().p_failed(model.top)
+        # The data's log-likelihood under the current figures.
+        if exposure is None:
+            log_lik = counts.log_p - counts.sessions * math.log(p_top)
+        else:
+            log_lik = counts.log_p + (unseen * math.log1p(-p_top) if unseen else 0.0)
+        objective = log_lik + log_prior(prior, params)
+        change = objective - previous if previous is not None else math.nan
+        history.append((iteration, log_lik, change))
+        if progress is not None:
+            progress("em", iteration, max_iterations, (log_lik, change))
+        if converged or iteration >= max_iterations:
+            break
+        # M-step: every figure its Beta / Dirichlet posterior mean.
+        working = engine.propagate([Finding(model.top, 0, 0)]).root_marginals() if p_top < 1.0 \
+            else np.zeros_like(params.roots)
+        if exposure is None:
+            unseen = unseen_for(p_top0, prior, counts, working, params, top_probability)
+        new = Parameters(roots_step(prior, counts, working, unseen),
+                         tuple(_dirichlet_mean(a, c) for a, c in zip(prior.leaks, counts.leaks)),
+                         tuple(_dirichlet_mean(a, c) for a, c in zip(prior.causes, counts.causes)))
+        converged = float(np.max(np.abs(new.flat() - params.flat()))) <= tolerance
+        params, previous = new, objective
+        iteration += 1
+    final_counts = counts
+
+    kept = set(keys)
+    used = [(p, d) for p, d in sessions if (d.findings, d.repairs) in kept] if dropped else sessions
+    problems.extend(dropped)
+    return _result(model, model_sha, params, before, prior, final_counts, used, problems, iteration, converged,
+                   history, prior_weight, exposure, unseen, p_top0, len(keys), logs, executor.where)
+
+
+def _result(model, model_sha, params, before, prior, counts, sessions, problems, iterations, converged, history,
+            prior_weight, exposure, unseen, p_top0, distinct, logs, where) -> LearnResult:
+    n = len(sessions)
+    times = sorted(d.time for _, d in sessions if d.time)
+    dates = (times[0][:10], times[-1][:10]) if times else ("", "")
+    learned_desc = (
+        f"Learned by troubleshoot learn from {n} session logs ({dates[0]} to {dates[1]}) made on the model with "
+        f"SHA-256 {model_sha}; prior weight {prior_weight:g} sessions; "
+        + (f"exposure {exposure:g} unit-periods." if exposure is not None
+           else "P(top event) kept at the model's value (no exposure given).")
+        + (f" {model.description}" if model.description else ""))
+    learned = model_with(model, params, learned_desc)
+    p_top_after = Engine(learned).propagate().p_failed(model.top)
+    prior_engine = Engine(model).propagate([Finding(model.top, 1, 0)])
+    p_given_top = dict(zip(model.hypotheses, prior_engine.root_marginals().tolist()))
+    figures = []
+    # Root events: Beta(alpha + expected failed, beta + expected working) over the sessions and unseen units.
+    working = Engine(learned).propagate([Finding(model.top, 0, 0)]).root_marginals() if p_top_after < 1.0 \
+        else np.zeros_like(params.roots)
+    for i, r in enumerate(model.hypotheses):
+        a = prior.roots_failed[i] + counts.roots[i] + unseen * working[i]
+        b = prior.roots_ok[i] + (counts.sessions - counts.roots[i]) + unseen * (1.0 - working[i])
+        low, high = beta_interval(a, b)
+        figures.append(Figure("root", r, model.label_of(r), float(before.roots[i]), float(params.roots[i]),
+                              low, high, float(counts.root_informed[i])))
+    for j, check in enumerate(_all_checks(model)):
+        made = float(counts.check_made[j])
+        alpha = prior.leaks[j] + counts.leaks[j]
+        for k in range(1, len(alpha)):
+            low, high = beta_interval(alpha[k], alpha.sum() - alpha[k])
+            figures.append(Figure("false-alarm", check.id, check.label, float(before.leaks[j][k]),
+                                  float(params.leaks[j][k]), low, high, made, check.id, "", check.outcomes[k]))
+        for i, cause in enumerate(check.causes):
+            alpha = prior.causes[j][i] + counts.causes[j][i]
+            trials = float(counts.causes[j][i].sum())
+            for k in range(1, len(alpha)):
+                low, high = beta_interval(alpha[k], alpha.sum() - alpha[k])
+                figures.append(Figure("detection", f"{check.id}:{cause.target}", check.label,
+                                      float(before.causes[j][i][k]), float(params.causes[j][i][k]), low, high,
+                                      trials, check.id, cause.target, check.outcomes[k]))
+    confirmed = {r: 0 for r in model.hypotheses}
+    for _, d in sessions:
+        if d.confirmed is not None:
+            confirmed[d.confirmed] += 1
+    predicted = {r: n * p_given_top[r] for r in model.hypotheses}
+    expected = {r: float(counts.roots[i]) for i, r in enumerate(model.hypotheses)}
+    return LearnResult(
+        model=model, learned=learned, params_before=before, params_after=params, figures=figures, sessions=n,
+        distinct=distinct, logs=logs, problems=problems, iterations=iterations, converged=converged,
+        log_likelihood=history[-1][1], history=history, prior_weight=prior_weight, exposure=exposure,
+        unseen_units=unseen, p_top_before=p_top0, p_top_after=p_top_after, confirmed=confirmed,
+        predicted=predicted, expected_failed=expected, escalated=sum(1 for _, d in sessions if d.escalated),
+        dates=dates, model_sha256=model_sha, where=where)
+
+
+# ---------------------------------------------------------------- intervals
+
+
+def _betacf(a: float, b: float, x: float) -> float:
+    """Continued fraction of the incomplete beta function (modified Lentz)."""
+    tiny = 1e-300
+    qab, qap, qam = a + b, a + 1.0, a - 1.0
+    c, d = 1.0, 1.0 - qab * x / qap
+    d = 1.0 / (d if abs(d) > tiny else tiny)
+    h = d
+    for m in range(1, 1000):
+        m2 = 2 * m
+        aa = m * (b - m) * x / ((qam + m2) * (a + m2))
+        d = 1.0 + aa * d
+        d = 1.0 / (d if abs(d) > tiny else tiny)
+        c = 1.0 + aa / c
+        c = c if abs(c) > tiny else tiny
+        h *= d * c
+        aa = -(a + m) * (qab + m) * x / ((a + m2) * (qap + m2))
+        d = 1.0 + aa * d
+        d = 1.0 / (d if abs(d) > tiny else tiny)
+        c = 1.0 + aa / c
+        c = c if abs(c) > tiny else tiny
+        delta = d * c
+        h *= delta
+        if abs(delta - 1.0) < 1e-15:
+            break
+    return h
+
+
+def beta_cdf(x: float, a: float, b: float) -> float:
+    """The regularised incomplete beta function I_x(a, b): the Beta(a, b) distribution function.
+
+    References
+    ----------
+    W. H. Press et al., *Numerical Recipes*, 3rd ed., 2007, section 6.4 (continued fraction).
+    """
+    if x <= 0.0:
+        return 0.0
+    if x >= 1.0:
+        return 1.0
+    log_front = (math.lgamma(a + b) - math.lgamma(a) - math.lgamma(b) + a * math.log(x) + b * math.log1p(-x))
+    if x < (a + 1.0) / (a + b + 2.0):
+        return math.exp(log_front) * _betacf(a, b, x) / a
+    return 1.0 - math.exp(log_front) * _betacf(b, a, 1.0 - x) / b
+
+
+def beta_quantile(q: float, a: float, b: float) -> float:
+    """The q-quantile of Beta(a, b) (bisection on :func:`beta_cdf`); a or b = 0 puts all mass at 1 or 0."""
+    if a <= 0.0:
+        return 0.0
+    if b <= 0.0:
+        return 1.0
+    low, high = 0.0, 1.0
+    for _ in range(200):
+        mid = 0.5 * (low + high)
+        if beta_cdf(mid, a, b) < q:
+            low = mid
+        else:
+            high = mid
+        if high - low < 1e-14:
+            break
+    return 0.5 * (low + high)
+
+
+def beta_interval(a: float, b: float, level: float = INTERVAL) -> tuple[float, float]:
+    """Central ``level`` interval of Beta(a, b)."""
+    tail = (1.0 - level) / 2.0
+    return beta_quantile(tail, float(a), float(b)), beta_quantile(1.0 - tail, float(a), float(b))
