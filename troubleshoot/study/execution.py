@@ -168,17 +168,18 @@ class DaskCluster(InProcess):
             on_result: Callable[[int, Any], Any] | None = None) -> list:
         from distributed import as_completed
 
-        futures = self._client.map(fn, list(items), shared=shared, pure=False)
+        futures = self._client.map(fn, list(items), [shared] * len(items), pure=False)
         index = {f.key: i for i, f in enumerate(futures)}
         results: dict[int, Any] = {}
         try:
-            for future in as_completed(futures):
-                i = index[future.key]
-                if i not in results:
-                    result = future.result()
-                    results[i] = on_result(i, result) if on_result is not None else result
-                    if progress is not None:
-                        progress(len(results), len(items))
+            with self._client.as_current():
+                for future in as_completed(futures):
+                    i = index[future.key]
+                    if i not in results:
+                        result = self._client.gather(future)
+                        results[i] = on_result(i, result) if on_result is not None else result
+                        if progress is not None:
+                            progress(len(results), len(items))
         except Exception as exc:  # a task failed on every worker it was given to
             if isinstance(exc, TroubleshootError):
                 raise

@@ -390,6 +390,9 @@ class Counts:
     root_informed: np.ndarray | None = None
     check_made: np.ndarray | None = None
     refused: list = field(default_factory=list)
+    #: (repairs before, check index, epoch, outcome) -> [cause presence, summed P(cause states | findings)]:
+    #: the hidden counts are linear in those weights, so they are worked out once per key (:meth:`settle`).
+    pending: dict = field(default_factory=dict)
 
     @classmethod
     def zeros(cls, params: Parameters) -> Counts:
@@ -408,6 +411,15 @@ class Counts:
         self.root_informed += other.root_informed
         self.check_made += other.check_made
         self.refused.extend(other.refused)
+
+    def settle(self, params: Parameters) -> "Counts":
+        """Turn the summed cause-state weights into expected outcome counts of every leak and cause."""
+        for (_repairs, j, _epoch, outcome), (present, weights) in self.pending.items():
+            leak_c, cause_c = hidden_outcome_counts(present, weights, params.leaks[j], params.causes[j], outcome)
+            self.leaks[j] += leak_c
+            self.causes[j] += cause_c
+        self.pending = {}
+        return self
 
 
 def hidden_outcome_counts(present: np.ndarray, weights: np.ndarray, leak: np.ndarray, causes: np.ndarray,
@@ -461,22 +473,31 @@ def hidden_outcome_counts(present: np.ndarray, weights: np.ndarray, leak: np.nda
     p_y = at_y.prod(axis=1) - below.prod(axis=1)
     use = (weights > 0) & (p_y > 0)
     w = np.where(use, weights / np.where(use, p_y, 1.0), 0.0)
-    tables = [leak] + [causes[i] for i in range(I)]
-    counts = []
-    for col in range(I + 1):
-        others_at = np.prod(np.delete(at_y, col, axis=1), axis=1)
-        others_below = np.prod(np.delete(below, col, axis=1), axis=1)
-        q = tables[col]
-        wc = w * present[:, col - 1] if col else w  # the leak is always there; a cause only when present
-        out = np.zeros(K)
-        out[:y] = q[:y] * np.dot(wc, others_at - others_below)
-        out[y] = q[y] * np.dot(wc, others_at)
-        counts.append(out)
-    return counts[0], np.array(counts[1:]).reshape(I, K)
+    # Products over every column but one, from prefix and suffix products (no division by zero).
+    def without_each(a):
+        ones = np.ones((S, 1))
+        left = np.cumprod(np.hstack([ones, a[:, :-1]]), axis=1)
+        right = np.cumprod(np.hstack([ones, a[:, :0:-1]]), axis=1)[:, ::-1]
+        return left * right
+
+    others_at, others_below = without_each(at_y), without_each(below)
+    mask = np.hstack([np.ones((S, 1)), present.astype(float)])  # the leak is always there; a cause when present
+    wm = w[:, None] * mask
+    shown_here = np.einsum("sc,sc->c", wm, others_at)
+    shown_above = np.einsum("sc,sc->c", wm, others_at - others_below)
+    tables = np.vstack([leak[None, :], causes])
+    counts = np.zeros((I + 1, K))
+    counts[:, :y] = tables[:, :y] * shown_above[:, None]
+    counts[:, y] = tables[:, y] * shown_here
+    return counts[0], counts[1:].reshape(I, K)
 
 
-def _cause_presence(posterior, check, epoch: int) -> np.ndarray:
+def _cause_presence(engine, posterior, check, epoch: int) -> np.ndarray:
     """(S, I) bool: for each joint state of the check's family nodes at ``epoch``, which causes are present."""
+    cache = getattr(engine, "presence", None)
+    key = (posterior.repairs[:epoch], check.id, epoch)
+    if cache is not None and key in cache:
+        return cache[key]
     fam = posterior.family(check.id, epoch)
     m = len(fam.nodes)
     states = np.arange(2**m)
@@ -488,43 +509,145 @@ def _cause_presence(posterior, check, epoch: int) -> np.ndarray:
             cols.append(np.full(len(states), node))
         else:
             cols.append(bits[:, fam.nodes.index(node)])
-    return np.stack(cols, axis=1) if cols else np.zeros((len(states), 0), bool)
+    out = np.stack(cols, axis=1) if cols else np.zeros((len(states), 0), bool)
+    if cache is not None:
+        cache[key] = out
+    return out
 
 
 class FleetEngine(Engine):
-    """An engine for many sessions: one join tree per sequence of repairs, whatever was observed before.
+    """An engine for many sessions and many sets of figures of one model structure.
 
     The session engine keeps, of the logic before the last repair, only what
     that session's findings read, so its tree is as small as can be; across
     a fleet that is a new tree for almost every session. Here the tree for a
     sequence of repairs carries every check and the top event at every
-    earlier epoch, so all sessions with those repairs share it. The extra
-    parts are barren where unobserved: the posteriors are the same.
+    earlier epoch, so all sessions with those repairs share it (the extra
+    parts are barren where unobserved: the posteriors are the same). And EM
+    changes only the figures, never the structure: a tree compiled under
+    earlier figures (kept in ``structures``) is refitted (new root tables,
+    new check likelihoods, new clique potentials) instead of compiled again.
+
+    Parameters
+    ----------
+    model : Model
+    structures : dict, optional
+        Trees compiled under any figures of the same structure, shared between engines.
     """
 
-    cache_size = 64
+    cache_size = 4096
+
+    def __init__(self, model: Model, structures: dict | None = None):
+        self._structures = {} if structures is None else structures
+        #: (repairs, check, epoch) -> which causes are present in each state of the check's family.
+        self.presence = self._structures.setdefault("presence", {})
+        super().__init__(model)
 
     def compiled(self, repairs, past_targets=frozenset()):
+        repairs = tuple(repairs)
         now = len(repairs)
         everything = frozenset((c.id, e) for c in self.model.checks + self.model.symptoms for e in range(now)) \
             | frozenset((self.model.top, e) for e in range(now))
-        return super().compiled(repairs, everything)
+        key = (repairs, everything)
+        if key in self._trees:
+            return self._trees[key]
+        known = self._structures.get(key)
+        if known is None:
+            known = _Structure(*super().compiled(repairs, everything))
+            self._structures[key] = known
+        # Always through the refit, so a tree's numbers never depend on when it was first compiled.
+        self._trees[key] = known.refit(self.model)
+        return self._trees[key]
+
+
+class _Families(dict):
+    """A network's check families, each built when first asked for (EM reads only the checks made)."""
+
+    def __init__(self, builder, model: Model):
+        super().__init__()
+        self._builder = builder
+        self._model = model
+
+    def __missing__(self, key):
+        family = self._builder.family(self._model.check_by_id[key[0]], key[1])
+        self[key] = family
+        return family
+
+
+class _Structure:
+    """A compiled (network, tree) kept for its structure, with the clique potentials before the root tables."""
+
+    def __init__(self, net, tree):
+        import copy
+
+        self.net, self.tree = net, tree
+        roots = [r for r in net.model.hypotheses if r in tree.index]
+        flat = net.graph.copy()
+        for r in roots:
+            flat.nodes[r]["table"] = np.ones(2)
+        scratch = copy.copy(tree)
+        scratch.network = copy.copy(net)
+        scratch.network.graph = flat
+        self.base = scratch._base_potentials()  # every deterministic table, no root's
+        self.slots = []
+        for r in roots:
+            i = tree.index[r]
+            c = tree._host_of_group([i])
+            shape = [1] * len(tree.cliques[c])
+            shape[tree.cliques[c].index(i)] = 2
+            self.slots.append((r, int(tree.offsets[c]), int(tree.offsets[c + 1]), tree.shapes[c], tuple(shape)))
+
+    def refit(self, model: Model):
+        """The network and tree with ``model``'s figures: root tables into their cliques, families anew.
+
+        The network's graph stays the structure's (its root tables are those it was compiled with);
+        inference reads only the tree's potentials and the families.
+        """
+        import copy
+
+        from troubleshoot.engine.network import MAX_FANIN, _Builder
+
+        net = copy.copy(self.net)
+        net.model = model
+        builder = _Builder(model, self.net.repairs, MAX_FANIN)
+        builder.net.gate_node = self.net.gate_node  # read only: every (gate, epoch) is already there
+        net.families = _Families(builder, model)
+        tree = copy.copy(self.tree)
+        tree.network = net
+        base = self.base.copy()
+        for root, start, stop, clique_shape, shape in self.slots:
+            p = model.prior_of(root)
+            base[start:stop].reshape(clique_shape)[...] *= np.array([1.0 - p, p]).reshape(shape)
+        tree.base = base
+        return net, tree
 
 
 _ENGINES = threading.local()
 
 
 def _engine_for(token: str, model: Model) -> Engine:
-    """This thread's engine for a set of figures, compiled once per figures (keyed by their digest)."""
+    """This thread's engine for a set of figures (keyed by their digest), its trees refitted, not compiled."""
     if getattr(_ENGINES, "token", None) != token:
-        _ENGINES.engine = FleetEngine(model)
+        if getattr(_ENGINES, "structure", None) != _structure_of(model):
+            _ENGINES.structure = _structure_of(model)
+            _ENGINES.trees = {}
+        _ENGINES.engine = FleetEngine(model, _ENGINES.trees)
         _ENGINES.token = token
     return _ENGINES.engine
 
 
+def _structure_of(model: Model):
+    """What a compiled tree depends on besides the figures."""
+    return (model.top, model.hypotheses, tuple((g.id, g.kind, g.inputs, g.k, g.condition) for g in model.gates),
+            tuple((c.id, tuple(x.target for x in c.causes)) for c in model.checks + model.symptoms))
+
+
 def session_counts(engine: Engine, params: Parameters, data: SessionData, weight: float, into: Counts,
                    prior_marginals: np.ndarray | None = None) -> None:
-    """Add one session's expected counts (times ``weight``, identical sessions) to ``into``."""
+    """Add one session's expected counts (times ``weight``, identical sessions) to ``into``.
+
+    The checks' counts are pending until ``into.settle(params)``.
+    """
     model = engine.model
     post = engine.propagate(data.findings, data.repairs)
     marg = post.root_marginals()
@@ -540,10 +663,13 @@ def session_counts(engine: Engine, params: Parameters, data: SessionData, weight
             continue
         check = model.check_by_id[f.target]
         joint, _ = post.check_family(check.id, f.epoch)
-        present = _cause_presence(post, check, f.epoch)
-        leak_c, cause_c = hidden_outcome_counts(present, joint, params.leaks[j], params.causes[j], f.outcome)
-        into.leaks[j] += weight * leak_c
-        into.causes[j] += weight * cause_c
+        # What the check read then depends on the repairs made before it, not after.
+        key = (data.repairs[: f.epoch], j, f.epoch, f.outcome)
+        slot = into.pending.get(key)
+        if slot is None:
+            into.pending[key] = [_cause_presence(engine, post, check, f.epoch), weight * joint]
+        else:
+            slot[1] = slot[1] + weight * joint
         into.check_made[j] += weight
 
 
@@ -562,7 +688,19 @@ def _estep_piece(piece, shared) -> Counts:
         except (ImpossibleFindings, SessionError):
             counts.refused.append(index)
     engine.forget()
-    return counts
+    return counts.settle(params)
+
+
+def _unflat(template: Parameters, flat: np.ndarray) -> Parameters:
+    """Figures shaped like ``template`` from a flat vector (the order of :meth:`Parameters.flat`)."""
+    pos = len(template.roots)
+    roots = flat[:pos].copy()
+    shaped = []
+    for a in template.leaks + template.causes:
+        shaped.append(flat[pos:pos + a.size].reshape(a.shape).copy())
+        pos += a.size
+    n = len(template.leaks)
+    return Parameters(roots, tuple(shaped[:n]), tuple(shaped[n:]))
 
 
 def _token(params: Parameters) -> str:
@@ -810,59 +948,90 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
     p_top0 = engine0.propagate().p_failed(model.top)
     prior = prior_from(before, p_top0, prior_weight)
     top_probability = TopProbability(model)
-    params = before
     history: list[tuple[int, float, float]] = []
-    unseen = 0.0 if exposure is None else float(exposure) - len(sessions)
-    converged = False
-    iteration = 0
-    previous = None
+    state = {"keys": keys, "unseen": 0.0 if exposure is None else float(exposure) - len(sessions),
+             "previous": None}
     dropped: list[LogProblem] = []
-    while True:
-        current = model_with(model, params)
-        engine = Engine(current)
-        prior_marg = engine.propagate([Finding(model.top, 1, 0)]).root_marginals()
-        table = [(i, SessionData(k[0], k[1]), rows[k]) for i, k in enumerate(keys)]
-        results = executor.map(_estep_piece, chunks(table, ROWS_PER_PIECE),
-                               (_token(params), current, params, prior_marg))
-        counts = Counts.zeros(params)
-        for piece_counts in results:
-            counts.add(piece_counts)
-        if counts.refused:
+    structures: dict = {}
+
+    def em_step(params: Parameters):
+        """One E-step at ``params`` and the M-step after it: (counts, objective, next figures)."""
+        while True:
+            current = model_with(model, params)
+            engine = FleetEngine(current, structures)
+            prior_marg = engine.propagate([Finding(model.top, 1, 0)]).root_marginals()
+            table = [(i, SessionData(k[0], k[1]), rows[k]) for i, k in enumerate(state["keys"])]
+            results = executor.map(_estep_piece, chunks(table, ROWS_PER_PIECE),
+                                   (_token(params), current, params, prior_marg))
+            counts = Counts.zeros(params)
+            for piece_counts in results:
+                counts.add(piece_counts)
+            if not counts.refused:
+                break
             # Findings the model calls impossible: name the logs, leave them out, redo this E-step.
             for i in sorted(counts.refused):
-                for path in paths_of[keys[i]]:
+                for path in paths_of[state["keys"][i]]:
                     dropped.append(LogProblem(path, IMPOSSIBLE, f"{path}: its findings are impossible under the "
                                                                 "model (a zero figure contradicts them)"))
-            refused = {keys[i] for i in counts.refused}
-            keys = [k for k in keys if k not in refused]
-            if not keys:
+            refused = {state["keys"][i] for i in counts.refused}
+            state["keys"] = [k for k in state["keys"] if k not in refused]
+            if not state["keys"]:
                 raise LearnError("every session's findings are impossible under the model")
-            continue
         p_top = engine.propagate().p_failed(model.top)
-        # The data's log-likelihood under the current figures.
+        # The data's log-likelihood under these figures.
         if exposure is None:
             log_lik = counts.log_p - counts.sessions * math.log(p_top)
         else:
-            log_lik = counts.log_p + (unseen * math.log1p(-p_top) if unseen else 0.0)
+            log_lik = counts.log_p + (state["unseen"] * math.log1p(-p_top) if state["unseen"] else 0.0)
         objective = log_lik + log_prior(prior, params)
-        change = objective - previous if previous is not None else math.nan
-        history.append((iteration, log_lik, change))
+        change = objective - state["previous"] if state["previous"] is not None else math.nan
+        state["previous"] = objective
+        history.append((len(history), log_lik, change))
         if progress is not None:
-            progress("em", iteration, max_iterations, (log_lik, change))
-        if converged or iteration >= max_iterations:
-            break
+            progress("em", len(history) - 1, max_iterations, (log_lik, change))
         # M-step: every figure its Beta / Dirichlet posterior mean.
         working = engine.propagate([Finding(model.top, 0, 0)]).root_marginals() if p_top < 1.0 \
             else np.zeros_like(params.roots)
         if exposure is None:
-            unseen = unseen_for(p_top0, prior, counts, working, params, top_probability)
-        new = Parameters(roots_step(prior, counts, working, unseen),
+            state["unseen"] = unseen_for(p_top0, prior, counts, working, params, top_probability)
+        new = Parameters(roots_step(prior, counts, working, state["unseen"]),
                          tuple(_dirichlet_mean(a, c) for a, c in zip(prior.leaks, counts.leaks)),
                          tuple(_dirichlet_mean(a, c) for a, c in zip(prior.causes, counts.causes)))
-        converged = float(np.max(np.abs(new.flat() - params.flat()))) <= tolerance
-        params, previous = new, objective
-        iteration += 1
+        return counts, objective, new
+
+    def moved(a: Parameters, b: Parameters) -> float:
+        return float(np.max(np.abs(a.flat() - b.flat()))) if a.flat().size else 0.0
+
+    # EM accelerated by squared extrapolation (SQUAREM, scheme S3): two EM steps, a step along their
+    # second difference, one EM step from there kept only if the objective did not fall. Same fixed point.
+    params = before
+    converged = False
+    while len(history) < max_iterations:
+        _, objective0, first = em_step(params)
+        if moved(first, params) <= tolerance:
+            params, converged = first, True
+            break
+        _, objective1, second = em_step(first)
+        if moved(second, first) <= tolerance or len(history) >= max_iterations:
+            params, converged = second, moved(second, first) <= tolerance
+            break
+        r = first.flat() - params.flat()
+        v = second.flat() - first.flat() - r
+        norm_v = float(np.linalg.norm(v))
+        alpha = min(-1.0, -float(np.linalg.norm(r)) / norm_v) if norm_v > 0 else -1.0
+        jump = params.flat() - 2.0 * alpha * r + alpha * alpha * v
+        inside = (params.flat() > 0.0) & (params.flat() < 1.0)  # a 0 or 1 figure never moves
+        if alpha < -1.0 and np.all((jump[inside] > 1e-12) & (jump[inside] < 1.0 - 1e-12)):
+            _, objective_jump, after_jump = em_step(_unflat(params, jump))
+            params = after_jump if objective_jump >= objective1 else second
+        else:
+            params = second
+    # One more E-step at the final figures, for the report's counts and log-likelihood.
+    counts, _, _ = em_step(params)
     final_counts = counts
+    keys = state["keys"]
+    unseen = state["unseen"]
+    iteration = len(history) - 1
 
     kept = set(keys)
     used = [(p, d) for p, d in sessions if (d.findings, d.repairs) in kept] if dropped else sessions

@@ -1,0 +1,395 @@
+"""Learning from session logs: the E-step against enumeration, the closed form on complete data, logs of
+every kind of damage, the execution layer.
+
+References named beside each check: the noisy-OR / noisy-MAX definitions (Pearl 1988; Díez 1993), with
+their hidden per-cause variables enumerated here (Heckerman & Breese 1996); the Beta / Dirichlet
+posterior mean (conjugate prior: e.g. Gelman et al., *Bayesian Data Analysis*, 3rd ed., section 2.4);
+the OR gate's probability 1 - prod(1 - p) (NUREG-0492, chapter VI); scipy for the Beta quantiles.
+"""
+
+from __future__ import annotations
+
+import itertools
+import json
+import math
+import os
+import random
+from dataclasses import replace
+
+import numpy as np
+import pytest
+
+import bruteforce
+from randommodels import random_model
+from troubleshoot.cli import main
+from troubleshoot.engine.inference import Finding
+from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair
+from troubleshoot.model.source import load_any_model
+from troubleshoot.model.xmlfile import load_model, save_model
+from troubleshoot.session import Session
+from troubleshoot.session.logfile import new_session, read_log
+from troubleshoot.study.execution import InProcess, LocalProcesses
+from troubleshoot.study.learn import (
+    Counts,
+    FleetEngine,
+    SessionData,
+    beta_quantile,
+    fold_actions,
+    hidden_outcome_counts,
+    learn,
+    learn_sessions,
+    log_files,
+    model_sha256,
+    parameters_of,
+    session_counts,
+)
+
+
+# ---------------------------------------------------------------- the E-step against enumeration
+
+
+def _brute_counts(model: Model, findings, repairs):
+    """Expected counts by enumerating every root state and every hidden per-cause outcome.
+
+    Written from the noisy-OR definition: each present cause i shows with probability d_i, the
+    leak with probability f, independently; the check reads abnormal when anything shows.
+    """
+    post = bruteforce.posterior(model, findings, repairs)
+    joint, values = post["joint"], post["values"]
+    roots = np.array([post["marginals"][r] for r in model.hypotheses])
+    checks = {}
+    for f in findings:
+        if f.target not in model.check_by_id:
+            continue
+        check = model.check_by_id[f.target]
+        present = np.stack([values[f.epoch][c.target] for c in check.causes], axis=1)  # rows x causes
+        p_y = bruteforce.likelihood(model, values, f)
+        leak = np.zeros(2)
+        causes = np.zeros((len(check.causes), 2))
+        for hidden in itertools.product((0, 1), repeat=len(check.causes) + 1):
+            leak_bit, bits = hidden[0], hidden[1:]
+            # P(hidden | root state): a cause that is absent never shows.
+            p = np.full(len(joint), check.false_alarm if leak_bit else 1.0 - check.false_alarm)
+            for i, (cause, bit) in enumerate(zip(check.causes, bits)):
+                p = p * np.where(present[:, i], cause.detection if bit else 1.0 - cause.detection,
+                                 0.0 if bit else 1.0)
+            if int(any(hidden)) != f.outcome:
+                continue
+            w = np.where(p_y > 0, joint * p / np.where(p_y > 0, p_y, 1.0), 0.0)
+            leak[leak_bit] += w.sum()
+            for i, bit in enumerate(bits):
+                causes[i, bit] += (w * present[:, i]).sum()
+        checks[(f.target, f.epoch)] = (leak, causes)
+    return post["log_p"], roots, checks
+
+
+def _sampled_session(model: Model, rng: random.Random):
+    """A possible session: faults drawn given the complaint, checks answered from their noise, a repair."""
+    post = bruteforce.posterior(model, [Finding(model.top, 1, 0)])
+    if post["joint"] is None:
+        return None
+    row = rng.choices(range(len(post["joint"])), weights=post["joint"])[0]
+    state = {r: bool(post["states"][row, i]) for i, r in enumerate(post["roots"])}
+    findings = [Finding(model.top, 1, 0)]
+
+    def answer(check, epoch, repaired):
+        values = bruteforce.evaluate(model, post["states"][row:row + 1], post["roots"], set(repaired))
+        p_normal = 1.0 - check.false_alarm
+        for c in check.causes:
+            if values[c.target][0]:
+                p_normal *= 1.0 - c.detection
+        return int(rng.random() >= p_normal)
+
+    checks = list(model.checks)
+    for check in rng.sample(checks, min(3, len(checks))):
+        findings.append(Finding(check.id, answer(check, 0, ()), 0))
+    failed = [r for r, v in state.items() if v]
+    repairs = (rng.choice(failed if failed else list(model.hypotheses)),)
+    values = bruteforce.evaluate(model, post["states"][row:row + 1], post["roots"], set(repairs))
+    findings.append(Finding(model.top, int(values[model.top][0]), 1))
+    check = rng.choice(checks)
+    findings.append(Finding(check.id, answer(check, 1, repairs), 1))
+    return findings, repairs
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_expected_counts_equal_enumeration(seed):
+    # Source: enumeration of every root state and every hidden per-cause outcome (_brute_counts), to 1e-9.
+    model = random_model(seed, n_events=5, n_gates=4, n_checks=4)
+    rng = random.Random(seed)
+    session = _sampled_session(model, rng)
+    if session is None:
+        pytest.skip("the drawn model cannot fail")
+    findings, repairs = session
+    if bruteforce.posterior(model, findings, repairs)["joint"] is None:
+        pytest.skip("impossible findings drawn")
+    params = parameters_of(model)
+    counts = Counts.zeros(params)
+    session_counts(FleetEngine(model), params, SessionData(tuple(findings), tuple(repairs)), 1.0, counts)
+    counts.settle(params)
+    log_p, roots, checks = _brute_counts(model, findings, repairs)
+    assert counts.log_p == pytest.approx(log_p, abs=1e-9)
+    np.testing.assert_allclose(counts.roots, roots, atol=1e-9)
+    index = {c.id: j for j, c in enumerate(model.checks + model.symptoms)}
+    expected_leaks = [np.zeros_like(a) for a in params.leaks]
+    expected_causes = [np.zeros_like(a) for a in params.causes]
+    for (check_id, _epoch), (leak, causes) in checks.items():
+        expected_leaks[index[check_id]] += leak
+        expected_causes[index[check_id]] += causes
+    for got, want in zip(counts.leaks, expected_leaks):
+        np.testing.assert_allclose(got, want, atol=1e-9)
+    for got, want in zip(counts.causes, expected_causes):
+        np.testing.assert_allclose(got, want, atol=1e-9)
+
+
+def test_refitted_trees_equal_fresh_ones():
+    # EM changes only the figures: a tree compiled under the model's figures and refitted to others gives
+    # what a tree compiled under those figures gives (1e-12).
+    model = load_any_model("rooftop")[0]
+    shared: dict = {}
+    first = FleetEngine(model, shared)
+    data = SessionData((Finding(model.top, 1, 0), Finding("weak_airflow", 1, 0), Finding("filter_inspect", 0, 0),
+                        Finding(model.top, 1, 1), Finding("blower_belt_inspect", 1, 1)), ("filters_clogged",))
+    params = parameters_of(model)
+    session_counts(first, params, data, 1.0, Counts.zeros(params))
+    other = replace(params, roots=params.roots * 1.7,
+                    causes=tuple(np.vstack([c[:, 0] + 0.5 * c[:, 1], 0.5 * c[:, 1]]).T for c in params.causes))
+    from troubleshoot.study.learn import model_with
+
+    changed = model_with(model, other)
+    refitted, fresh = Counts.zeros(other), Counts.zeros(other)
+    session_counts(FleetEngine(changed, shared), other, data, 1.0, refitted)
+    session_counts(FleetEngine(changed), other, data, 1.0, fresh)
+    refitted.settle(other)
+    fresh.settle(other)
+    assert refitted.log_p == pytest.approx(fresh.log_p, abs=1e-12)
+    np.testing.assert_allclose(refitted.roots, fresh.roots, atol=1e-12)
+    for a, b in zip(refitted.causes + refitted.leaks, fresh.causes + fresh.leaks):
+        np.testing.assert_allclose(a, b, atol=1e-12)
+
+
+def test_noisy_max_counts_equal_enumeration():
+    # Three outcomes (noisy-MAX, Díez 1993): the check shows the largest outcome any present cause or the
+    # leak produces. Enumerated over every hidden outcome of every cause, to 1e-12.
+    rng = np.random.default_rng(5)
+    K, I, S = 3, 3, 8
+    leak = rng.dirichlet([5, 1, 1])
+    causes = rng.dirichlet([1, 1, 1], size=I)
+    present = rng.random((S, I)) < 0.6
+    weights = rng.random(S)
+    weights /= weights.sum()
+    for y in range(K):
+        want_leak, want_causes = np.zeros(K), np.zeros((I, K))
+        p_y = np.zeros(S)
+        terms = []
+        for hidden in itertools.product(range(K), repeat=I + 1):
+            p = np.full(S, leak[hidden[0]])
+            for i in range(I):
+                p = p * np.where(present[:, i], causes[i, hidden[i + 1]], float(hidden[i + 1] == 0))
+            if max(hidden) == y:
+                p_y += p
+                terms.append((hidden, p))
+        for hidden, p in terms:
+            w = np.where(p_y > 0, weights * p / np.where(p_y > 0, p_y, 1.0), 0.0)
+            want_leak[hidden[0]] += w.sum()
+            for i in range(I):
+                want_causes[i, hidden[i + 1]] += (w * present[:, i]).sum()
+        got_leak, got_causes = hidden_outcome_counts(present, weights, leak, causes, y)
+        np.testing.assert_allclose(got_leak, want_leak, atol=1e-12)
+        np.testing.assert_allclose(got_causes, want_causes, atol=1e-12)
+
+
+# ---------------------------------------------------------------- complete data: the closed form
+
+
+def _complete_model() -> Model:
+    events = (BasicEvent("a", "part a", 0.02, repair=Repair("replace a", 10.0)),
+              BasicEvent("b", "part b", 0.05, repair=Repair("replace b", 10.0)),
+              BasicEvent("c", "part c", 0.01, repair=Repair("replace c", 10.0)))
+    checks = (Check("ta", "test a", 5.0, ("ok", "bad"), (Cause("a", 0.8),), false_alarm=0.0),
+              Check("tb", "test b", 5.0, ("ok", "bad"), (Cause("b", 0.7),), false_alarm=0.0),
+              Check("tc", "test c", 5.0, ("ok", "bad"), (Cause("c", 0.9),), false_alarm=0.1))
+    return Model("complete", "top", (Gate("top", "unit fails", "or", ("a", "b", "c")),), events, checks)
+
+
+def test_complete_data_gives_the_beta_posterior_mean():
+    # Every session has one fault, repaired and confirmed by "the unit works": in an OR tree that fixes
+    # every root's state, and with no false alarm on ta/tb (tc only made when c is not at fault) every
+    # check's hidden outcome is known. The EM estimate is then the conjugate posterior mean, written out.
+    model = _complete_model()
+    rng = random.Random(3)
+    sessions, faults = [], []
+    det = {"ta": 0.6, "tb": 0.5, "tc": 0.9}
+    shows = {"ta": [0, 0], "tb": [0, 0], "tc": [0, 0]}  # [trials, abnormal]
+    for s in range(300):
+        fault = rng.choice(["a", "a", "b", "b", "b", "c"])
+        actions = []
+        for check in ("ta", "tb", "tc"):
+            if check == "tc" and fault == "c":
+                continue
+            cause_present = check[1] == fault
+            p_bad = det[check] if cause_present else (0.2 if check == "tc" else 0.0)
+            bad = rng.random() < p_bad
+            if cause_present or check == "tc":
+                shows[check][0] += 1
+                shows[check][1] += bad
+            actions.append({"action": "finding", "check": check, "outcome": "bad" if bad else "ok"})
+        actions += [{"action": "repair", "event": fault}, {"action": "verify", "outcome": "works"}]
+        sessions.append((f"s{s}", fold_actions(model, actions)))
+        faults.append(fault)
+    w, exposure = 7.0, 4000.0
+    result = learn_sessions(model, sessions, prior_weight=w, exposure=exposure)
+    p = {"a": 0.02, "b": 0.05, "c": 0.01}
+    p_top = 1.0 - (1 - 0.02) * (1 - 0.05) * (1 - 0.01)  # OR gate of independent events (NUREG-0492)
+    learned = dict(zip(model.hypotheses, result.params_after.roots))
+    for r in "abc":
+        alpha, beta = w * p[r] / p_top, w * (1 - p[r]) / p_top  # the prior, worth w sessions
+        k = faults.count(r)
+        assert learned[r] == pytest.approx((alpha + k) / (alpha + beta + exposure), rel=1e-12, abs=1e-15)
+    dets = {c.id: c.causes[0].detection for c in model.checks}
+    after = {c.id: c for c in result.learned.checks}
+    for check in ("ta", "tb"):
+        trials, bad = shows[check]
+        want = (w * dets[check] + bad) / (w + trials)
+        assert after[check].causes[0].detection == pytest.approx(want, rel=1e-12)
+        assert after[check].false_alarm == 0.0  # a zero figure stays zero
+    trials, bad = shows["tc"]
+    assert after["tc"].false_alarm == pytest.approx((w * 0.1 + bad) / (w + trials), rel=1e-12)
+    assert after["tc"].causes[0].detection == pytest.approx(0.9, rel=1e-12)  # never informed: the prior
+
+
+def test_without_exposure_the_top_probability_is_kept():
+    model = _complete_model()
+    sessions = [(f"s{i}", fold_actions(model, [{"action": "repair", "event": "ab"[i % 2]},
+                                                {"action": "verify", "outcome": "works"}])) for i in range(50)]
+    result = learn_sessions(model, sessions)
+    assert result.p_top_after == pytest.approx(result.p_top_before, rel=1e-9)
+    learned = dict(zip(model.hypotheses, result.params_after.roots))
+    assert learned["c"] < 0.01 < learned["a"]  # never the fault: less likely; often: more
+
+
+# ---------------------------------------------------------------- logs
+
+
+def _log_session(model_path, path, actions):
+    session = new_session(model_path, path)
+    for action in actions:
+        session.apply(action)
+    session.close()
+    return session
+
+
+def test_fold_follows_the_session(tmp_path):
+    # Undo, retract, correct, the verifying check and the unit's verification: what the log leaves
+    # standing is what the Session itself holds.
+    model_path = str(load_any_model("rooftop")[0].source)
+    actions = [
+        {"action": "finding", "check": "weak_airflow", "outcome": "airflow weak"},
+        {"action": "finding", "check": "filter_inspect", "outcome": "filters clean"},
+        {"action": "undo"},
+        {"action": "finding", "check": "blower_belt_inspect", "outcome": "belt intact and tight"},
+        {"action": "correct", "check": "weak_airflow", "outcome": "airflow normal"},
+        {"action": "finding", "check": "refrigerant_pressures", "outcome": "pressures abnormal"},
+        {"action": "retract", "check": "blower_belt_inspect"},
+        {"action": "note", "text": "oil stain at the service valve"},
+        {"action": "repair", "event": "refrigerant_leak"},
+        {"action": "finding", "check": "refrigerant_pressures", "outcome": "pressures normal"},
+        {"action": "verify", "outcome": "cools"},
+    ]
+    session = _log_session(model_path, tmp_path / "s.jsonl", actions)
+    contents = read_log(tmp_path / "s.jsonl")
+    data = fold_actions(session.model, [r["action"] for _, r in contents.actions])
+    assert data.findings == session.findings
+    assert data.repairs == session.repairs
+    assert data.confirmed == "refrigerant_leak"
+
+
+def test_bad_logs_are_counted_and_named(tmp_path, capsys):
+    model, _ = load_any_model("rooftop")
+    good = tmp_path / "logs" / "good.jsonl"
+    good.parent.mkdir()
+    actions = [{"action": "finding", "check": "filter_inspect", "outcome": "filters clogged"},
+               {"action": "repair", "event": "filters_clogged"}, {"action": "verify", "outcome": "cools"}]
+    _log_session(str(model.source), good, actions)
+    text = good.read_text()
+    lines = text.splitlines(keepends=True)
+    (tmp_path / "logs" / "torn.jsonl").write_text("".join(lines[:-1]) + lines[-1][:40])
+    (tmp_path / "logs" / "version.jsonl").write_text(text.replace('"format_version": 1', '"format_version": 99'))
+    (tmp_path / "logs" / "edited.jsonl").write_text(text.replace('"event": "filters_clogged"',
+                                                                 '"event": "no_such_part"'))
+    (tmp_path / "logs" / "junk.jsonl").write_text("not a log\n")
+    other = tmp_path / "other.xml"
+    save_model(replace(model, name="another model"), other)
+    _log_session(str(other), tmp_path / "logs" / "other.jsonl", actions)
+    out = tmp_path / "learned.xml"
+    report = tmp_path / "report.md"
+    status = main(["learn", "rooftop", str(tmp_path / "logs"), "-o", str(out), "--report", str(report), "--json"])
+    assert status == 0
+    data = json.loads(capsys.readouterr().out)
+    kinds = {os.path.basename(p["path"]): p["kind"] for p in data["skipped"]}
+    assert kinds == {"torn.jsonl": "torn", "version.jsonl": "other-version", "edited.jsonl": "inconsistent",
+                     "junk.jsonl": "damaged", "other.jsonl": "other-model"}
+    assert data["sessions"] == 2  # the good log and the torn one's whole lines
+    text = report.read_text()
+    for name in kinds:
+        assert name in text
+    assert main(["check", str(out)]) == 0
+    learned = load_model(out)
+    assert "2 session logs" in learned.description and model_sha256(model.source) in learned.description
+
+
+def test_learn_refuses_what_it_cannot_use(tmp_path, capsys):
+    assert main(["learn", "rooftop", str(tmp_path / "nowhere"), "-o", str(tmp_path / "x.xml")]) == 2
+    assert "no such file or folder" in capsys.readouterr().err
+    (tmp_path / "junk.jsonl").write_text("{}\n")
+    assert main(["learn", "rooftop", str(tmp_path), "-o", str(tmp_path / "x.xml")]) == 2
+    err = capsys.readouterr().err
+    assert "none of the 1 log(s)" in err and "Traceback" not in err
+    assert not (tmp_path / "x.xml").exists()
+
+
+def test_beta_quantiles_match_scipy():
+    # Reference library: scipy.stats.beta.ppf.
+    stats = pytest.importorskip("scipy.stats")
+    for a, b in [(0.5, 0.5), (2.0, 30.0), (150.3, 12.7), (0.02, 5.0), (4000.0, 9.0)]:
+        for q in (0.05, 0.5, 0.95):
+            assert beta_quantile(q, a, b) == pytest.approx(float(stats.beta.ppf(q, a, b)), abs=1e-9)
+
+
+# ---------------------------------------------------------------- the execution layer
+
+
+def _die_once(item, marker):
+    # Kills its own worker process the first time it meets item 3: the piece must be run again.
+    if item == 3 and not os.path.exists(marker):
+        open(marker, "w").close()
+        os._exit(1)
+    return item * item
+
+
+def test_local_processes_redo_the_work_of_a_dead_worker(tmp_path):
+    marker = str(tmp_path / "died")
+    with LocalProcesses(2) as executor:
+        seen = []
+        result = executor.map(_die_once, list(range(8)), marker, on_result=lambda i, r: seen.append(i) or r)
+    assert os.path.exists(marker)
+    assert result == [i * i for i in range(8)]
+    assert sorted(seen) == list(range(8))  # every piece taken exactly once: nothing counted twice
+
+
+def test_same_numbers_in_process_and_in_local_processes(tmp_path):
+    from troubleshoot.study.simulation import simulate
+
+    model, _ = load_any_model("rooftop")
+    logs: dict = {}
+    simulate(model, 40, 3, [("info-per-cost", None)], log_sink=lambda c, b: logs.__setitem__(c, b))
+    for case, data in logs.items():
+        (tmp_path / f"case-{case:03d}.jsonl").write_bytes(data)
+    paths = log_files([tmp_path])
+    sha = model_sha256(model.source)
+    one = learn(model, sha, paths, executor=InProcess())
+    with LocalProcesses(2) as executor:
+        two = learn(model, sha, paths, executor=executor)
+    assert np.array_equal(one.params_after.flat(), two.params_after.flat())
+    assert one.log_likelihood == two.log_likelihood
+    assert [f.id for f in one.figures] == [f.id for f in two.figures]
