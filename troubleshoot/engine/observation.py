@@ -42,7 +42,7 @@ decomposition of causal independence).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Callable, Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
@@ -221,7 +221,7 @@ class CheckFamily:
         return self._cached("_p_abnormal", lambda: -np.expm1(self.log_cdf()[..., 0]))
 
 
-def check_family(check: Check, epoch: int, node_of: Callable[[str], "str | bool"]) -> CheckFamily:
+def check_family(check: Check, epoch: int, node_of: Callable[[str], str | bool]) -> CheckFamily:
     """Fold a check's causes onto the network nodes they stand on at an epoch.
 
     Parameters

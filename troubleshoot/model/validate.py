@@ -371,7 +371,7 @@ class _Checker:
             seen.add(cause.target)
             if cause.shows:
                 self.check_distribution(check, kind, cause.shows, f"cause '{cause.target}'",
-                                        lambda j, i=index: self.line((cid, "shows", i, j), cause_line), cause_line)
+                                        lambda j, i=index, at=cause_line: self.line((cid, "shows", i, j), at), cause_line)
             elif not _is_probability(cause.detection):
                 self.error(
                     cause_line,
