@@ -15,6 +15,7 @@ from troubleshoot.model.types import (
     BasicEvent,
     Cause,
     Check,
+    Escalation,
     Gate,
     Model,
     Repair,
@@ -25,5 +26,5 @@ from troubleshoot.model.types import (
 
 __all__ = [
     "DERIVED", "FORMAT_VERSION", "GATE_KINDS", "PROBABILITY_BASES", "BasicEvent", "Cause", "Check",
-    "Gate", "Model", "Repair", "Verification", "exponential_probability", "unlisted_id",
+    "Escalation", "Gate", "Model", "Repair", "Verification", "exponential_probability", "unlisted_id",
 ]
