@@ -122,7 +122,7 @@ class Settings:
     value_lookahead: int = DEFAULT_VALUE_LOOKAHEAD
     value_depth: int = DEFAULT_VALUE_DEPTH
 
-    def validated(self) -> "Settings":
+    def validated(self) -> Settings:
         for name in ("isolation_threshold", "group_min_p"):
             value = getattr(self, name)
             if not (isinstance(value, (int, float)) and 0.0 < value <= 1.0):
