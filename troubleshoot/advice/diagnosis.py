@@ -101,8 +101,8 @@ def entropy_bits(posterior: Posterior) -> float:
     for f in posterior.findings:
         if f.target not in model.check_by_id:
             continue
-        joint, p_abnormal = posterior.check_family(f.target, epoch=f.epoch)
-        lik = p_abnormal if f.outcome == 1 else 1.0 - p_abnormal
+        joint, table = posterior.check_likelihood(f.target, epoch=f.epoch)
+        lik = table[:, f.outcome]
         e_log_lik += _expected_log(joint, lik)
     nats = posterior.log_p - e_log_prior - e_log_lik
     bits = nats / math.log(2.0)
