@@ -61,10 +61,16 @@ def random_model(seed: int, n_events: int = 6, n_gates: int = 5, n_checks: int =
 
 
 def _split(rng: random.Random, abnormal: tuple[str, ...], total: float) -> tuple[tuple[str, float], ...]:
-    """``total`` spread over a random non-empty subset of the abnormal outcomes."""
+    """``total`` spread over a random non-empty subset of the abnormal outcomes.
+
+    The pieces are multiples of 1/64 of ``total`` and the last is what is
+    left, so a total of 1 is met exactly: P(normal) is then exactly 0, not
+    a rounding residue of 1e-16 that no two summation orders agree on.
+    """
     names = rng.sample(abnormal, rng.randint(1, len(abnormal)))
-    weights = [rng.random() + 0.05 for _ in names]
-    return tuple((name, total * w / sum(weights)) for name, w in zip(names, weights))
+    cuts = sorted(rng.randint(1, 63) for _ in names[1:])
+    pieces = [b - a for a, b in zip([0] + cuts, cuts + [64])]
+    return tuple((name, total * piece / 64) for name, piece in zip(names, pieces))
 
 
 def _graded_check(rng: random.Random, c: int, targets: list[str], k: int) -> Check:
