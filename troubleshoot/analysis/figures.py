@@ -30,7 +30,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from troubleshoot.analysis.bdd import DiagramTooLarge, FaultTreeBdd
+from troubleshoot.analysis.bdd import DEFAULT_NODE_LIMIT, DiagramTooLarge, FaultTreeBdd
 from troubleshoot.analysis.cutsets import (
     BASE,
     EMPTY,
@@ -255,11 +255,11 @@ def fault_tree_figures(model: Model, *, max_order: int | None = None, min_probab
     FaultTreeFigures
         Never refuses for size: a diagram too large is a limit in ``limits``.
     """
-    kwargs = {} if node_limit is None else {"node_limit": node_limit}
     notes: list[str] = []
     limits: list[str] = []
     try:
-        bdd = FaultTreeBdd.from_model(model, progress=progress, **kwargs)
+        bdd = FaultTreeBdd.from_model(model, progress=progress,
+                                      node_limit=DEFAULT_NODE_LIMIT if node_limit is None else node_limit)
     except DiagramTooLarge as exc:
         limits.append(f"{exc}; nothing else could be computed without it")
         return FaultTreeFigures(model, None, "binary decision diagram", {}, (), {}, False, None, 0.0, 0.0, None,
@@ -297,7 +297,7 @@ def fault_tree_figures(model: Model, *, max_order: int | None = None, min_probab
     if list_length is None:
         list_length = within if within <= COMPLETE_LIST_LIMIT else DEFAULT_SHOWN
     natural = {root_id: natural_key(root_id) for root_id in bdd.order}
-    retained = []
+    retained: list[CutSet] = []
     for levels, p in most_probable_sets(family, max_order, min_probability):
         if len(retained) >= list_length:
             break
@@ -323,5 +323,5 @@ def fault_tree_figures(model: Model, *, max_order: int | None = None, min_probab
 
 def cut_set_family(model: Model, node_limit: int | None = None) -> CutSetFamily:
     """The ZBDD of the minimal cut sets of ``model`` (for streaming them all)."""
-    kwargs = {} if node_limit is None else {"node_limit": node_limit}
-    return CutSetFamily(FaultTreeBdd.from_model(model, **kwargs))
+    return CutSetFamily(FaultTreeBdd.from_model(
+        model, node_limit=DEFAULT_NODE_LIMIT if node_limit is None else node_limit))

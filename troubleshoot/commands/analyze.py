@@ -9,9 +9,9 @@ from pathlib import Path
 
 from troubleshoot.analysis.figures import all_cut_sets, cut_set_family, fault_tree_figures
 from troubleshoot.analysis.report import figures_to_json, render_markdown, render_text
-from troubleshoot.commands.progress import Progress
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.model.source import load_any_model
+from troubleshoot.progress import ProgressDisplay
 
 
 def add_parser(subparsers, name: str) -> argparse.ArgumentParser:
@@ -56,7 +56,7 @@ def _probability(text: str) -> float:
     return value
 
 
-def _write_all(model, path: str, total: int, args, progress: Progress) -> None:
+def _write_all(model, path: str, total: int, args, progress: ProgressDisplay) -> None:
     try:
         with open(path, "w", encoding="utf-8") as out:
             out.write("# probability\torder\tevents (minimal cut sets of "
@@ -64,8 +64,8 @@ def _write_all(model, path: str, total: int, args, progress: Progress) -> None:
             for i, (events, p) in enumerate(all_cut_sets(cut_set_family(model), args.max_order,
                                                          args.min_probability), start=1):
                 out.write(f"{p:.6e}\t{len(events)}\t{' '.join(events)}\n")
-                if i % 100_000 == 0:
-                    progress(f"all cut sets: {i:,} of at most {total:,} written to {path}")
+                if i % 10_000 == 0:
+                    progress(i, total)
     except OSError as exc:
         raise TroubleshootError(f"{path}: cannot write the cut sets ({exc.strerror}); choose a writable path") from exc
 
@@ -74,14 +74,12 @@ def run(args) -> int:
     model, warnings = load_any_model(args.model)
     for warning in warnings:
         print(f"troubleshoot: {warning}", file=sys.stderr)
-    progress = Progress()
-    try:
+    with ProgressDisplay(f"analysing {model.name}") as progress:
         fig = fault_tree_figures(model, max_order=args.max_order, min_probability=args.min_probability,
                                  progress=progress)
-        if args.all_cut_sets and fig.count_by_order:
+    if args.all_cut_sets and fig.count_by_order:
+        with ProgressDisplay(f"writing every minimal cut set to {args.all_cut_sets}", unit="cut sets") as progress:
             _write_all(model, args.all_cut_sets, fig.total_count, args, progress)
-    finally:
-        progress.done()
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # KiB on Linux
     if args.report:
         try:

@@ -58,13 +58,14 @@ A. Rauzy, Reliability Engineering and System Safety 40(3), 1993
 from __future__ import annotations
 
 import math
+import operator
 import sys
 from contextlib import contextmanager
 
 import numpy as np
 
 from troubleshoot.errors import NetworkTooLarge
-from troubleshoot.engine.network import CheckFamily
+from troubleshoot.engine.observation import CheckFamily, check_family
 from troubleshoot.model import Model, unlisted_id
 
 #: The name this path reports (``suggest --json`` key ``engine``).
@@ -407,28 +408,17 @@ class CompiledModel:
     def family(self, check_id: str, repairs: tuple[str, ...], epoch: int) -> tuple[tuple[int, ...], CheckFamily]:
         """The check's distinct non-constant cause diagrams at an epoch, and its likelihood table.
 
-        Constant causes fold as in the network: always present into the
-        leak, never present dropped; two causes with one diagram have their
-        misses multiplied.
+        Constant causes fold as in the network (:func:`check_family`):
+        always present into the leak, never present dropped; two causes
+        with one diagram (canonical, so also two gates of one function)
+        have their cumulative tables multiplied.
         """
-        check = self.model.check_by_id[check_id]
-        nodes: list[int] = []
-        detections: list[float] = []
-        p_no_leak = 1.0 - check.false_alarm
-        for cause in check.causes:
-            f = self.function_at(cause.target, repairs, epoch)
-            if f == 1:
-                p_no_leak *= 1.0 - cause.detection
-            elif f == 0:
-                continue
-            elif f in nodes:
-                i = nodes.index(f)
-                detections[i] = 1.0 - (1.0 - detections[i]) * (1.0 - cause.detection)
-            else:
-                nodes.append(f)
-                detections.append(cause.detection)
-        fam = CheckFamily(check_id, epoch, tuple(str(n) for n in nodes), tuple(detections), 1.0 - p_no_leak)
-        return tuple(nodes), fam
+        def node_of(target: str) -> str | bool:
+            f = self.function_at(target, repairs, epoch)
+            return True if f == 1 else False if f == 0 else str(f)
+
+        fam = check_family(self.model.check_by_id[check_id], epoch, node_of)
+        return tuple(int(n) for n in fam.nodes), fam
 
     def likelihood(self, causes: tuple[int, ...], table: np.ndarray) -> int:
         """The diagram equal to table[c] where c is the state of the cause diagrams (C order)."""
@@ -451,8 +441,7 @@ class CompiledModel:
         with _deep(4 * len(self.order) + 2000):
             if target in self.model.check_by_id:
                 causes, fam = self.family(target, repairs, epoch)
-                table = fam.p_abnormal() if outcome == 1 else fam.p_normal()
-                return self.likelihood(causes, table)
+                return self.likelihood(causes, fam.p_outcome(outcome))
             f = self.function_at(target, repairs, epoch)
             return f if outcome == 1 else s.not_(f)
 
@@ -605,7 +594,7 @@ class Passes:
         r = self.pos[self.root]
         return state, float(best[r] + free[lv[r]])
 
-    def grouped(self, causes: tuple[int, ...], addends: tuple) -> dict:
+    def grouped(self, causes: tuple[int, ...], addends: tuple, zero=0, add=operator.add) -> dict:
         """P(findings)-normalised mass of the cause states, grouped by the sum of the present causes' addends.
 
         With addends 2^(m-1-i) the sum is the index of the cause state (C
@@ -626,7 +615,6 @@ class Passes:
         var, low, high = s.var, s.low, s.high
         up, pos, ids, p = self.up, self.pos, self.ids, self.cm.priors
         memo: dict = {}
-        zero = addends[0] * 0 if addends else 0
 
         def split(cs, level, branch):
             kept, shift = [], zero
@@ -634,7 +622,7 @@ class Passes:
                 if var[c] == level:
                     c = branch[c]
                 if c == 1:
-                    shift += w
+                    shift = add(shift, w)
                 elif c != 0:
                     kept.append((c, w))
             return tuple(kept), shift
@@ -654,9 +642,10 @@ class Passes:
                 k1, s1 = split(cs, level, high)
                 out = {}
                 for k, v in walk(e0, k0).items():
-                    out[k + s0] = (1.0 - pl) * v
+                    out[add(k, s0)] = (1.0 - pl) * v
                 for k, v in walk(e1, k1).items():
-                    out[k + s1] = out.get(k + s1, 0.0) + pl * v
+                    key1 = add(k, s1)
+                    out[key1] = out.get(key1, 0.0) + pl * v
             memo[key] = out
             return out
 
@@ -668,14 +657,26 @@ class Passes:
         with _deep(4 * n_levels + 2000):
             for i in np.flatnonzero(inflow):
                 for k, v in walk(int(ids[i]), start).items():
-                    acc[k + shift] = acc.get(k + shift, 0.0) + float(inflow[i]) * v
+                    key1 = add(k, shift)
+                    acc[key1] = acc.get(key1, 0.0) + float(inflow[i]) * v
         return {k: min(max(v / self.p_evidence, 0.0), 1.0) for k, v in acc.items()}
 
-    def joint_by_miss(self, causes: tuple[int, ...], log_miss: tuple[float, ...]) -> tuple[np.ndarray, np.ndarray]:
-        """A noisy-OR family grouped by the sum of log misses of the present causes: (sums, masses)."""
-        acc = self.grouped(causes, tuple(float(w) for w in log_miss))
+    def joint_by_likelihood(self, causes: tuple[int, ...], log_cdfs) -> tuple[list[tuple], np.ndarray]:
+        """A wide check's family grouped by what its likelihood depends on: (sums of log Q, masses).
+
+        Under noisy-MAX the likelihood of a cause state depends on it only
+        through the sum of the present causes' log Q vectors, so grouping by
+        that sum gives as many entries as distinct sums (m + 1 when every
+        cause has the same Q), never 2^m.
+        """
+        width = len(log_cdfs[0]) if log_cdfs else 0
+
+        def add(a, b):
+            return tuple(x + y for x, y in zip(a, b))
+
+        acc = self.grouped(causes, tuple(tuple(q) for q in log_cdfs), (0.0,) * width, add)
         keys = sorted(acc)
-        return np.array(keys), np.array([acc[k] for k in keys])
+        return keys, np.array([acc[k] for k in keys])
 
     def _inflow(self, top: int) -> np.ndarray:
         """Mass arriving at each evidence node from above level ``top`` (the downward pass cut there)."""

@@ -100,7 +100,7 @@ def _minor_min_width(nb: dict[int, int]) -> tuple[int, frozenset]:
     adj = dict(nb)
     heap = [(m.bit_count(), v) for v, m in adj.items()]
     heapq.heapify(heap)
-    bound, where = 0, frozenset()
+    bound, where = 0, frozenset[int]()
     while len(adj) > 1 and heap:
         d, v = heapq.heappop(heap)
         if v not in adj or adj[v].bit_count() != d:
@@ -455,7 +455,7 @@ class JoinTree:
         return plan
 
     # -- propagation -----------------------------------------------------
-    def propagate(self, evidence: list[Evidence]) -> "Calibrated":
+    def propagate(self, evidence: list[Evidence]) -> Calibrated:
         """Collect and distribute with the given likelihoods; raises ZeroProbability.
 
         Returns the calibrated clique tables and log P(evidence).

@@ -140,7 +140,7 @@ def hard_model(basic_events: int, seed: int = 0, shared_share: float = 0.06, use
     if top not in {g.id for g in gates}:
         gates.append(Gate("top", "plant lost", "or", (top,)))
         top = "top"
-    used = set()
+    used: set[str] = set()
     for g in gates:
         used.update(g.inputs)
     unused = [e for e in shared if e.id not in used]
