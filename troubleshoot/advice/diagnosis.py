@@ -29,6 +29,7 @@ from troubleshoot.errors import ImpossibleFindings
 from troubleshoot.engine.inference import Engine, Finding, Posterior
 from troubleshoot.model import DERIVED, Model
 from troubleshoot.advice.ranking import rank
+from troubleshoot.advice.ties import tie_ranks
 
 #: The most probable explanation search gives up (and says so) after this many propagations.
 MPE_MAX_PROPAGATIONS = 2000
@@ -53,7 +54,10 @@ def is_unlisted(model: Model, root_id: str) -> bool:
 
 
 def suspects(posterior: Posterior) -> tuple[Suspect, ...]:
-    """Every hypothesis ranked by P(failed | findings), most probable first (ties by id).
+    """Every hypothesis ranked by P(failed | findings), most probable first.
+
+    Probabilities within the tie tolerance (:mod:`troubleshoot.advice.ties`)
+    are equal, and the id orders them, whatever the model's event order.
 
     A repaired root keeps the probability that it *was* failed before the
     repair (the findings before the repair still speak of it) and is marked
@@ -64,8 +68,8 @@ def suspects(posterior: Posterior) -> tuple[Suspect, ...]:
     ps = posterior.root_marginals()
     out = [Suspect(r, model.label_of(r), float(p), r in repaired, is_unlisted(model, r))
            for r, p in zip(model.hypotheses, ps)]
-    out.sort(key=lambda s: (-s.p, s.id))
-    return tuple(out)
+    ranks = tie_ranks([s.p for s in out])
+    return tuple(s for _, s in sorted(zip(ranks, out), key=lambda pair: (pair[0], pair[1].id)))
 
 
 def _expected_log(weights: np.ndarray, probabilities: np.ndarray) -> float:
@@ -239,7 +243,8 @@ def most_probable_explanation(engine: Engine, posterior: Posterior,
     # every root at its likelier value, and each of the likeliest suspects as
     # the only fault. Any state will do for soundness; these are cheap guesses.
     q0 = posterior.root_marginals()
-    order = sorted(range(len(roots)), key=lambda j: (-float(q0[j]), roots[j]))
+    q0_rank = tie_ranks(q0)
+    order = sorted(range(len(roots)), key=lambda j: (q0_rank[j], roots[j]))
     guesses = [{r: int(q0[j] > 0.5) for j, r in enumerate(roots)}]
     guesses += [{r: int(r == roots[k]) for r in roots} for k in order[:SEED_GUESSES]]
     for guess in guesses:
@@ -306,7 +311,8 @@ def repair_order(model: Model, group: tuple[Suspect, ...]) -> tuple[RepairStep, 
     expected cost (Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995).
     An unlisted-cause event has no repair (the cause is outside the model):
     it is listed after every repairable suspect, with a note, as is a basic
-    event whose model lists no repair. Ties go by higher p, then id.
+    event whose model lists no repair. Ties (within the tolerance of
+    :mod:`troubleshoot.advice.ties`) go by higher p, then id.
 
     References
     ----------
@@ -326,9 +332,17 @@ def repair_order(model: Model, group: tuple[Suspect, ...]) -> tuple[RepairStep, 
         cost = float(repair.cost)
         ratio = s.p / cost if cost > 0 else math.inf
         repairable.append(RepairStep(s.id, s.label, s.p, cost, ratio, repair.label))
-    repairable.sort(key=lambda r: (-r.ratio, -r.p, r.id))
-    other.sort(key=lambda r: (-r.p, r.id))
-    return tuple(repairable + other)
+    return tuple(_by_figures(repairable, lambda r: (r.ratio, r.p)) + _by_figures(other, lambda r: (r.p,)))
+
+
+def _by_figures(steps: list[RepairStep], figures) -> list[RepairStep]:
+    """Steps by their figures, largest first, each compared with the tie tolerance, then by id."""
+    if not steps:
+        return []
+    columns = list(zip(*(figures(s) for s in steps)))
+    ranks = [tie_ranks(column) for column in columns]
+    keyed = [(tuple(int(r[i]) for r in ranks), s.id, i) for i, s in enumerate(steps)]
+    return [steps[i] for _, _, i in sorted(keyed)]
 
 
 # ---------------------------------------------------------------- verification and value
@@ -403,7 +417,7 @@ def expected_repair_cost(posterior: Posterior) -> float:
     pc, cost = p[cand], table.repair_cost[cand]
     with np.errstate(divide="ignore"):
         ratio = np.where(cost > 0, pc / np.where(cost > 0, cost, 1.0), np.inf)
-    order = cand[np.lexsort((table.id_rank[cand], -pc, -ratio))]
+    order = cand[np.lexsort((table.id_rank[cand], tie_ranks(pc), tie_ranks(ratio)))]
     q = p[order] / total
     before = 1.0 - np.concatenate(([0.0], np.cumsum(q)[:-1]))  # P(repair j is reached)
     reached = np.concatenate(([True], before[1:] > 1e-12))
