@@ -178,11 +178,10 @@ def _as_utf8(data: bytes, name: str) -> bytes:
     The XML declaration's encoding is rewritten to UTF-8 in place, so line
     numbers stay those of the file.
     """
-    for signature, encoding, mark in _SIGNATURES:
-        if data.startswith(signature):
-            break
-    else:
+    found = next(((encoding, mark) for signature, encoding, mark in _SIGNATURES if data.startswith(signature)), None)
+    if found is None:
         return data
+    encoding, mark = found
     width = "UTF-32" if "32" in encoding else "UTF-16"
     try:
         text = data[mark:].decode(encoding)
@@ -217,7 +216,9 @@ def _external_dtd_refused(name: str, data: bytes, match: re.Match) -> ModelError
         public, system = match.group(3), match.group(5)
     else:
         public, system = None, match.group(3)
-    decode = (lambda b: b.decode("utf-8", errors="replace") if b is not None else None)
+    def decode(raw: bytes | None) -> str | None:
+        return raw.decode("utf-8", errors="replace") if raw is not None else None
+
     return _error(name, data.count(b"\n", 0, match.start()) + 1,
                   _external_dtd_message(decode(public), decode(system)))
 

@@ -48,7 +48,7 @@ class CheckCard:
     label: str
     cost: float
     unit: str
-    outcomes: tuple[str, str]
+    outcomes: tuple[str, ...]
     instructions: str = ""
     caution: str | None = None
     p_outcomes: tuple[float, float] | None = None
@@ -316,7 +316,7 @@ class MainScreen(Screen):
         self.app.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
 
     def action_help(self) -> None:
-        self.app.push_screen(HelpScreen())
+        self.app.push_screen(HelpScreen(self.app.session.engine.name))
 
 
 class CheckScreen(ModalScreen):
@@ -551,9 +551,17 @@ class HelpScreen(ModalScreen):
         Binding("q", "close", "Close", show=False),
     ]
 
+    def __init__(self, engine: str = "") -> None:
+        super().__init__()
+        self.engine = engine
+
     def compose(self) -> ComposeResult:
         with VerticalScroll(classes="card", id="help-card"):
-            yield Markdown(HELP_TEXT)
+            text = HELP_TEXT
+            if self.engine:
+                text += (f"\nThe probabilities are computed exactly by the {self.engine} "
+                         "(a decision diagram is used where the model is too wide for a join tree).\n")
+            yield Markdown(text)
         yield Footer()
 
     def action_close(self) -> None:

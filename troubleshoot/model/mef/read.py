@@ -39,7 +39,6 @@ NUREG-0492, *Fault Tree Handbook*, U.S. NRC, 1981 (gate semantics).
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass, field
 from graphlib import CycleError, TopologicalSorter
 from pathlib import Path
@@ -331,7 +330,7 @@ def read_mef(path, top: str | None = None, *, mission_time: float | None = None)
         reader.mission_time = DEFAULT_MISSION_TIME_HOURS
 
     gate_refs = {name: _references(element) for name, (element, _) in reader.gates.items()}
-    for name, refs in gate_refs.items():
+    for refs in gate_refs.values():
         for kind, ref, line in refs:
             _resolve(reader, kind, ref, line)
     reader.stop_if_errors()
