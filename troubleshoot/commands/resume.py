@@ -17,15 +17,17 @@ import sys
 
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.session import Session
+from troubleshoot.session.session import numbered_outcomes
 
 HELP = """commands (one per line):
-  CHECK=OUTCOME            record a finding (e.g. pressure_switches=a switch is open)
+  CHECK=OUTCOME            record a finding, the outcome by name or by its number 1..K
+                           (e.g. pressure_switches=a switch is open, suction_pressure=2)
   correct CHECK=OUTCOME    change a finding already recorded
   retract CHECK            withdraw a finding
   skip CHECK REASON...     leave a check out (it cannot be done now)
   unskip CHECK             bring a skipped check back
   repair EVENT             record a repair
-  verify OUTCOME           record the check after the repair (e.g. verify works)
+  verify OUTCOME           record the check after the repair (e.g. verify works, verify 1)
   note TEXT...             add a note to the log
   undo                     take back the last action
   show                     show the ranking and suspects again
@@ -56,11 +58,11 @@ def summary(session: Session) -> str:
              f"cost spent {st.cost_spent:g} {unit}"]
     if st.next_check:
         r = st.next_check
-        odds = ", ".join(f"{o} {p:.2f}" for o, p in zip(r.outcomes, r.p_outcomes))
+        odds = ", ".join(f"{i} {o} {p:.2f}" for i, (o, p) in enumerate(zip(r.outcomes, r.p_outcomes), start=1))
         lines.append(f"next check: {r.check} ({r.label}); {r.bits:.3f} bits, {r.cost:g} {unit}; {odds}")
     if st.verification:
         v = st.verification
-        lines.append(f"verify the repair: {v.label}: {v.outcomes[0]!r} or {v.outcomes[1]!r}")
+        lines.append(f"verify the repair: {v.label}: {numbered_outcomes(v.outcomes)}")
     if st.isolated:
         lines.append(f"isolated: {st.isolated.id} ({st.isolated.label}), P = {st.isolated.p:.3f}")
     if st.status in ("isolated", "ambiguity") and st.repair_order:

@@ -16,6 +16,7 @@ import sys
 
 from troubleshoot.errors import SessionError
 from troubleshoot.session import AMBIGUITY, Session, settings_for
+from troubleshoot.session.session import numbered_outcomes
 
 
 class _Ordered(argparse.Action):
@@ -40,7 +41,8 @@ def add_parser(subparsers, name):
     )
     parser.add_argument("model", metavar="MODEL", help="a model file, or a demo name (rooftop, booster)")
     parser.add_argument("--finding", metavar="CHECK=OUTCOME", action=_Ordered, dest="finding",
-                        help="a check or symptom and the outcome seen (repeatable, order kept)")
+                        help="a check or symptom and the outcome seen, by name or by its number "
+                        "1..K in the check's list (1 the normal one); repeatable, order kept")
     parser.add_argument("--repaired", metavar="EVENT", action=_Ordered, dest="repaired",
                         help="a basic event repaired (repeatable; later findings see it working)")
     parser.add_argument("--threshold", metavar="P", type=float,
@@ -185,8 +187,7 @@ def render_text(session: Session) -> str:
                 lines.append(f"  {i}. {step.id}: {step.repair_label}, {step.cost:g} {unit}, P = {step.p:.3f}")
     if state.verification:
         v = state.verification
-        lines.append(f"Verify the repair: {v.label} ({v.cost:g} {unit}; outcomes {v.outcomes[0]!r} or "
-                     f"{v.outcomes[1]!r})")
+        lines.append(f"Verify the repair: {v.label} ({v.cost:g} {unit}; outcomes {numbered_outcomes(v.outcomes)})")
     if state.next_check:
         lines.append(f"Next check: {state.next_check.check} ({state.next_check.label})")
     for caution in state.cautions:
