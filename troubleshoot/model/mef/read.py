@@ -1168,7 +1168,9 @@ def write_mef(model: Model, path) -> None:
             lines.append("    </define-basic-event>")
     lines.append("  </model-data>")
     lines.append("</opsa-mef>")
-    Path(path).write_text("\n".join(lines) + "\n", encoding="utf-8")
+    from troubleshoot.files import write_output
+
+    write_output(path, ("\n".join(lines) + "\n").encode("utf-8"), "MEF file")
 
 
 def _law(event: BasicEvent, model: Model) -> str:
