@@ -102,9 +102,9 @@ def save_traceback(exc: BaseException, argv: list[str]) -> Path | None:
 
     text = (f"troubleshoot {__version__}, Python {sys.version.split()[0]}\n"
             f"command: troubleshoot {' '.join(argv)}\n"
-            f"time: {_dt.datetime.now(_dt.timezone.utc).isoformat()}\n\n"
+            f"time: {_dt.datetime.now(_dt.UTC).isoformat()}\n\n"
             + "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)))
-    stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    stamp = _dt.datetime.now(_dt.UTC).strftime("%Y%m%dT%H%M%SZ")
     for folder in (crash_dir(), Path(tempfile.gettempdir())):
         try:
             folder.mkdir(parents=True, exist_ok=True)

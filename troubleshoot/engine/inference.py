@@ -185,7 +185,7 @@ class Engine:
         calibrated = tree.propagate(evidence)
         return net, tree, calibrated, log_constant
 
-    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> "Posterior":
+    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> Posterior:
         """Posterior given findings (in order) and the repairs made so far.
 
         Raises

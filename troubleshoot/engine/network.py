@@ -117,7 +117,7 @@ class Network:
     def epochs(self) -> int:
         return len(self.repairs)
 
-    def node_for(self, target: str, epoch: int) -> "str | bool":
+    def node_for(self, target: str, epoch: int) -> str | bool:
         """The network node (or constant) an event or gate id means at an epoch."""
         return self.gate_node[(target, epoch)]
 
@@ -199,7 +199,7 @@ class _Builder:
     def det(self, node_id, kind, operands, role=AUX, label=""):
         return self.add_node(node_id, role, operands, _deterministic_table(kind, len(operands)), label)
 
-    def logic(self, name: str, kind: str, operands: list, named: bool) -> "str | bool":
+    def logic(self, name: str, kind: str, operands: list, named: bool) -> str | bool:
         """AND/OR over operands with constants folded and fan-in bounded.
 
         ``named``: the result must be a node called ``name`` (a model gate at
@@ -225,13 +225,13 @@ class _Builder:
             ops = [head] + ops[self.max_fanin :]
         return self.det(name, kind, ops, GATE if named else AUX, self.model.label_of(name.split(DERIVED)[0]))
 
-    def constant(self, name: str, value: bool, named: bool) -> "str | bool":
+    def constant(self, name: str, value: bool, named: bool) -> str | bool:
         if not named:
             return value
         table = np.array([0.0, 1.0]) if value else np.array([1.0, 0.0])
         return self.add_node(name, GATE, (), table, self.model.label_of(name))
 
-    def atleast(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
+    def atleast(self, name: str, k: int, operands: list, named: bool) -> str | bool:
         """k-of-n, exactly, in nodes of bounded fan-in.
 
         Constants fold first. A gate near OR or AND (k or n - k at most 3)
@@ -280,7 +280,7 @@ class _Builder:
         return self.add_node(node_id, GATE if named else AUX, prev, table.reshape((2,) * bits + (2,)),
                              self.model.label_of(name.split(DERIVED)[0]))
 
-    def _atleast_shannon(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
+    def _atleast_shannon(self, name: str, k: int, operands: list, named: bool) -> str | bool:
         """x_i ? atleast(k-1, rest) : atleast(k, rest), as three-input nodes."""
         memo: dict = {}
         n = len(operands)
@@ -345,7 +345,7 @@ class _Builder:
         self._depends[node_id] = result
         return result
 
-    def gate_at(self, gate_id: str, epoch: int) -> "str | bool":
+    def gate_at(self, gate_id: str, epoch: int) -> str | bool:
         key = (gate_id, epoch)
         if key in self.net.gate_node:
             return self.net.gate_node[key]

@@ -17,7 +17,6 @@ W3C, *XML Schema Part 1: Structures*, 2004.
 from __future__ import annotations
 
 import os
-import tempfile
 import textwrap
 from functools import lru_cache
 from importlib import resources

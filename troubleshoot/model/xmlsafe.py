@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import os
 import re
-from pathlib import Path
 
 from lxml import etree
 

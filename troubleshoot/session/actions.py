@@ -33,11 +33,11 @@ from __future__ import annotations
 import re
 import shlex
 from dataclasses import MISSING, dataclass, fields
-from typing import Any, ClassVar, Union
+from typing import Any, ClassVar
 
 from troubleshoot.errors import SessionError
 
-Outcome = Union[str, int]
+Outcome = str | int
 
 
 class ActionError(SessionError):

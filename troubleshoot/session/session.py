@@ -161,8 +161,8 @@ class SessionSettings:
     value_lookahead: int = DEFAULT_VALUE_LOOKAHEAD
     value_depth: int = DEFAULT_VALUE_DEPTH
 
-    def validated(self) -> "SessionSettings":
-        for name, low_open in (("isolation_threshold", True), ("group_min_p", True)):
+    def validated(self) -> SessionSettings:
+        for name in ("isolation_threshold", "group_min_p"):
             value = getattr(self, name)
             if not (isinstance(value, (int, float)) and 0.0 < value <= 1.0):
                 raise SessionError(f"{name.replace('_', ' ')} must be a probability above 0 and at most 1, "
@@ -305,7 +305,7 @@ class SessionState:
 class SessionLogWriter(Protocol):
     """What a session needs from its log (see :class:`troubleshoot.session.logfile.LogWriter`)."""
 
-    def write_action(self, action: Action, view: "SessionView") -> None: ...
+    def write_action(self, action: Action, view: SessionView) -> None: ...
 
     def close(self) -> None: ...
 

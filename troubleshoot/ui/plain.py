@@ -46,7 +46,7 @@ def _started(session) -> _dt.datetime | None:
     try:
         with open(path, encoding="utf-8") as handle:
             stamp = str(json.loads(handle.readline())["time"]).rstrip("Z")
-        return _dt.datetime.fromisoformat(stamp).replace(tzinfo=_dt.timezone.utc)
+        return _dt.datetime.fromisoformat(stamp).replace(tzinfo=_dt.UTC)
     except (OSError, ValueError, KeyError, TypeError):
         return None
 
@@ -66,7 +66,7 @@ def write_summary(session) -> Path | None:
     if log_path is None:
         return None
     text = summary_markdown(session.model, session.state, log_path, _started(session),
-                            _dt.datetime.now(_dt.timezone.utc))
+                            _dt.datetime.now(_dt.UTC))
     return write_output(summary_path(log_path), text.encode("utf-8"), "session summary")
 
 
