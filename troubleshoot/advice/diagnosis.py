@@ -104,8 +104,8 @@ def entropy_bits(posterior: Posterior) -> float:
     for f in posterior.findings:
         if f.target not in model.check_by_id:
             continue
-        joint, p_abnormal = posterior.check_family(f.target, epoch=f.epoch)
-        lik = p_abnormal if f.outcome == 1 else 1.0 - p_abnormal
+        joint, table = posterior.check_likelihood(f.target, epoch=f.epoch)
+        lik = table[:, f.outcome]
         e_log_lik += _expected_log(joint, lik)
     nats = posterior.log_p - e_log_prior - e_log_lik
     bits = nats / math.log(2.0)
@@ -340,7 +340,7 @@ class VerificationRequest:
     target: str  # the repair's verify check, or the top event
     label: str
     cost: float
-    outcomes: tuple[str, str]  # (works / normal, still fails / abnormal)
+    outcomes: tuple[str, ...]  # (works / normal, then still fails / the abnormal ones)
     instructions: str = ""
     caution: str | None = None
 
@@ -474,7 +474,7 @@ def expected_cost_ahead(engine: Engine, posterior: Posterior, candidates: tuple[
 
 
 def cost_of_check_then(engine: Engine, posterior: Posterior, check_id: str, cost: float,
-                       p_outcomes: tuple[float, float], candidates: tuple[str, ...], depth: int,
+                       p_outcomes: tuple[float, ...], candidates: tuple[str, ...], depth: int,
                        breadth: int, min_bits: float, bound: float = math.inf) -> float:
     """Expected cost of doing a check now and then the best of ``depth - 1`` more checks or repairing.
 

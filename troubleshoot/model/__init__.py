@@ -12,6 +12,7 @@ from troubleshoot.model.types import (
     FORMAT_VERSION,
     GATE_KINDS,
     PROBABILITY_BASES,
+    READ_VERSIONS,
     BasicEvent,
     Cause,
     Check,
@@ -24,6 +25,6 @@ from troubleshoot.model.types import (
 )
 
 __all__ = [
-    "DERIVED", "FORMAT_VERSION", "GATE_KINDS", "PROBABILITY_BASES", "BasicEvent", "Cause", "Check",
+    "DERIVED", "FORMAT_VERSION", "GATE_KINDS", "PROBABILITY_BASES", "READ_VERSIONS", "BasicEvent", "Cause", "Check",
     "Gate", "Model", "Repair", "Verification", "exponential_probability", "unlisted_id",
 ]

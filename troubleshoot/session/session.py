@@ -336,7 +336,7 @@ class SessionView:
         done = [o for o in rec.observations if o.kind == VERIFICATION and o.finding.epoch == rec.epoch]
         if not done:
             return verification_for(self.model, rec.repairs[-1])
-        if any(o.finding.target == self.model.top for o in done) or done[-1].finding.outcome == 1:
+        if any(o.finding.target == self.model.top for o in done) or done[-1].finding.outcome != 0:
             return None
         return top_verification(self.model)
 
@@ -501,11 +501,21 @@ class SessionView:
         )
 
 
-def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:
+def outcome_index(outcomes: tuple[str, ...], outcome: Any, what: str) -> int:
+    """The index of an outcome given as an index (int), a name, or a number 1..K (text).
+
+    A name matches exactly, then ignoring case; text that is no name but a
+    number 1..K means that outcome in the listed order (1 the normal one).
+
+    Raises
+    ------
+    SessionError
+        Naming the outcomes, numbered, when ``outcome`` is none of them.
+    """
     if isinstance(outcome, bool):
         outcome = int(outcome)
     if isinstance(outcome, int):
-        if outcome in (0, 1):
+        if 0 <= outcome < len(outcomes):
             return outcome
     elif isinstance(outcome, str):
         if outcome in outcomes:
@@ -513,8 +523,15 @@ def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:
         folded = [o.casefold() for o in outcomes]
         if outcome.strip().casefold() in folded:
             return folded.index(outcome.strip().casefold())
-    raise SessionError(f"{what} has the outcomes {outcomes[0]!r} and {outcomes[1]!r}, not {outcome!r}; "
-                       "give one of them")
+        if outcome.strip().isdigit() and 1 <= int(outcome.strip()) <= len(outcomes):
+            return int(outcome.strip()) - 1
+    raise SessionError(f"{what} has the outcomes {numbered_outcomes(outcomes)}, not {outcome!r}; "
+                       "give one of them by name or number")
+
+
+def numbered_outcomes(outcomes: tuple[str, ...]) -> str:
+    """``1 'normal', 2 'low', 3 'high'``: the outcomes with the numbers a technician types."""
+    return ", ".join(f"{i} {name!r}" for i, name in enumerate(outcomes, start=1))
 
 
 class Session:
@@ -617,7 +634,7 @@ class Session:
         if request is not None and request.target == check_id:
             # The check that verifies the last repair: its outcome is the verification.
             return self.record_verification(outcome)
-        index = _outcome_index(check.outcomes, outcome, f"check {check_id!r}")
+        index = outcome_index(check.outcomes, outcome, f"check {check_id!r}")
         rec = self._view.record
         for o in rec.observations:
             if o.finding.target == check_id and o.finding.epoch == rec.epoch:
@@ -643,7 +660,7 @@ class Session:
         position = self._find(check_id, epoch)
         old = rec.observations[position]
         outcomes = self._outcomes_of(old)
-        index = _outcome_index(outcomes, outcome, f"{check_id!r}")
+        index = outcome_index(outcomes, outcome, f"{check_id!r}")
         if index == old.finding.outcome:
             raise SessionError(f"the finding on {check_id!r} already reads {outcomes[index]!r}; nothing to correct")
         fixed = Observation(replace(old.finding, outcome=index), old.kind)
@@ -698,7 +715,7 @@ class Session:
                 if o.finding.target == request.target and o.finding.epoch == rec.epoch:
                     raise SessionError(f"check {request.target!r} was already done since the last repair; "
                                        "its finding is the verification: correct it if needed")
-        index = _outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
+        index = outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
         new = replace(rec, observations=rec.observations + (Observation(Finding(request.target, index, rec.epoch),
                                                                          VERIFICATION),))
         return self._commit(RecordVerification(request.outcomes[index]), new)
@@ -839,7 +856,7 @@ class Session:
             raise SessionError(f"there is no finding on {target!r}{when} to change")
         return matches[-1]
 
-    def _outcomes_of(self, observation: Observation) -> tuple[str, str]:
+    def _outcomes_of(self, observation: Observation) -> tuple[str, ...]:
         f = observation.finding
         if observation.kind == VERIFICATION:
             return verification_for(self.model, self._view.record.repairs[f.epoch - 1]).outcomes

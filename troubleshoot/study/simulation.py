@@ -55,6 +55,7 @@ import numpy as np
 from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, is_unlisted, repair_order
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.engine.inference import Engine, Finding
+from troubleshoot.engine.observation import outcome_probabilities, sample_outcome
 from troubleshoot.model.gates import gate_values
 from troubleshoot.model import Model
 from troubleshoot.session import (
@@ -185,20 +186,20 @@ class Equipment:
             self._values[key] = true_values(self.model, self.failed, key)
         return self._values[key]
 
-    def p_abnormal(self, check_id: str, repaired: tuple[str, ...]) -> float:
-        """P(abnormal) of a check given the true state: noisy-OR with leak (Pearl 1988)."""
+    def p_outcomes(self, check_id: str, repaired: tuple[str, ...]) -> np.ndarray:
+        """P(outcome) of a check given the true state (:mod:`troubleshoot.engine.observation`)."""
         check = self.model.check_by_id[check_id]
         values = self.values(repaired)
-        p_normal = 1.0 - check.false_alarm
-        for cause in check.causes:
-            if values[cause.target]:
-                p_normal *= 1.0 - cause.detection
-        return 1.0 - p_normal
+        return outcome_probabilities(check, [values[c.target] for c in check.causes])
+
+    def p_abnormal(self, check_id: str, repaired: tuple[str, ...]) -> float:
+        """P(any abnormal outcome) of a check given the true state."""
+        return float(1.0 - self.p_outcomes(check_id, repaired)[0])
 
     def answer(self, check_id: str, repaired: tuple[str, ...]) -> int:
-        """The outcome (0 normal, 1 abnormal) of a check done after ``repaired``."""
+        """The outcome index (0 normal) of a check done after ``repaired``."""
         u = self.uniforms[len(repaired), self._column[check_id]]
-        return int(u < self.p_abnormal(check_id, repaired))
+        return sample_outcome(self.p_outcomes(check_id, repaired), u)
 
     def top_fails(self, repaired: tuple[str, ...]) -> bool:
         return bool(self.values(repaired)[self.model.top])

@@ -48,7 +48,7 @@ class CheckCard:
     label: str
     cost: float
     unit: str
-    outcomes: tuple[str, str]
+    outcomes: tuple[str, ...]
     instructions: str = ""
     caution: str | None = None
     p_outcomes: tuple[float, float] | None = None
