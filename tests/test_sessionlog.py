@@ -526,7 +526,7 @@ def test_resume_plain_survives_an_unbalanced_quote_and_reads_on(model_file, tmp_
 
 def test_resume_plain_refuses_a_bad_line_and_goes_on(model_file, tmp_path, capsys, monkeypatch):
     log = write_log(model_file, tmp_path / "s.jsonl", ACTIONS[:1])
-    monkeypatch.setattr(sys, "stdin", _Lines("lamp=blinking\nfrobnicate\nack lamp\nack flow\nlamp=1\n"))
+    monkeypatch.setattr(sys, "stdin", _Lines("lamp=blinking\nfrobnicate\nack lamp\nack flow\nlamp=2\n"))
     status, out, _ = cli(capsys, "resume", log, "--plain")
     assert status == 0
     assert out.count("refused:") == 3

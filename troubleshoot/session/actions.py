@@ -25,7 +25,8 @@ class                      log record ``action``    line-mode text
 =========================  =======================  ==============================
 
 An outcome is given by name (as the model spells it, case and spaces
-forgiven) or by number (0 for the first outcome).
+forgiven) or, typed, by its number 1..K in the model's order; a program may
+also give its index (an int, 0 for the first).
 """
 
 from __future__ import annotations
@@ -289,7 +290,7 @@ def describe(action: Action | dict) -> str:
 
 
 LINE_HELP = """commands (one per line):
-  CHECK=OUTCOME            record a finding (e.g. pressure_switches=a switch is open, or a number: 0 = first outcome)
+  CHECK=OUTCOME            record a finding (e.g. pressure_switches=a switch is open; or by number, 1 = the first)
   correct CHECK=OUTCOME    change a finding already recorded
   retract CHECK            withdraw a finding
   skip CHECK REASON...     leave a check out (it cannot be done now)
@@ -323,12 +324,9 @@ def _words(text: str) -> list[str]:
         return text.split()
 
 
-def outcome_from_text(text: str) -> Outcome:
-    """An outcome as typed: a whole number is the outcome's number, anything else its name."""
-    text = _unquote(text)
-    if re.fullmatch(r"[0-9]{1,3}", text):
-        return int(text)
-    return text
+def outcome_from_text(text: str) -> str:
+    """An outcome as typed, quotes aside: a name, or a number 1..K the session resolves."""
+    return _unquote(text)
 
 
 def parse_action(line: str) -> Action:
