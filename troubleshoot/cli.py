@@ -120,7 +120,8 @@ def save_traceback(exc: BaseException, argv: list[str]) -> Path | None:
 def _where(exc: BaseException) -> str:
     """The innermost frame of the project, as ``module.py:line in function``."""
     frames = traceback.extract_tb(exc.__traceback__)
-    ours = [f for f in frames if "troubleshoot" in f.filename.replace("\\", "/").split("/site-packages/")[-1]]
+    package = Path(__file__).resolve().parent
+    ours = [f for f in frames if package in Path(f.filename).resolve().parents]
     frame = (ours or frames or [None])[-1]
     if frame is None:
         return "an unknown place"

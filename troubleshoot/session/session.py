@@ -12,22 +12,12 @@ remaining entropy are computed from it once and cached.
 The command line, the terminal UI and the simulator only call the methods
 below and read :attr:`Session.state` (plain Python data, no numpy).
 
-Actions (each also available as a dict for :meth:`Session.apply`, the form the
-log stores):
-
-=====================  ==========================================================
-method                 dict
-=====================  ==========================================================
-record_finding         {"action": "finding", "check": ID, "outcome": NAME}
-retract_finding        {"action": "retract", "check": ID, "epoch": K}
-correct_finding        {"action": "correct", "check": ID, "outcome": NAME, "epoch": K}
-skip_check             {"action": "skip", "check": ID, "reason": TEXT}
-unskip_check           {"action": "unskip", "check": ID}
-record_repair          {"action": "repair", "event": ID}
-record_verification    {"action": "verify", "outcome": NAME}
-add_note               {"action": "note", "text": TEXT}
-undo                   {"action": "undo"}
-=====================  ==========================================================
+Actions are typed (:mod:`troubleshoot.session.actions`: one dataclass each);
+:meth:`Session.apply` takes one (or the dict the log stores) and calls the
+method: ``record_finding``, ``retract_finding``, ``correct_finding``,
+``skip_check``, ``unskip_check``, ``record_repair``, ``record_verification``,
+``add_note``, ``acknowledge_caution``, ``undo``, ``record_resume``.
+:attr:`Session.actions` lists them in order as committed.
 
 Status, in this order of precedence:
 
