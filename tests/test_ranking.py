@@ -22,9 +22,9 @@ from troubleshoot.advice.diagnosis import (
     Suspect,
     entropy_bits,
     most_probable_explanation,
-    repair_order,
     suspects,
 )
+from troubleshoot.advice.repair import repair_order
 from troubleshoot.errors import ImpossibleFindings
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair

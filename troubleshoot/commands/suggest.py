@@ -56,6 +56,9 @@ def add_parser(subparsers, name):
                         help="how many of the best checks are weighed against repairing at once "
                              "(default 3; 0: only --min-bits decides when to stop checking)")
     parser.add_argument("--json", action="store_true", help="print the result as JSON (see the README)")
+    parser.add_argument("--engine", choices=("auto", "join tree", "decision diagram"), default="auto",
+                        help="which exact path computes the figures (default auto: the join tree, or the "
+                             "decision diagram when the join tree would not fit in memory); for testing")
     parser.set_defaults(steps=[])
     return parser
 
@@ -114,6 +117,7 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
         "model": model.name,
         "model_source": model_spec,
         "cost_unit": model.cost_unit,
+        "engine": session.engine.name,
         "status": state.status,
         "log_p_findings": state.log_p_findings,
         "entropy_bits": state.entropy_bits,
@@ -145,7 +149,7 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
 
 def render_text(session: Session) -> str:
     """The readable table: ranking, suspects, explanation, status (:func:`troubleshoot.session.render.render_state`)."""
-    return render_state(session.model, session.state, session.explanation)
+    return render_state(session.model, session.state, session.explanation, engine_name=session.engine.name)
 
 
 def run(args) -> int:
@@ -156,7 +160,9 @@ def run(args) -> int:
     for warning in warnings:
         print(f"troubleshoot: {warning}", file=sys.stderr)
     settings = settings_for(model, args.threshold, args.min_bits, args.group_p, args.lookahead)
-    session = Session(model, settings, model_path=str(path))
+    from troubleshoot.engine.inference import Engine
+
+    session = Session(model, settings, model_path=str(path), engine=Engine(model, kind=args.engine))
     apply_steps(session, args.steps)
     if args.json:
         sys.stdout.write(json.dumps(suggestion_json(session, args.model), indent=2, allow_nan=False) + "\n")

@@ -192,6 +192,21 @@ class Verification:
 
 
 @dataclass(frozen=True)
+class Escalation:
+    """Handing the unit over when the cause lies beyond the model (format 1.1).
+
+    ``label`` says what escalating means in words ("call the manufacturer's
+    field engineer", "swap the whole unit"); ``cost`` is its price in the
+    model's cost unit, counted once, after which the unit is taken as put
+    right.
+    """
+
+    label: str
+    cost: float
+    instructions: str = ""
+
+
+@dataclass(frozen=True)
 class Model:
     """A validated, immutable diagnostic model.
 
@@ -212,6 +227,10 @@ class Model:
         The check of the top event after a repair.
     isolation_threshold : float
         Posterior at which a suspect counts as isolated.
+    escalation : Escalation or None
+        What handing the unit over costs and means (format 1.1); None: no
+        price, so escalation is never chosen by cost (see
+        :mod:`troubleshoot.advice.policy`).
     """
 
     name: str
@@ -229,6 +248,7 @@ class Model:
     top_label: str = ""
     verification: Verification | None = None
     isolation_threshold: float = 0.95
+    escalation: Escalation | None = None
     source: str | None = field(default=None, compare=False)
 
     # Lookups, derived once; cached_property writes to __dict__, so it is

@@ -59,7 +59,7 @@ def _score_text(score: float) -> str:
     return "free" if math.isinf(score) else f"{score:.4f}"
 
 
-def render_state(model, state, explanation=None) -> str:
+def render_state(model, state, explanation=None, engine_name: str | None = None) -> str:
     """The full text ``suggest`` prints: findings, ranking, suspects, explanation, status, what next."""
     unit = model.cost_unit
     lines = [f"Model {model.name}: {model.label_of(model.top)} (complaint applied first)"]
@@ -71,6 +71,7 @@ def render_state(model, state, explanation=None) -> str:
     lines += [
         f"Remaining uncertainty: {state.entropy_bits:.4f} bits; log P(findings) = {state.log_p_findings:.6f}",
         f"Cost spent: {state.cost_spent:g} {unit}",
+        *([f"Computed exactly by the {engine_name}"] if engine_name else []),
         f"Status: {state.status}",
         "",
         f"Checks, best first (information in bits, cost in {unit}, score in bits per {unit}):",

@@ -60,7 +60,7 @@ from troubleshoot.session import (
     top_verification,
     verification_for,
 )
-from troubleshoot.study.simulation import CLEARED_P, next_repair, repair_cost
+from troubleshoot.advice.repair import CLEARED_P, next_repair, repair_cost
 
 #: Largest number of root events the enumeration takes (2^16 joint states).
 MAX_ROOTS = 16

@@ -52,7 +52,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, is_unlisted, repair_order
+from troubleshoot.advice.diagnosis import is_unlisted
+from troubleshoot.advice.repair import CLEARED_P, next_repair, repair_cost  # noqa: F401 (re-exported)
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.engine.observation import outcome_probabilities, sample_outcome
@@ -67,9 +68,6 @@ from troubleshoot.session import (
     settings_for,
 )
 
-#: A suspect below this posterior is treated as cleared (rounding of an exact zero).
-CLEARED_P = 1e-12
-
 # Streams of a case's random numbers (the third word of the seed sequence).
 STREAM_TRUE_STATE, STREAM_OUTCOMES, STREAM_STRATEGY = 0, 1, 2
 
@@ -83,43 +81,6 @@ Z95 = 1.96
 def case_generator(seed: int, case: int, stream: int) -> np.random.Generator:
     """The generator of one stream of one case, from (seed, case index, stream) alone."""
     return np.random.default_rng(np.random.SeedSequence([int(seed), int(case), int(stream)]))
-
-
-def repair_cost(model: Model, root: str) -> float:
-    """Cost of repairing a root (0 when the model lists no repair)."""
-    event = model.event_by_id.get(root)
-    return float(event.repair.cost) if event is not None and event.repair is not None else 0.0
-
-
-def next_repair(model: Model, ranked: tuple[Suspect, ...], group_min_p: float) -> str | None:
-    """The root to repair next: the first repairable entry of the repair order.
-
-    Parameters
-    ----------
-    model : Model
-    ranked : tuple of Suspect
-        The suspects, most probable first (repaired ones marked).
-    group_min_p : float
-        The session's ambiguity-group threshold.
-
-    Returns
-    -------
-    str or None
-        The first repairable suspect of :func:`~troubleshoot.advice.diagnosis.repair_order`
-        over the ambiguity group; when the group holds none, over every
-        unrepaired suspect with P > :data:`CLEARED_P`; None when no
-        repairable suspect is left.
-
-    References
-    ----------
-    Kadane & Simon 1977 (order by probability over cost).
-    """
-    for min_p in (group_min_p, CLEARED_P):
-        group = tuple(s for s in ambiguity_group(ranked, min_p) if s.p > CLEARED_P)
-        for step in repair_order(model, group):
-            if step.cost is not None:
-                return step.id
-    return None
 
 
 def sample_true_state(engine: Engine, rng: np.random.Generator) -> frozenset[str]:
