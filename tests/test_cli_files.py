@@ -22,7 +22,7 @@ import pytest
 from test_session import pump_model
 from troubleshoot import cli
 from troubleshoot.model.demos import demo_path
-from troubleshoot.model.mef.read import write_mef
+from troubleshoot.model.mef.write import write_mef
 from troubleshoot.model.xmlfile import save_model
 
 MEF = Path(__file__).parent / "mef_files"

@@ -28,7 +28,7 @@ def add_parser(subparsers, name):
 def export_bytes(model, fmt: str) -> bytes:
     """The model in one of :data:`FORMATS`, as the bytes of the file."""
     if fmt == "mef":
-        from troubleshoot.model.mef.read import write_mef
+        from troubleshoot.model.mef.write import write_mef
 
         with tempfile.TemporaryDirectory() as tmp:
             out = Path(tmp) / "model.xml"

@@ -155,6 +155,26 @@ def _close(a, b) -> bool:
     return math.isclose(a, b, rel_tol=REPLAY_TOLERANCE, abs_tol=REPLAY_TOLERANCE)
 
 
+def _ties_by_id(rows: list, name: str) -> list:
+    """Rows with every run of tied values (to the replay tolerance) ordered by id.
+
+    The order of exactly tied rows is the id's; a log written before ties
+    were ordered so may hold them the other way round, which is no difference.
+    """
+    def value(row):
+        v = row.get(name) if isinstance(row, dict) else None
+        return math.inf if v is None else v
+
+    out: list = []
+    group: list = []
+    for row in rows:
+        if group and not (_close(value(group[0]), value(row)) or value(group[0]) == value(row)):
+            out += sorted(group, key=lambda r: str(r.get("id")))
+            group = []
+        group.append(row)
+    return out + sorted(group, key=lambda r: str(r.get("id")))
+
+
 def compare_snapshot(logged: dict, now: dict, line: int = 0, action: str = "", path: str = "") -> list[Difference]:
     """Every difference between a logged snapshot and a recomputed one (empty when they agree)."""
     out: list[Difference] = []
@@ -173,7 +193,7 @@ def compare_snapshot(logged: dict, now: dict, line: int = 0, action: str = "", p
     for key, names in (("ranking", ("bits", "cost", "score")), ("suspects", ("p",))):
         if key not in logged:
             continue
-        old, new = logged[key], now[key]
+        old, new = _ties_by_id(logged[key], names[-1]), _ties_by_id(now[key], names[-1])
         if len(old) != len(new):
             diff(key, name="rows", old=len(old), new=len(new))
             continue
