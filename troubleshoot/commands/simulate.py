@@ -14,6 +14,7 @@ import math
 import sys
 
 from troubleshoot.errors import TroubleshootError
+from troubleshoot.progress import ProgressDisplay
 
 
 class SimulationError(TroubleshootError):
@@ -81,12 +82,6 @@ def _require_matplotlib():
     return plt
 
 
-def _progress(model_name: str):
-    def report(done: int, total: int) -> None:
-        print(f"simulating {model_name}: {done}/{total} cases", file=sys.stderr, flush=True)
-    return report
-
-
 def run(args) -> int:
     from troubleshoot.model.source import load_any_model
     from troubleshoot.session import settings_for
@@ -127,14 +122,13 @@ def run(args) -> int:
         print("troubleshoot: optimal is exact for the repair-only protocol; every strategy runs under it "
               "(no checks after the first repair)", file=sys.stderr)
     args.protocol = "diagnose" if checks_after_repair else "repair"
-    truth = None
-    if args.truth:
-        truth = _load_truth(args.truth, model)
+    truth = _load_truth(args.truth, model) if args.truth else None
     sink = _log_sink(args.logs, args.cases) if args.logs else None
     from troubleshoot.study.execution import executor_for
 
-    with executor_for(workers if args.cases > 1 else None, args.scheduler) as executor:
-        results = simulate(model, args.cases, args.seed, specs, settings, workers, _progress(model.name),
+    with executor_for(workers if args.cases > 1 else None, args.scheduler) as executor, \
+            ProgressDisplay(f"simulating {model.name}", unit="cases") as progress:
+        results = simulate(model, args.cases, args.seed, specs, settings, workers, progress.count,
                            checks_after_repair=checks_after_repair, truth=truth, log_sink=sink,
                            executor=executor)
     if args.logs:

@@ -1,11 +1,12 @@
 """Model -> Bayesian network: binary nodes, bounded fan-in, exact.
 
 Roots are the basic events and the unlisted-cause events; gates are
-deterministic nodes; checks and symptoms are noisy-OR nodes over their causes
-with a false-alarm leak. Wide AND/OR gates become chains of nodes of at most
+deterministic nodes; checks and symptoms are noisy-OR (two outcomes) or
+noisy-MAX (K outcomes) nodes over their causes with a false-alarm leak, as
+:mod:`troubleshoot.engine.observation` says. Wide AND/OR gates become chains of nodes of at most
 :data:`MAX_FANIN` inputs; an at-least-k gate becomes a Shannon decomposition
 (x_i ? atleast(k-1, rest) : atleast(k, rest)) of three-input nodes; a wide
-noisy-OR becomes a chain Y_j = Y_(j-1) OR (c_j and it shows), all exact, so
+noisy-OR or noisy-MAX becomes a chain Y_j = max(Y_(j-1), what c_j shows), all exact, so
 no table grows as 2^width.
 
 Repairs are interventions. A finding made after the j-th repair (epoch j)
@@ -29,7 +30,11 @@ from dataclasses import dataclass, field
 import networkx as nx
 import numpy as np
 
-from troubleshoot.model import DERIVED, Model, unlisted_id
+from troubleshoot.engine.observation import CheckFamily, check_family, max_table
+from troubleshoot.model import DERIVED, Model
+from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective
+
+__all__ = ["CheckFamily", "Network", "build_network", "MAX_FANIN"]
 
 MAX_FANIN = 3
 
@@ -37,68 +42,17 @@ MAX_FANIN = 3
 ROOT, GATE, AUX, CHECK, CHECK_AUX = "root", "gate", "aux", "check", "check-aux"
 
 
-@dataclass(frozen=True)
-class CheckFamily:
-    """What one check reads at one epoch, after constants are folded.
-
-    P(abnormal | c) = 1 - (1 - leak) * prod_i (1 - detections[i]) ** c_i over
-    ``nodes``; a cause that folded to a constant is absorbed into ``leak``
-    (if always present) or dropped (if never).
-    """
-
-    check: str
-    epoch: int
-    nodes: tuple[str, ...]
-    detections: tuple[float, ...]
-    leak: float
-
-    def log_p_normal(self) -> np.ndarray:
-        """log P(normal | c) for every joint state c of ``nodes``, C order, shape (2,)*m (read-only, cached)."""
-        cached = self.__dict__.get("_log_p_normal")
-        if cached is not None:
-            return cached
-        m = len(self.nodes)
-        log_normal = np.full((2,) * m, _log1m(self.leak))
-        for axis, d in enumerate(self.detections):
-            shape = [1] * m
-            shape[axis] = 2
-            log_normal = log_normal + np.array([0.0, _log1m(d)]).reshape(shape)
-        log_normal.setflags(write=False)
-        self.__dict__["_log_p_normal"] = log_normal  # frozen dataclass: cache beside the fields
-        return log_normal
-
-    def p_abnormal(self) -> np.ndarray:
-        """P(abnormal | c) for every joint state c of ``nodes``, C order, shape (2,)*m.
-
-        Computed as -expm1(log P(normal)), so a detection of 1e-12 keeps its digits.
-        """
-        cached = self.__dict__.get("_p_abnormal")
-        if cached is None:
-            cached = -np.expm1(self.log_p_normal())
-            cached.setflags(write=False)
-            self.__dict__["_p_abnormal"] = cached
-        return cached
-
-    def p_normal(self) -> np.ndarray:
-        """P(normal | c), the complement of :meth:`p_abnormal`, without cancellation."""
-        return np.exp(self.log_p_normal())
-
-
-def _log1m(p: float) -> float:
-    """log(1 - p), -inf at p = 1."""
-    return float(np.log1p(-p)) if p < 1.0 else -np.inf
-
-
 @dataclass
 class Network:
-    """A binary Bayesian network built from a Model.
+    """A Bayesian network built from a Model: binary event and gate nodes, K-state check nodes.
 
     Attributes
     ----------
     graph : networkx.DiGraph
         Node attributes: ``role``, ``parents`` (tuple, the table's axis
-        order), ``table`` (numpy array of shape (2,)*len(parents) + (2,),
-        P(node | parents), last axis the node's state), ``states`` (names).
+        order), ``table`` (numpy array with one axis per parent, of its
+        number of states, then the node's own states:
+        P(node | parents)), ``states`` (names).
     repairs : tuple of str
         The repaired roots, in order; epoch j sees the first j held working.
     families : dict
@@ -117,7 +71,7 @@ class Network:
     def epochs(self) -> int:
         return len(self.repairs)
 
-    def node_for(self, target: str, epoch: int) -> "str | bool":
+    def node_for(self, target: str, epoch: int) -> str | bool:
         """The network node (or constant) an event or gate id means at an epoch."""
         return self.gate_node[(target, epoch)]
 
@@ -199,7 +153,7 @@ class _Builder:
     def det(self, node_id, kind, operands, role=AUX, label=""):
         return self.add_node(node_id, role, operands, _deterministic_table(kind, len(operands)), label)
 
-    def logic(self, name: str, kind: str, operands: list, named: bool) -> "str | bool":
+    def logic(self, name: str, kind: str, operands: list, named: bool) -> str | bool:
         """AND/OR over operands with constants folded and fan-in bounded.
 
         ``named``: the result must be a node called ``name`` (a model gate at
@@ -225,13 +179,13 @@ class _Builder:
             ops = [head] + ops[self.max_fanin :]
         return self.det(name, kind, ops, GATE if named else AUX, self.model.label_of(name.split(DERIVED)[0]))
 
-    def constant(self, name: str, value: bool, named: bool) -> "str | bool":
+    def constant(self, name: str, value: bool, named: bool) -> str | bool:
         if not named:
             return value
         table = np.array([0.0, 1.0]) if value else np.array([1.0, 0.0])
         return self.add_node(name, GATE, (), table, self.model.label_of(name))
 
-    def atleast(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
+    def atleast(self, name: str, k: int, operands: list, named: bool) -> str | bool:
         """k-of-n, exactly, in nodes of bounded fan-in.
 
         Constants fold first. A gate near OR or AND (k or n - k at most 3)
@@ -280,21 +234,37 @@ class _Builder:
         return self.add_node(node_id, GATE if named else AUX, prev, table.reshape((2,) * bits + (2,)),
                              self.model.label_of(name.split(DERIVED)[0]))
 
-    def _atleast_shannon(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
-        """x_i ? atleast(k-1, rest) : atleast(k, rest), as three-input nodes."""
+    def _atleast_shannon(self, name: str, k: int, operands: list, named: bool) -> str | bool:
+        """x_i ? atleast(k-1, rest) : atleast(k, rest), as three-input nodes.
+
+        The sub-problems (need, i) are solved with an explicit stack, children
+        before parents, so k and n are limited by memory, not by recursion.
+        """
         memo: dict = {}
         n = len(operands)
 
-        def build(need: int, i: int):
+        def known(need: int, i: int):
             if need <= 0:
                 return True
             if n - i < need:
                 return False
-            key = (need, i)
-            if key in memo:
-                return memo[key]
+            return memo.get((need, i))
+
+        stack = [(k, 0)]
+        while stack:
+            need, i = stack[-1]
+            if known(need, i) is not None:
+                stack.pop()
+                continue
+            hi, lo = known(need - 1, i + 1), known(need, i + 1)
+            if hi is None or lo is None:
+                if hi is None:
+                    stack.append((need - 1, i + 1))
+                if lo is None:
+                    stack.append((need, i + 1))
+                continue
+            stack.pop()
             x = operands[i]
-            hi, lo = build(need - 1, i + 1), build(need, i + 1)
             if x is True:
                 result = hi
             elif x is False:
@@ -309,10 +279,9 @@ class _Builder:
                 result = self.logic(f"{name}{DERIVED}k{need}_{i}", "and", [x, hi], False)
             else:
                 result = self.det(f"{name}{DERIVED}k{need}_{i}", "ite", [x, hi, lo])
-            memo[key] = result
-            return result
+            memo[(need, i)] = result
 
-        result = build(k, 0)
+        result = known(k, 0)
         if not named:
             return result
         if isinstance(result, bool):
@@ -332,101 +301,94 @@ class _Builder:
 
     # -- the model -------------------------------------------------------
     def depends_on(self, node_id: str) -> frozenset:
-        """Roots a gate or event reads, transitively."""
+        """Roots a gate or event reads, transitively (gates visited children first)."""
         if node_id in self._depends:
             return self._depends[node_id]
-        gate = self.model.gate_by_id.get(node_id)
-        if gate is None:
-            result = frozenset([node_id])
-        else:
-            result = frozenset().union(*(self.depends_on(x) for x in gate.operands))
-            if gate.unlisted is not None:
-                result |= {unlisted_id(gate.id)}
-        self._depends[node_id] = result
-        return result
+        gates = self.model.gate_by_id
+        if node_id not in gates:
+            return frozenset([node_id])
+        for gate_id in bottom_up(self.model, [node_id], skip=self._depends.__contains__):
+            operands = connective(gates[gate_id]).operands
+            self._depends[gate_id] = frozenset().union(
+                *(self._depends[x] if x in gates else frozenset([x]) for x in operands))
+        return self._depends[node_id]
 
-    def gate_at(self, gate_id: str, epoch: int) -> "str | bool":
+    def gate_at(self, gate_id: str, epoch: int) -> str | bool:
+        """The node (or constant) carrying a gate or root at an epoch, built if new.
+
+        The gates under it are built first, children before parents, with an
+        explicit stack (:func:`~troubleshoot.model.gates.bottom_up`).
+        """
         key = (gate_id, epoch)
         if key in self.net.gate_node:
             return self.net.gate_node[key]
+        if gate_id in self.model.gate_by_id:
+            built = self.net.gate_node
+            for below in bottom_up(self.model, [gate_id], skip=lambda g: (g, epoch) in built):
+                self._build(below, epoch)
+        else:
+            self._build(gate_id, epoch)
+        return self.net.gate_node[key]
+
+    def _operand(self, node_id: str, epoch: int) -> str | bool:
+        """An operand already built at this epoch (a root is looked up or held working)."""
+        key = (node_id, epoch)
+        if key not in self.net.gate_node:
+            self._build(node_id, epoch)  # a root: no operands of its own
+        return self.net.gate_node[key]
+
+    def _build(self, gate_id: str, epoch: int) -> None:
+        """Build one gate or root at an epoch; the gates it reads are built already."""
         repaired = set(self.net.repairs[:epoch])
         if epoch > 0 and not (self.depends_on(gate_id) & repaired):
             result = self.gate_at(gate_id, 0)
         elif gate_id not in self.model.gate_by_id:  # a root
             result = False if gate_id in repaired else gate_id
         else:
-            gate = self.model.gate_by_id[gate_id]
+            conn = connective(self.model.gate_by_id[gate_id])
             name = gate_id if epoch == 0 else f"{gate_id}{DERIVED}r{epoch}"
-            operands = [self.gate_at(x, epoch) for x in gate.inputs]
+            operands = [self._operand(x, epoch) for x in conn.operands]
             named = epoch == 0
-            if gate.kind == "or":
-                if gate.unlisted is not None:
-                    operands.append(self.gate_at(unlisted_id(gate.id), epoch))
-                result = self.logic(name, "or", operands, named)
-            elif gate.kind == "and":
-                result = self.logic(name, "and", operands, named)
-            elif gate.kind == "inhibit":
-                result = self.logic(name, "and", operands + [self.gate_at(gate.condition, epoch)], named)
-            elif gate.kind == "atleast":
-                result = self.atleast(name, gate.k, operands, named)
-            elif gate.kind == "not":
+            if conn.op in (AND, OR):
+                result = self.logic(name, conn.op, operands, named)
+            elif conn.op == ATLEAST:
+                result = self.atleast(name, conn.threshold(), operands, named)
+            elif conn.op == NOT:
                 (op,) = operands
                 if isinstance(op, bool):
                     result = self.constant(name, not op, named) if named else (not op)
                 else:
                     result = self.det(name, "not", [op], GATE if named else AUX, self.model.label_of(gate_id))
-            else:
-                raise ValueError(f"unknown gate kind {gate.kind!r}")
-        self.net.gate_node[key] = result
-        return result
+            else:  # pragma: no cover - connective() knows no other
+                raise ValueError(f"unknown connective {conn.op!r}")
+        self.net.gate_node[(gate_id, epoch)] = result
 
     def family(self, check, epoch: int) -> CheckFamily:
-        nodes: list[str] = []
-        detections: list[float] = []
-        p_no_leak = 1.0 - check.false_alarm
-        for cause in check.causes:
-            node = self.gate_at(cause.target, epoch)
-            if node is True:
-                p_no_leak *= 1.0 - cause.detection
-            elif node is False:
-                continue
-            elif node in nodes:  # two causes that are one node: their misses multiply
-                i = nodes.index(node)
-                detections[i] = 1.0 - (1.0 - detections[i]) * (1.0 - cause.detection)
-            else:
-                nodes.append(node)
-                detections.append(cause.detection)
-        return CheckFamily(check.id, epoch, tuple(nodes), tuple(detections), 1.0 - p_no_leak)
+        return check_family(check, epoch, lambda target: self.gate_at(target, epoch))
 
     def check_node(self, check):
-        """The check as a noisy-OR node over its epoch-0 causes (for export)."""
+        """The check as a noisy-MAX node over its epoch-0 causes (for export).
+
+        A check with more causes than the fan-in becomes a chain: the first
+        link reads the leak and the first causes, each next link the
+        previous one and the next causes, Y_j = max(Y_(j-1), chunk j).
+        """
         fam = self.net.families[(check.id, 0)]
-        nodes, dets = list(fam.nodes), list(fam.detections)
         states = tuple(check.outcomes)
-        if len(nodes) <= self.max_fanin:
-            sub = CheckFamily(check.id, 0, tuple(nodes), tuple(dets), fam.leak)
-            table = np.stack([sub.p_normal(), sub.p_abnormal()], axis=-1)
-            self.add_node(check.id, CHECK, nodes, table, check.label, states)
-            return
-        # Chain: Y_1 reads the leak and the first causes; Y_j = Y_(j-1) OR shows(c_j...).
-        prev, step, leak = None, 0, fam.leak
-        while nodes:
+        positions = list(range(len(fam.nodes)))
+        prev, step = None, 0
+        while True:
             take = self.max_fanin if prev is None else self.max_fanin - 1
-            chunk, nodes = nodes[:take], nodes[take:]
-            chunk_d, dets = dets[:take], dets[take:]
+            chunk, positions = positions[:take], positions[take:]
             step += 1
-            last = not nodes
+            last = not positions
             name = check.id if last else f"{check.id}{DERIVED}{step}"
-            parents = ([prev] if prev else []) + chunk
-            part = CheckFamily(check.id, 0, tuple(chunk), tuple(chunk_d), leak)
-            p_abn, p_norm = part.p_abnormal(), part.p_normal()
-            leak = 0.0
-            if prev is not None:  # once the chain is abnormal it stays abnormal
-                p_abn = np.stack([p_abn, np.ones_like(p_abn)], axis=0)
-                p_norm = np.stack([p_norm, np.zeros_like(p_norm)], axis=0)
-            table = np.stack([p_norm, p_abn], axis=-1)
+            parents = ([prev] if prev else []) + [fam.nodes[i] for i in chunk]
+            table = max_table(fam, chunk, with_leak=prev is None, with_previous=prev is not None)
             self.add_node(name, CHECK if last else CHECK_AUX, parents, table,
-                          check.label if last else "", states if last else ("no", "yes"))
+                          check.label if last else "", states)
+            if last:
+                return
             prev = name
 
 
@@ -454,7 +416,8 @@ def build_network(model: Model, repairs: tuple[str, ...] = (), max_fanin: int = 
 
     References
     ----------
-    NUREG-0492 (gate semantics); Pearl 1988 and Henrion 1989 (noisy-OR with leak).
+    NUREG-0492 (gate semantics); Pearl 1988, Henrion 1989 and Díez 1993 (noisy-OR and
+    noisy-MAX with leak).
     """
     if max_fanin < 3:
         raise ValueError("max_fanin must be at least 3")

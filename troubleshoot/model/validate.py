@@ -15,8 +15,10 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Mapping
+from functools import lru_cache
 
 import networkx as nx
+from lxml import etree
 
 from troubleshoot.errors import Problem
 from troubleshoot.model import (
@@ -28,9 +30,12 @@ from troubleshoot.model import (
     exponential_probability,
 )
 
-#: An NCName without ':' (and so without '~'): a letter or '_' first, then
-#: letters, digits, '-', '_' or '.'. Unicode letters are accepted, as in XML.
-_ID = re.compile(r"^[^\W\d][\w.\-]*$")
+#: An ASCII id: a letter or '_' first, then letters, digits, '-', '_' or '.'.
+_ASCII_ID = re.compile(r"[A-Za-z_][A-Za-z0-9_.\-]*", re.ASCII)
+
+#: A schema holding one element of the xs:NCName type our schema's ids derive from.
+_NCNAME_SCHEMA = b"""<xs:schema xmlns:xs="http://www.w3.org/2001/XMLSchema">
+  <xs:element name="id" type="xs:NCName"/></xs:schema>"""
 
 #: Relative tolerance for a probability given next to a rate and exposure.
 _RATE_TOLERANCE = 1e-9
@@ -40,8 +45,41 @@ LineKey = tuple
 
 
 def is_valid_id(text: object) -> bool:
-    """True for an id the model format accepts: an XML NCName without '~'."""
-    return isinstance(text, str) and DERIVED not in text and bool(_ID.match(text))
+    """True for an id the model format accepts: an XML NCName without '~'.
+
+    An ASCII id is checked here; any other is checked by the XML Schema
+    library that checks model files (libxml2), so this rule and the schema
+    agree on every character, combining marks and letters of every script
+    included (libxml2 uses the character classes of XML 1.0, 4th edition).
+    """
+    if not isinstance(text, str) or not text or DERIVED in text:
+        return False
+    if text.isascii():
+        return _ASCII_ID.fullmatch(text) is not None
+    if text != text.strip() or any(c.isspace() or c in "<&" for c in text):
+        return False  # the schema would collapse blanks before it checks
+    return _schema_accepts_ncname(text)
+
+
+@lru_cache(maxsize=4096)
+def is_valid_id_char(char: str) -> bool:
+    """True when ``char`` may appear after the first character of an id."""
+    return is_valid_id("a" + char)
+
+
+@lru_cache(maxsize=1)
+def _ncname_schema() -> etree.XMLSchema:
+    return etree.XMLSchema(etree.fromstring(_NCNAME_SCHEMA))
+
+
+@lru_cache(maxsize=65536)
+def _schema_accepts_ncname(text: str) -> bool:
+    element = etree.Element("id")
+    try:
+        element.text = text
+    except ValueError:  # a character XML cannot hold at all
+        return False
+    return bool(_ncname_schema().validate(element))
 
 
 def _is_number(value: object) -> bool:
@@ -369,24 +407,86 @@ class _Checker:
             if cause.target in seen:
                 self.error(cause_line, f"{kind} '{cid}' lists cause '{cause.target}' twice; list each cause once")
             seen.add(cause.target)
-            if not _is_probability(cause.detection):
+            if cause.shows:
+                self.check_distribution(check, kind, cause.shows, f"cause '{cause.target}'",
+                                        lambda j, i=index, at=cause_line: self.line((cid, "shows", i, j), at), cause_line)
+            elif not _is_probability(cause.detection):
                 self.error(
                     cause_line,
                     f"{kind} '{cid}' detection probability {cause.detection!r} for '{cause.target}' "
                     "is outside [0, 1]; give a probability between 0 and 1",
                 )
-        if not _is_probability(check.false_alarm):
+            elif len(check.outcomes) > 2:
+                self.error(
+                    cause_line,
+                    f"{kind} '{cid}' cause '{cause.target}' gives one detection probability, but the check has "
+                    f"{len(check.outcomes) - 1} abnormal outcomes ({', '.join(map(repr, check.outcomes[1:]))}); "
+                    "give <shows outcome=\"...\" probability=\"...\"/> for each one the cause can produce",
+                )
+        if check.leak:
+            self.check_distribution(check, kind, check.leak, "false alarm",
+                                    lambda j: self.line((cid, "leak", j), line), line)
+        elif not _is_probability(check.false_alarm):
             self.error(
                 line,
                 f"{kind} '{cid}' false-alarm probability {check.false_alarm!r} is outside [0, 1]; "
                 "give a probability between 0 and 1",
+            )
+        elif len(check.outcomes) > 2 and check.false_alarm > 0:
+            self.error(
+                line,
+                f"{kind} '{cid}' has {len(check.outcomes) - 1} abnormal outcomes; give its false alarm as "
+                "<false-alarm outcome=\"...\" probability=\"...\"/> per abnormal outcome instead of one number",
             )
         if kind == "symptom":
             if check.cost != 0:
                 self.error(line, f"symptom '{cid}' has cost {check.cost!r}; symptoms cost 0 (make it a check instead)")
         elif not _is_cost(check.cost):
             self.error(line, f"check '{cid}' cost {check.cost!r} {self.model.cost_unit} is not a finite number >= 0")
-        self.check_outcomes(check.outcomes, self.line((cid, "outcomes"), line), f"{kind} '{cid}'")
+        self.check_check_outcomes(check, kind, self.line((cid, "outcomes"), line))
+
+    def check_check_outcomes(self, check: Check, kind: str, line: int | None) -> None:
+        """K >= 2 non-empty names, each once (format 1.1); two outcomes keep the 1.0 wording."""
+        outcomes = check.outcomes
+        if len(outcomes) <= 2:
+            self.check_outcomes(outcomes, line, f"{kind} '{check.id}'")
+            return
+        if not all(isinstance(o, str) and o.strip() for o in outcomes):
+            self.error(line, f"{kind} '{check.id}' has an outcome without a name ({outcomes!r}); name every outcome")
+        for name in sorted({o for o in outcomes if outcomes.count(o) > 1}):
+            self.error(line, f"{kind} '{check.id}' names the outcome {name!r} twice (its outcomes: "
+                             f"{', '.join(map(repr, outcomes))}); give every outcome its own name")
+
+    def check_distribution(self, check: Check, kind: str, pairs, owner: str, line_of, line) -> None:
+        """One cause's (or the false alarm's) probabilities over the abnormal outcomes.
+
+        Each must name an abnormal outcome of the check, once, with a
+        probability in [0, 1]; together they may not exceed 1 (what is left
+        is "not seen").
+        """
+        cid = check.id
+        abnormal = check.outcomes[1:]
+        named: set[str] = set()
+        total = 0.0
+        for j, (name, p) in enumerate(pairs):
+            where = line_of(j)
+            if name == check.outcomes[0]:
+                self.error(where, f"{kind} '{cid}' {owner} gives the normal outcome {name!r}; list only the "
+                                  f"abnormal outcomes it produces ({', '.join(map(repr, abnormal))})")
+            elif name not in abnormal:
+                self.error(where, f"{kind} '{cid}' {owner} gives outcome {name!r}, which the check does not have; "
+                                  f"use one of {', '.join(map(repr, abnormal))}")
+            if name in named:
+                self.error(where, f"{kind} '{cid}' {owner} gives outcome {name!r} twice; give each outcome once")
+            named.add(name)
+            if not _is_probability(p):
+                self.error(where, f"{kind} '{cid}' {owner} probability {p!r} for {name!r} is outside [0, 1]; "
+                                  "give a probability between 0 and 1")
+            else:
+                total += p
+        if total > 1.0 + 1e-12:
+            self.error(line, f"{kind} '{cid}' {owner} probabilities add up to {total:.6g}, more than 1; "
+                             "lower them so that they sum to at most 1 (the rest is \"not seen\")")
 
     def check_outcomes(self, outcomes, line: int | None, owner: str) -> None:
         ok = (

@@ -12,22 +12,12 @@ remaining entropy are computed from it once and cached.
 The command line, the terminal UI and the simulator only call the methods
 below and read :attr:`Session.state` (plain Python data, no numpy).
 
-Actions (each also available as a dict for :meth:`Session.apply`, the form the
-log stores):
-
-=====================  ==========================================================
-method                 dict
-=====================  ==========================================================
-record_finding         {"action": "finding", "check": ID, "outcome": NAME}
-retract_finding        {"action": "retract", "check": ID, "epoch": K}
-correct_finding        {"action": "correct", "check": ID, "outcome": NAME, "epoch": K}
-skip_check             {"action": "skip", "check": ID, "reason": TEXT}
-unskip_check           {"action": "unskip", "check": ID}
-record_repair          {"action": "repair", "event": ID}
-record_verification    {"action": "verify", "outcome": NAME}
-add_note               {"action": "note", "text": TEXT}
-undo                   {"action": "undo"}
-=====================  ==========================================================
+Actions are typed (:mod:`troubleshoot.session.actions`: one dataclass each);
+:meth:`Session.apply` takes one (or the dict the log stores) and calls the
+method: ``record_finding``, ``retract_finding``, ``correct_finding``,
+``skip_check``, ``unskip_check``, ``record_repair``, ``record_verification``,
+``add_note``, ``acknowledge_caution``, ``undo``, ``record_resume``.
+:attr:`Session.actions` lists them in order as committed.
 
 Status, in this order of precedence:
 
@@ -59,103 +49,68 @@ from functools import cached_property
 from typing import Any, Protocol
 
 from troubleshoot.advice.diagnosis import (
-    VerificationRequest,
-    cost_of_check_then,
-    expected_repair_cost,
-    top_verification,
-    verification_for,
-    verification_of,
     Explanation,
-    RepairStep,
     Suspect,
     ambiguity_group,
     entropy_bits,
+    is_unlisted,
     isolated_suspect,
     most_probable_explanation,
-    repair_order,
     suspects,
 )
-from troubleshoot.errors import SessionError
-from troubleshoot.engine.inference import Engine, Finding, Posterior
-from troubleshoot.model import Model
+from troubleshoot.advice.policy import (
+    DEFAULT_GROUP_MIN_P,
+    DEFAULT_MIN_BITS,
+    DEFAULT_VALUE_DEPTH,
+    DEFAULT_VALUE_LOOKAHEAD,
+    Decision,
+    OutsideModel,
+    Status,
+    decide,
+)
+from troubleshoot.advice.policy import Settings as SessionSettings
+from troubleshoot.advice.policy import settings_for
 from troubleshoot.advice.ranking import Ranking, RankRow, rank
+from troubleshoot.advice.repair import (
+    RepairStep,
+    VerificationRequest,
+    repair_order,
+    top_verification,
+    verification_for,
+    verification_of,
+)
+from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.errors import SessionError
+from troubleshoot.model import DERIVED, Model
+from troubleshoot.session.actions import (
+    EVENTS,
+    AcknowledgeCaution,
+    Action,
+    AddNote,
+    CorrectFinding,
+    RecordFinding,
+    RecordRepair,
+    RecordVerification,
+    Resume,
+    RetractFinding,
+    SkipCheck,
+    Undo,
+    UnskipCheck,
+    as_action,
+)
 
-DIAGNOSING = "diagnosing"
-ISOLATED = "isolated"
-AMBIGUITY = "ambiguity"
-AWAITING_VERIFICATION = "awaiting-verification"
-CONFIRMED = "confirmed"
-STATUSES = (DIAGNOSING, ISOLATED, AMBIGUITY, AWAITING_VERIFICATION, CONFIRMED)
+DIAGNOSING = Status.DIAGNOSING
+ISOLATED = Status.ISOLATED
+AMBIGUITY = Status.AMBIGUITY
+AWAITING_VERIFICATION = Status.AWAITING_VERIFICATION
+CONFIRMED = Status.CONFIRMED
+STATUSES = tuple(Status)
 
-#: Default: a check giving less than this many bits is not worth doing.
-DEFAULT_MIN_BITS = 0.01
-#: Default: suspects at or above this posterior form the ambiguity group.
-DEFAULT_GROUP_MIN_P = 0.05
-DEFAULT_VALUE_LOOKAHEAD = 3
-DEFAULT_VALUE_DEPTH = 1
+__all__ = ["DEFAULT_GROUP_MIN_P", "DEFAULT_MIN_BITS", "DEFAULT_VALUE_DEPTH", "DEFAULT_VALUE_LOOKAHEAD",
+           "SessionSettings", "settings_for", "Status", "Decision"]
 
 # Kinds of recorded observations.
 COMPLAINT, OBSERVATION, VERIFICATION = "complaint", "finding", "verification"
-
-
-@dataclass(frozen=True)
-class SessionSettings:
-    """The thresholds a session decides with.
-
-    Attributes
-    ----------
-    isolation_threshold : float
-        A suspect with P(failed | findings) at or above it is isolated.
-    min_bits : float
-        A check giving fewer bits is not worth doing (bits).
-    group_min_p : float
-        Suspects at or above this posterior form the ambiguity group.
-    value_lookahead : int
-        How many of the best-scoring checks are weighed against repairing at
-        once (one step ahead, Heckerman, Breese & Rommelse 1995): the first
-        of them expected to cost less than it saves is recommended; when none
-        is, no check is worth doing and the repair order is proposed. 0 turns
-        the comparison off (only ``min_bits`` decides).
-    value_depth : int
-        How many checks ahead the comparison looks: 1 is the myopic rule
-        (one check, then repair); 2 also tries a second check after each
-        outcome of the first, when no single check pays.
-    """
-
-    isolation_threshold: float = 0.95
-    min_bits: float = DEFAULT_MIN_BITS
-    group_min_p: float = DEFAULT_GROUP_MIN_P
-    value_lookahead: int = DEFAULT_VALUE_LOOKAHEAD
-    value_depth: int = DEFAULT_VALUE_DEPTH
-
-    def validated(self) -> "SessionSettings":
-        for name, low_open in (("isolation_threshold", True), ("group_min_p", True)):
-            value = getattr(self, name)
-            if not (isinstance(value, (int, float)) and 0.0 < value <= 1.0):
-                raise SessionError(f"{name.replace('_', ' ')} must be a probability above 0 and at most 1, "
-                                   f"not {value!r}")
-        if not (isinstance(self.min_bits, (int, float)) and 0.0 <= self.min_bits < math.inf):
-            raise SessionError(f"min bits must be a number of bits, 0 or more, not {self.min_bits!r}")
-        if not (isinstance(self.value_depth, int) and 1 <= self.value_depth <= 3):
-            raise SessionError(f"value depth must be 1, 2 or 3 checks, not {self.value_depth!r}")
-        if not (isinstance(self.value_lookahead, int) and 0 <= self.value_lookahead <= 50):
-            raise SessionError(f"value lookahead must be a whole number of checks from 0 to 50, "
-                               f"not {self.value_lookahead!r}")
-        return replace(self, isolation_threshold=float(self.isolation_threshold),
-                       min_bits=float(self.min_bits), group_min_p=float(self.group_min_p))
-
-
-def settings_for(model: Model, isolation_threshold: float | None = None, min_bits: float | None = None,
-                 group_min_p: float | None = None, value_lookahead: int | None = None,
-                 value_depth: int | None = None) -> SessionSettings:
-    """Settings with the model's isolation threshold and the defaults, overridden where given."""
-    return SessionSettings(
-        model.isolation_threshold if isolation_threshold is None else isolation_threshold,
-        DEFAULT_MIN_BITS if min_bits is None else min_bits,
-        DEFAULT_GROUP_MIN_P if group_min_p is None else group_min_p,
-        DEFAULT_VALUE_LOOKAHEAD if value_lookahead is None else value_lookahead,
-        DEFAULT_VALUE_DEPTH if value_depth is None else value_depth,
-    ).validated()
 
 
 @dataclass(frozen=True)
@@ -235,6 +190,13 @@ class SessionState:
     epoch : int
         Repairs made so far.
     settings : SessionSettings
+    decision : Decision or None
+        What to do next, its expected cost, the alternatives weighed and why
+        (:func:`troubleshoot.advice.policy.decide`).
+    outside_model_p : float
+        P(the cause lies outside the model | findings): every unlisted cause together.
+    outside_model_by_gate : tuple of (gate id, float)
+        The same per gate with unlisted causes.
     """
 
     status: str
@@ -256,10 +218,14 @@ class SessionState:
     cautions: tuple[str, ...]
     epoch: int
     settings: SessionSettings
+    decision: Decision | None = None
+    outside_model_p: float = 0.0
+    outside_model_by_gate: tuple[tuple[str, float], ...] = ()
 
     def to_dict(self) -> dict:
         """The state as JSON-ready dicts and lists (an infinite score becomes None)."""
-        data = asdict(self)
+        data = asdict(replace(self, decision=None))
+        data["decision"] = self.decision.to_dict() if self.decision is not None else None
         for row in list(data["ranking"]) + ([data["next_check"]] if data["next_check"] else []):
             if math.isinf(row["score"]):
                 row["score"] = None
@@ -272,7 +238,7 @@ class SessionState:
 class SessionLogWriter(Protocol):
     """What a session needs from its log (see :class:`troubleshoot.session.logfile.LogWriter`)."""
 
-    def write_action(self, action: dict, view: "SessionView") -> None: ...
+    def write_action(self, action: Action, view: SessionView) -> None: ...
 
     def close(self) -> None: ...
 
@@ -303,7 +269,7 @@ class SessionView:
         done = [o for o in rec.observations if o.kind == VERIFICATION and o.finding.epoch == rec.epoch]
         if not done:
             return verification_for(self.model, rec.repairs[-1])
-        if any(o.finding.target == self.model.top for o in done) or done[-1].finding.outcome == 1:
+        if any(o.finding.target == self.model.top for o in done) or done[-1].finding.outcome != 0:
             return None
         return top_verification(self.model)
 
@@ -347,48 +313,25 @@ class SessionView:
         return ambiguity_group(self.suspects, self.settings.group_min_p)
 
     @cached_property
-    def status(self) -> str:
-        if self.confirmed:
-            return CONFIRMED
-        if self.verification_request is not None:
-            return AWAITING_VERIFICATION
-        if self.isolated is not None:
-            return ISOLATED
-        if self.recommended is None:
-            return AMBIGUITY
-        return DIAGNOSING
+    def decision(self) -> Decision:
+        """What to do next and why (:func:`troubleshoot.advice.policy.decide`)."""
+        return decide(self.engine, self.posterior, self.settings, self.candidates,
+                      verification=self.verification_request, confirmed=self.confirmed,
+                      ranking=self.ranking, ranked=self.suspects)
+
+    @property
+    def outside_model(self) -> OutsideModel:
+        """P(the cause lies outside the model), in total and per gate."""
+        return self.decision.outside_model
+
+    @cached_property
+    def status(self) -> Status:
+        return self.decision.status
 
     @cached_property
     def recommended(self) -> RankRow | None:
-        """The check to do next, or None when no check is worth doing.
-
-        A check is worth doing when it gives at least ``min_bits`` bits and,
-        among the ``value_lookahead`` best-scoring such checks, it is the
-        first expected to cost less than it saves in repairs.
-        """
-        settings = self.settings
-        rows = self.ranking.worth_doing(settings.min_bits)
-        if not rows or settings.value_lookahead == 0:
-            return rows[0] if rows else None
-        now = expected_repair_cost(self.posterior)
-        shortlist = rows[: settings.value_lookahead]
-        for row in shortlist:
-            if row.cost <= 0.0:
-                return row  # a free informative check always pays
-        # Of the shortlist, the check with the least expected cost of finishing
-        # (it, then repair in order), if that beats repairing at once; when no
-        # check pays so, a second check ahead, so a pair worth doing is not missed.
-        for depth in range(1, settings.value_depth + 1):
-            best, best_cost = None, now
-            for row in shortlist:
-                ahead = cost_of_check_then(self.engine, self.posterior, row.check, row.cost, row.p_outcomes,
-                                           self.candidates, depth, settings.value_lookahead, settings.min_bits,
-                                           bound=best_cost)
-                if ahead < best_cost:
-                    best, best_cost = row, ahead
-            if best is not None:
-                return best
-        return None
+        """The check to do next, or None when no check is worth doing (see the decision)."""
+        return self.decision.check
 
     @cached_property
     def repair_order(self) -> tuple[RepairStep, ...]:
@@ -465,14 +408,27 @@ class SessionView:
             cautions=self.cautions(),
             epoch=self.record.epoch,
             settings=self.settings,
+            decision=self.decision,
+            outside_model_p=self.outside_model.p,
+            outside_model_by_gate=self.outside_model.by_gate,
         )
 
 
-def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:
+def outcome_index(outcomes: tuple[str, ...], outcome: Any, what: str) -> int:
+    """The index of an outcome given as an index (int), a name, or a number 1..K (text).
+
+    A name matches exactly, then ignoring case; text that is no name but a
+    number 1..K means that outcome in the listed order (1 the normal one).
+
+    Raises
+    ------
+    SessionError
+        Naming the outcomes, numbered, when ``outcome`` is none of them.
+    """
     if isinstance(outcome, bool):
         outcome = int(outcome)
     if isinstance(outcome, int):
-        if outcome in (0, 1):
+        if 0 <= outcome < len(outcomes):
             return outcome
     elif isinstance(outcome, str):
         if outcome in outcomes:
@@ -480,8 +436,15 @@ def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:
         folded = [o.casefold() for o in outcomes]
         if outcome.strip().casefold() in folded:
             return folded.index(outcome.strip().casefold())
-    raise SessionError(f"{what} has the outcomes {outcomes[0]!r} and {outcomes[1]!r}, not {outcome!r}; "
-                       "give one of them")
+        if outcome.strip().isdigit() and 1 <= int(outcome.strip()) <= len(outcomes):
+            return int(outcome.strip()) - 1
+    raise SessionError(f"{what} has the outcomes {numbered_outcomes(outcomes)}, not {outcome!r}; "
+                       "give one of them by name or number")
+
+
+def numbered_outcomes(outcomes: tuple[str, ...]) -> str:
+    """``1 'normal', 2 'low', 3 'high'``: the outcomes with the numbers a technician types."""
+    return ", ".join(f"{i} {name!r}" for i, name in enumerate(outcomes, start=1))
 
 
 class Session:
@@ -518,7 +481,7 @@ class Session:
         record = Record((Observation(Finding(model.top, 1, 0), COMPLAINT),))
         self._view = self._make_view(record)
         self._history: list[SessionView] = []
-        self.actions: list[dict] = []  # committed actions, in order (undo included)
+        self.actions: list[Action] = []  # committed actions, in order (undo, acknowledgements, resumes included)
         self.resume_warnings: list[str] = []  # set by resume_session
 
     # ------------------------------------------------------------------ reading
@@ -584,7 +547,7 @@ class Session:
         if request is not None and request.target == check_id:
             # The check that verifies the last repair: its outcome is the verification.
             return self.record_verification(outcome)
-        index = _outcome_index(check.outcomes, outcome, f"check {check_id!r}")
+        index = outcome_index(check.outcomes, outcome, f"check {check_id!r}")
         rec = self._view.record
         for o in rec.observations:
             if o.finding.target == check_id and o.finding.epoch == rec.epoch:
@@ -594,7 +557,7 @@ class Session:
                                    "correct or retract that finding instead")
         new = replace(rec, observations=rec.observations + (Observation(Finding(check_id, index, rec.epoch),
                                                                          OBSERVATION),))
-        return self._commit({"action": "finding", "check": check_id, "outcome": check.outcomes[index]}, new)
+        return self._commit(RecordFinding(check_id, check.outcomes[index]), new)
 
     def retract_finding(self, check_id: str, epoch: int | None = None) -> SessionState:
         """Withdraw a finding as if never made (default: the latest finding on that check)."""
@@ -602,8 +565,7 @@ class Session:
         position = self._find(check_id, epoch)
         observations = rec.observations[:position] + rec.observations[position + 1 :]
         found = rec.observations[position].finding
-        return self._commit({"action": "retract", "check": check_id, "epoch": found.epoch},
-                            replace(rec, observations=observations))
+        return self._commit(RetractFinding(check_id, found.epoch), replace(rec, observations=observations))
 
     def correct_finding(self, check_id: str, outcome: str | int, epoch: int | None = None) -> SessionState:
         """Change the outcome of a finding already recorded (default: the latest on that check)."""
@@ -611,13 +573,13 @@ class Session:
         position = self._find(check_id, epoch)
         old = rec.observations[position]
         outcomes = self._outcomes_of(old)
-        index = _outcome_index(outcomes, outcome, f"{check_id!r}")
+        index = outcome_index(outcomes, outcome, f"{check_id!r}")
         if index == old.finding.outcome:
             raise SessionError(f"the finding on {check_id!r} already reads {outcomes[index]!r}; nothing to correct")
         fixed = Observation(replace(old.finding, outcome=index), old.kind)
         observations = rec.observations[:position] + (fixed,) + rec.observations[position + 1 :]
-        return self._commit({"action": "correct", "check": check_id, "outcome": outcomes[index],
-                             "epoch": old.finding.epoch}, replace(rec, observations=observations))
+        return self._commit(CorrectFinding(check_id, outcomes[index], old.finding.epoch),
+                            replace(rec, observations=observations))
 
     def skip_check(self, check_id: str, reason: str) -> SessionState:
         """Leave a check out of this session's ranking because it cannot be done now."""
@@ -628,7 +590,7 @@ class Session:
         rec = self._view.record
         if any(c == check_id for c, _ in rec.skipped):
             raise SessionError(f"check {check_id!r} is already skipped")
-        return self._commit({"action": "skip", "check": check_id, "reason": reason},
+        return self._commit(SkipCheck(check_id, reason),
                             replace(rec, skipped=rec.skipped + ((check_id, reason),)))
 
     def unskip_check(self, check_id: str) -> SessionState:
@@ -636,21 +598,27 @@ class Session:
         rec = self._view.record
         if not any(c == check_id for c, _ in rec.skipped):
             raise SessionError(f"check {check_id!r} is not skipped")
-        return self._commit({"action": "unskip", "check": check_id},
+        return self._commit(UnskipCheck(check_id),
                             replace(rec, skipped=tuple(s for s in rec.skipped if s[0] != check_id)))
 
     def record_repair(self, event_id: str) -> SessionState:
         """Record that a root event was repaired; a verification is asked for next."""
         model = self.model
         self._refuse_if_confirmed("record a repair")
-        if event_id not in model.hypotheses:
-            known = ", ".join(model.hypotheses[:8]) + (", ..." if len(model.hypotheses) > 8 else "")
+        if event_id not in model.event_by_id:
+            if is_unlisted(model, event_id):
+                gate = event_id[: -len(DERIVED + "unlisted")]
+                raise SessionError(f"cannot repair {event_id!r}: it stands for causes outside the model "
+                                   f"under gate {gate!r}, which name no component to repair; inspect "
+                                   "beyond the listed components or hand the unit over")
+            events = [e.id for e in model.basic_events]
+            known = ", ".join(events[:8]) + (", ..." if len(events) > 8 else "")
             raise SessionError(f"cannot repair {event_id!r}: it is not a basic event of model "
                                f"{model.name!r} (basic events: {known})")
         rec = self._view.record
         if event_id in rec.repairs:
             raise SessionError(f"{event_id!r} was already repaired in this session")
-        return self._commit({"action": "repair", "event": event_id},
+        return self._commit(RecordRepair(event_id),
                             replace(rec, repairs=rec.repairs + (event_id,)))
 
     def record_verification(self, outcome: str | int) -> SessionState:
@@ -666,10 +634,10 @@ class Session:
                 if o.finding.target == request.target and o.finding.epoch == rec.epoch:
                     raise SessionError(f"check {request.target!r} was already done since the last repair; "
                                        "its finding is the verification: correct it if needed")
-        index = _outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
+        index = outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
         new = replace(rec, observations=rec.observations + (Observation(Finding(request.target, index, rec.epoch),
                                                                          VERIFICATION),))
-        return self._commit({"action": "verify", "outcome": request.outcomes[index]}, new)
+        return self._commit(RecordVerification(request.outcomes[index]), new)
 
     def add_note(self, text: str) -> SessionState:
         """Add a free-text note to the session (and its log)."""
@@ -677,7 +645,7 @@ class Session:
         if not text:
             raise SessionError("a note needs some text")
         rec = self._view.record
-        return self._commit({"action": "note", "text": text}, replace(rec, notes=rec.notes + (text,)),
+        return self._commit(AddNote(text), replace(rec, notes=rec.notes + (text,)),
                             same_posterior=True)
 
     def undo(self) -> SessionState:
@@ -685,40 +653,67 @@ class Session:
         if not self._history:
             raise SessionError("nothing to undo")
         previous = self._history[-1]
-        self._write({"action": "undo"}, previous)
+        self._write(Undo(), previous)
         self._history.pop()
         self._view = previous
-        self.actions.append({"action": "undo"})
+        self.actions.append(Undo())
         return self.state
 
-    def apply(self, action: dict) -> SessionState:
-        """Perform an action given as a dict (the form the log stores)."""
-        if not isinstance(action, dict) or "action" not in action:
-            raise SessionError(f"not an action: {action!r}")
-        kind = action["action"]
-        try:
-            if kind == "finding":
-                return self.record_finding(action["check"], action["outcome"])
-            if kind == "retract":
-                return self.retract_finding(action["check"], action.get("epoch"))
-            if kind == "correct":
-                return self.correct_finding(action["check"], action["outcome"], action.get("epoch"))
-            if kind == "skip":
-                return self.skip_check(action["check"], action.get("reason", ""))
-            if kind == "unskip":
-                return self.unskip_check(action["check"])
-            if kind == "repair":
-                return self.record_repair(action["event"])
-            if kind == "verify":
-                return self.record_verification(action["outcome"])
-            if kind == "note":
-                return self.add_note(action.get("text", ""))
-            if kind == "undo":
+    def acknowledge_caution(self, check_id: str) -> SessionState:
+        """Record that the technician read and acknowledged the safety caution of a check.
+
+        The check is one of the model's checks or symptoms, or the check the
+        last repair asks to verify (the top event included). Logged, shown in
+        the summary, not taken back by undo; the findings do not change.
+        """
+        caution = None
+        request = self._view.verification_request
+        if request is not None and request.target == check_id:
+            caution = request.caution
+        else:
+            caution = self._check(check_id).caution
+        if not caution:
+            raise SessionError(f"check {check_id!r} has no safety caution to acknowledge")
+        return self._event(AcknowledgeCaution(check_id, caution))
+
+    def record_resume(self, resume: Resume) -> SessionState:
+        """Record that the session was continued from its log (see :func:`~troubleshoot.session.logfile.resume_session`)."""
+        return self._event(resume)
+
+    def apply(self, action: Action | dict) -> SessionState:
+        """Perform a typed action (a dict in the form the log stores is read as one first).
+
+        Raises
+        ------
+        SessionError
+            The action is malformed (:class:`~troubleshoot.session.actions.ActionError`)
+            or refused; the session is unchanged.
+        """
+        action = as_action(action)
+        match action:
+            case RecordFinding(check, outcome):
+                return self.record_finding(check, outcome)
+            case RetractFinding(check, epoch):
+                return self.retract_finding(check, epoch)
+            case CorrectFinding(check, outcome, epoch):
+                return self.correct_finding(check, outcome, epoch)
+            case SkipCheck(check, reason):
+                return self.skip_check(check, reason)
+            case UnskipCheck(check):
+                return self.unskip_check(check)
+            case RecordRepair(event):
+                return self.record_repair(event)
+            case RecordVerification(outcome):
+                return self.record_verification(outcome)
+            case AddNote(text):
+                return self.add_note(text)
+            case AcknowledgeCaution(check, _):
+                return self.acknowledge_caution(check)
+            case Undo():
                 return self.undo()
-        except KeyError as exc:
-            raise SessionError(f"action {kind!r} lacks its {exc.args[0]!r} field") from None
-        raise SessionError(f"unknown action {kind!r}; known: finding, retract, correct, skip, unskip, "
-                           "repair, verify, note, undo")
+            case Resume():
+                return self.record_resume(action)
+        raise SessionError(f"not an action this session knows: {action!r}")
 
     def close(self) -> None:
         """Close the log (the session can still be read)."""
@@ -731,7 +726,14 @@ class Session:
         posterior = self.engine.propagate(record.findings, record.repairs)
         return SessionView(self.model, self.engine, self.settings, record, posterior)
 
-    def _commit(self, action: dict, record: Record, same_posterior: bool = False) -> SessionState:
+    def _event(self, action: Action) -> SessionState:
+        """Log an action that changes nothing in the record (and is not undone by undo)."""
+        assert isinstance(action, EVENTS)
+        self._write(action, self._view)
+        self.actions.append(action)
+        return self.state
+
+    def _commit(self, action: Action, record: Record, same_posterior: bool = False) -> SessionState:
         if same_posterior:
             view = SessionView(self.model, self.engine, self.settings, record, self._view.posterior)
         else:
@@ -742,7 +744,7 @@ class Session:
         self.actions.append(action)
         return self.state
 
-    def _write(self, action: dict, view: SessionView) -> None:
+    def _write(self, action: Action, view: SessionView) -> None:
         if self.log is not None:
             self.log.write_action(action, view)
 
@@ -773,7 +775,7 @@ class Session:
             raise SessionError(f"there is no finding on {target!r}{when} to change")
         return matches[-1]
 
-    def _outcomes_of(self, observation: Observation) -> tuple[str, str]:
+    def _outcomes_of(self, observation: Observation) -> tuple[str, ...]:
         f = observation.finding
         if observation.kind == VERIFICATION:
             return verification_for(self.model, self._view.record.repairs[f.epoch - 1]).outcomes
