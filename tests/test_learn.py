@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import itertools
 import json
-import math
 import os
 import random
 from dataclasses import replace
@@ -26,8 +25,7 @@ from troubleshoot.engine.inference import Finding
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair
 from troubleshoot.model.source import load_any_model
 from troubleshoot.model.xmlfile import load_model, save_model
-from troubleshoot.session import Session
-from troubleshoot.session.logfile import new_session, read_log
+from troubleshoot.session.logfile import LOG_FORMAT_VERSION, new_session, read_log
 from troubleshoot.study.execution import InProcess, LocalProcesses
 from troubleshoot.study.learn import (
     Counts,
@@ -172,19 +170,19 @@ def test_noisy_max_counts_equal_enumeration():
     # Three outcomes (noisy-MAX, Díez 1993): the check shows the largest outcome any present cause or the
     # leak produces. Enumerated over every hidden outcome of every cause, to 1e-12.
     rng = np.random.default_rng(5)
-    K, I, S = 3, 3, 8
+    K, n_causes, S = 3, 3, 8
     leak = rng.dirichlet([5, 1, 1])
-    causes = rng.dirichlet([1, 1, 1], size=I)
-    present = rng.random((S, I)) < 0.6
+    causes = rng.dirichlet([1, 1, 1], size=n_causes)
+    present = rng.random((S, n_causes)) < 0.6
     weights = rng.random(S)
     weights /= weights.sum()
     for y in range(K):
-        want_leak, want_causes = np.zeros(K), np.zeros((I, K))
+        want_leak, want_causes = np.zeros(K), np.zeros((n_causes, K))
         p_y = np.zeros(S)
         terms = []
-        for hidden in itertools.product(range(K), repeat=I + 1):
+        for hidden in itertools.product(range(K), repeat=n_causes + 1):
             p = np.full(S, leak[hidden[0]])
-            for i in range(I):
+            for i in range(n_causes):
                 p = p * np.where(present[:, i], causes[i, hidden[i + 1]], float(hidden[i + 1] == 0))
             if max(hidden) == y:
                 p_y += p
@@ -192,7 +190,7 @@ def test_noisy_max_counts_equal_enumeration():
         for hidden, p in terms:
             w = np.where(p_y > 0, weights * p / np.where(p_y > 0, p_y, 1.0), 0.0)
             want_leak[hidden[0]] += w.sum()
-            for i in range(I):
+            for i in range(n_causes):
                 want_causes[i, hidden[i + 1]] += (w * present[:, i]).sum()
         got_leak, got_causes = hidden_outcome_counts(present, weights, leak, causes, y)
         np.testing.assert_allclose(got_leak, want_leak, atol=1e-12)
@@ -314,9 +312,11 @@ def test_bad_logs_are_counted_and_named(tmp_path, capsys):
     text = good.read_text()
     lines = text.splitlines(keepends=True)
     (tmp_path / "logs" / "torn.jsonl").write_text("".join(lines[:-1]) + lines[-1][:40])
-    (tmp_path / "logs" / "version.jsonl").write_text(text.replace('"format_version": 1', '"format_version": 99'))
-    (tmp_path / "logs" / "edited.jsonl").write_text(text.replace('"event": "filters_clogged"',
-                                                                 '"event": "no_such_part"'))
+    version = f'"format_version": {LOG_FORMAT_VERSION}'
+    assert version in text
+    (tmp_path / "logs" / "version.jsonl").write_text(text.replace(version, '"format_version": 99'))
+    (tmp_path / "logs" / "edited.jsonl").write_text(text.replace('"outcome": "filters clogged"',
+                                                                 '"outcome": "filters clean"'))
     (tmp_path / "logs" / "junk.jsonl").write_text("not a log\n")
     other = tmp_path / "other.xml"
     save_model(replace(model, name="another model"), other)
@@ -327,7 +327,7 @@ def test_bad_logs_are_counted_and_named(tmp_path, capsys):
     assert status == 0
     data = json.loads(capsys.readouterr().out)
     kinds = {os.path.basename(p["path"]): p["kind"] for p in data["skipped"]}
-    assert kinds == {"torn.jsonl": "torn", "version.jsonl": "other-version", "edited.jsonl": "inconsistent",
+    assert kinds == {"torn.jsonl": "torn", "version.jsonl": "other-version", "edited.jsonl": "edited",
                      "junk.jsonl": "damaged", "other.jsonl": "other-model"}
     assert data["sessions"] == 2  # the good log and the torn one's whole lines
     text = report.read_text()

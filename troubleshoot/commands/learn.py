@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import json
-import math
 import sys
 import time
+from typing import Any
 
 from troubleshoot.errors import TroubleshootError
 
@@ -39,53 +39,6 @@ def add_parser(subparsers, name):
     return parser
 
 
-class _Progress:
-    """Sessions read, EM iteration and the change in log-likelihood, on standard error (rich)."""
-
-    def __init__(self):
-        from rich.console import Console
-
-        self.console = Console(stderr=True)
-        self.live = None
-        self.last_read = -1
-        if self.console.is_terminal:
-            from rich.progress import (
-                BarColumn,
-                MofNCompleteColumn,
-                Progress,
-                TextColumn,
-                TimeElapsedColumn,
-            )
-
-            self.live = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
-                                 TimeElapsedColumn(), console=self.console, transient=False)
-            self.live.start()
-            self.read_task = self.live.add_task("reading session logs", total=None)
-            self.em_task = None
-
-    def __call__(self, stage, done, total, info):
-        if stage == "read":
-            if self.live is not None:
-                self.live.update(self.read_task, completed=done, total=total)
-            elif done == total or done * 10 // max(total, 1) > self.last_read:
-                self.last_read = done * 10 // max(total, 1)
-                self.console.print(f"read {done:,}/{total:,} session logs")
-            return
-        log_lik, change = info
-        text = f"EM iteration {done}: log-likelihood {log_lik:,.4f}" + \
-            ("" if math.isnan(change) else f", change {change:+.3g}")
-        if self.live is not None:
-            if self.em_task is None:
-                self.em_task = self.live.add_task(text, total=None)
-            self.live.update(self.em_task, description=text, completed=done)
-        else:
-            self.console.print(text)
-
-    def close(self):
-        if self.live is not None:
-            self.live.stop()
-
-
 def _check_arguments(args) -> None:
     from troubleshoot.study.learn import LearnError
 
@@ -105,12 +58,13 @@ def _check_arguments(args) -> None:
 def run(args) -> int:
     from troubleshoot.model.source import load_any_model, resolve_model_path
     from troubleshoot.model.xmlfile import save_model
+    from troubleshoot.progress import ProgressDisplay
     from troubleshoot.study import learn_report
     from troubleshoot.study.execution import executor_for
     from troubleshoot.study.learn import LearnError, learn, log_files, model_sha256
 
     _check_arguments(args)
-    plt = None
+    plt: Any = None
     if args.plot:
         try:
             import matplotlib
@@ -126,14 +80,11 @@ def run(args) -> int:
     paths = log_files(args.logs)
     if not paths:
         raise LearnError(f"no session log (*.jsonl) found in {', '.join(args.logs)}")
-    progress = _Progress()
     started = time.perf_counter()
-    try:
-        with executor_for(args.workers, args.scheduler) as executor:
-            result = learn(model, sha, paths, prior_weight=args.prior_weight, exposure=args.exposure,
-                           executor=executor, progress=progress)
-    finally:
-        progress.close()
+    with executor_for(args.workers, args.scheduler) as executor, \
+            ProgressDisplay(f"learning {model.name}", unit="session logs read") as progress:
+        result = learn(model, sha, paths, prior_weight=args.prior_weight, exposure=args.exposure,
+                       executor=executor, progress=progress)
     elapsed = time.perf_counter() - started
     save_model(result.learned, args.output)
     if args.report:

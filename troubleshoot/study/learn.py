@@ -51,10 +51,11 @@ import math
 import threading
 from dataclasses import dataclass, field, replace
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
-from troubleshoot.advice.diagnosis import top_verification, verification_for
+from troubleshoot.advice.repair import top_verification, verification_for
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.errors import (
     ImpossibleFindings,
@@ -81,8 +82,8 @@ INFORMS = 0.01
 INTERVAL = 0.90
 
 # What can be wrong with a log (the report names each log under one of these).
-TORN, OTHER_MODEL, OTHER_VERSION, DAMAGED, INCONSISTENT, IMPOSSIBLE = (
-    "torn", "other-model", "other-version", "damaged", "inconsistent", "impossible")
+TORN, OTHER_MODEL, OTHER_VERSION, EDITED, DAMAGED, INCONSISTENT, IMPOSSIBLE = (
+    "torn", "other-model", "other-version", "edited", "damaged", "inconsistent", "impossible")
 
 
 class LearnError(TroubleshootError):
@@ -106,7 +107,7 @@ class SessionData:
     confirmed : str or None
         The last repair, when the unit was then verified working.
     escalated : bool
-        The session ended handed over (an escalation action).
+        The session ended handed over (an escalation; no such action is logged yet).
     time : str
         The session's start (header time, ISO 8601), or "".
     """
@@ -127,37 +128,34 @@ class LogProblem:
     message: str
 
 
-def _outcome_index(outcomes, outcome, what: str) -> int:
-    if isinstance(outcome, bool):
-        outcome = int(outcome)
-    if isinstance(outcome, int) and 0 <= outcome < len(outcomes):
-        return outcome
-    if isinstance(outcome, str):
-        folded = [o.casefold() for o in outcomes]
-        if outcome.strip().casefold() in folded:
-            return folded.index(outcome.strip().casefold())
-    raise SessionError(f"{what} has no outcome {outcome!r}")
-
-
 def fold_actions(model: Model, actions) -> SessionData:
     """The findings and repairs a session's logged actions leave standing.
 
     Follows :class:`troubleshoot.session.Session`'s rules without computing
     a posterior: a finding on the check that verifies the last repair is
     that verification; after it reads normal, the unit itself is verified;
-    ``undo`` takes back the last action of any kind. Action kinds this
-    version does not know (a later version's) change no finding.
+    ``undo`` takes back the last action that changed the record (not an
+    acknowledgement or a resume).
+
+    Parameters
+    ----------
+    model : Model
+    actions : iterable
+        Typed actions (:mod:`troubleshoot.session.actions`) or their log records.
 
     Raises
     ------
     SessionError
         An action the session would have refused (the log was edited or is inconsistent).
     """
+    from troubleshoot.session.actions import (EVENTS, CorrectFinding, RecordFinding, RecordRepair,
+                                              RecordVerification, RetractFinding, Undo, as_action)
+    from troubleshoot.session.session import outcome_index
+
     top = model.top
     obs: list[tuple[Finding, str]] = [(Finding(top, 1, 0), "complaint")]
     repairs: list[str] = []
-    history: list[tuple[tuple, tuple, bool]] = []
-    escalated = False
+    history: list[tuple[tuple, tuple]] = []
 
     def request():
         if not repairs:
@@ -165,7 +163,7 @@ def fold_actions(model: Model, actions) -> SessionData:
         done = [(f, k) for f, k in obs if k == "verification" and f.epoch == len(repairs)]
         if not done:
             return verification_for(model, repairs[-1])
-        if any(f.target == top for f, _ in done) or done[-1][0].outcome == 1:
+        if any(f.target == top for f, _ in done) or done[-1][0].outcome != 0:
             return None
         return top_verification(model)
 
@@ -176,56 +174,54 @@ def fold_actions(model: Model, actions) -> SessionData:
             raise SessionError(f"there is no finding on {target!r} to change")
         return hits[-1]
 
-    for action in actions:
-        kind = action.get("action") if isinstance(action, dict) else None
-        if kind == "undo":
+    for raw in actions:
+        action = as_action(raw)
+        if isinstance(action, Undo):
             if not history:
                 raise SessionError("undo with nothing to undo")
-            o, r, escalated = history.pop()
+            o, r = history.pop()
             obs, repairs = list(o), list(r)
             continue
-        history.append((tuple(obs), tuple(repairs), escalated))
+        if isinstance(action, EVENTS):
+            continue  # logged, never undone, no finding
+        history.append((tuple(obs), tuple(repairs)))
         epoch = len(repairs)
-        if kind in ("finding", "verify"):
-            req = request()
-            target = action.get("check") if kind == "finding" else None
-            if kind == "verify" or (req is not None and req.target == target):
-                if req is None:
-                    raise SessionError("a verification with no repair awaiting it")
-                index = _outcome_index(req.outcomes, action.get("outcome"), "the verification")
-                obs.append((Finding(req.target, index, epoch), "verification"))
-                continue
-            check = model.check_by_id.get(target)
+        req = request()
+        if isinstance(action, RecordVerification) or (isinstance(action, RecordFinding) and req is not None
+                                                      and req.target == action.check):
+            if req is None:
+                raise SessionError("a verification with no repair awaiting it")
+            index = outcome_index(req.outcomes, action.outcome, "the verification")
+            obs.append((Finding(req.target, index, epoch), "verification"))
+        elif isinstance(action, RecordFinding):
+            check = model.check_by_id.get(action.check)
             if check is None:
-                raise SessionError(f"unknown check {target!r}")
-            if any(f.target == target and f.epoch == epoch for f, _ in obs):
-                raise SessionError(f"check {target!r} done twice since the last repair")
-            obs.append((Finding(target, _outcome_index(check.outcomes, action.get("outcome"), target), epoch),
+                raise SessionError(f"unknown check {action.check!r}")
+            if any(f.target == action.check and f.epoch == epoch for f, _ in obs):
+                raise SessionError(f"check {action.check!r} done twice since the last repair")
+            obs.append((Finding(action.check, outcome_index(check.outcomes, action.outcome, action.check), epoch),
                         "finding"))
-        elif kind == "retract":
-            del obs[find(action.get("check"), action.get("epoch"))]
-        elif kind == "correct":
-            i = find(action.get("check"), action.get("epoch"))
+        elif isinstance(action, RetractFinding):
+            del obs[find(action.check, action.epoch)]
+        elif isinstance(action, CorrectFinding):
+            i = find(action.check, action.epoch)
             f, k = obs[i]
             if k == "verification":
                 outcomes = (top_verification(model) if f.target == top
                             else verification_for(model, repairs[f.epoch - 1])).outcomes
             else:
                 outcomes = model.check_by_id[f.target].outcomes
-            obs[i] = (replace(f, outcome=_outcome_index(outcomes, action.get("outcome"), f.target)), k)
-        elif kind == "repair":
-            event = action.get("event")
-            if event not in model.hypotheses or event in repairs:
-                raise SessionError(f"repair of {event!r} is not possible here")
-            repairs.append(event)
-        elif isinstance(kind, str) and kind.startswith("escalat"):
-            escalated = True
-        # skip, unskip, note and unknown kinds change no finding
+            obs[i] = (replace(f, outcome=outcome_index(outcomes, action.outcome, f.target)), k)
+        elif isinstance(action, RecordRepair):
+            if action.event not in model.event_by_id or action.event in repairs:
+                raise SessionError(f"repair of {action.event!r} is not possible here")
+            repairs.append(action.event)
+        # skip, unskip and note change no finding
     confirmed = None
     if repairs and any(k == "verification" and f.epoch == len(repairs) and f.target == top and f.outcome == 0
                        for f, k in obs):
         confirmed = repairs[-1]
-    return SessionData(tuple(f for f, _ in obs), tuple(repairs), confirmed, escalated)
+    return SessionData(tuple(f for f, _ in obs), tuple(repairs), confirmed)
 
 
 def model_sha256(spec_path: str | Path) -> str:
@@ -243,22 +239,25 @@ def read_session(path: str, model: Model, sha256: str) -> tuple[SessionData | No
         contents = read_log(path)
     except LogError as exc:
         text = str(exc)
-        kind = OTHER_VERSION if "version" in text else DAMAGED
+        kind = OTHER_VERSION if "format version" in text else EDITED if "edited" in text else DAMAGED
         return None, [LogProblem(path, kind, text)]
     except Exception as exc:  # noqa: BLE001 - a log must never stop the run: name it and go on
         return None, [LogProblem(path, DAMAGED, f"{path}: cannot be read ({type(exc).__name__}: {exc})")]
     problems = [LogProblem(path, TORN, w) for w in contents.warnings]
-    header = contents.header
-    if header.get("model_sha256") != sha256:
-        made_on = header.get("model_path") or "an unnamed model"
+    shas = {contents.header.get("model_sha256")} | {
+        getattr(line.action, "model_sha256", None) for line in contents.actions
+        if getattr(line.action, "model_sha256", None) is not None}
+    if shas != {sha256}:
+        made_on = contents.header.get("model_path") or "an unnamed model"
         return None, problems + [LogProblem(path, OTHER_MODEL, f"{path}:1: made on another model ({made_on}, "
-                                                                f"SHA-256 {str(header.get('model_sha256'))[:12]}...)")]
+                                            f"SHA-256 {str(contents.header.get('model_sha256'))[:12]}...)"
+                                            + (" or resumed on one" if len(shas) > 1 else ""))]
     try:
-        data = fold_actions(model, [record["action"] for _, record in contents.actions])
-    except (SessionError, KeyError, TypeError, AttributeError, ValueError) as exc:
+        data = fold_actions(model, [line.action for line in contents.actions])
+    except (SessionError, KeyError, TypeError, AttributeError, ValueError, IndexError) as exc:
         return None, problems + [LogProblem(path, INCONSISTENT, f"{path}: an action the session would have "
                                                                 f"refused ({exc}): edited or damaged")]
-    return replace(data, time=str(header.get("time") or "")), problems
+    return replace(data, time=str(contents.header.get("time") or "")), problems
 
 
 def _read_piece(paths, shared) -> list:
@@ -317,19 +316,38 @@ def _all_checks(model: Model):
 
 
 def check_tables(check) -> tuple[np.ndarray, np.ndarray]:
-    """(leak, causes) of a check: P(outcome) with no cause, and per cause, over its outcomes.
+    """(leak, causes) of a check over its outcomes in dominance order (level 0 normal, the last dominating).
 
-    Two outcomes (noisy-OR): leak = (1 - false alarm, false alarm), cause = (1 - detection, detection).
+    leak[l] = P(the false alarm alone produces level l); causes[i, l] the same for cause i when present
+    (noisy-OR with two outcomes: (1 - false alarm, false alarm) and (1 - detection, detection)).
     """
-    leak = np.array([1.0 - check.false_alarm, check.false_alarm])
-    causes = np.array([[1.0 - c.detection, c.detection] for c in check.causes]).reshape(len(check.causes), 2)
-    return leak, causes
+    from troubleshoot.engine.observation import distribution, levels
+
+    order = list(levels(check))
+    leak = distribution(check, check.leak, check.false_alarm)[order]
+    causes = np.array([distribution(check, c.shows, c.detection)[order] for c in check.causes])
+    return leak, causes.reshape(len(check.causes), len(order))
 
 
 def with_check_tables(check, leak: np.ndarray, causes: np.ndarray):
     """The check with its figures replaced by tables in the form :func:`check_tables` gives."""
-    return replace(check, false_alarm=float(leak[1]),
-                   causes=tuple(replace(c, detection=float(row[1])) for c, row in zip(check.causes, causes)))
+    from troubleshoot.engine.observation import levels
+
+    names = [check.outcomes[i] for i in levels(check)]
+
+    def split(row):
+        return tuple((name, float(p)) for name, p in zip(names[1:], row[1:]))
+
+    two = len(names) == 2
+    new_causes = tuple(replace(c, detection=float(1.0 - row[0]) if two else c.detection,
+                               shows=split(row) if (c.shows or not two) else ())
+                       for c, row in zip(check.causes, causes))
+    new_causes = tuple(replace(c, detection=float(sum(p for _, p in c.shows))) if c.shows else
+                       replace(c, detection=float(row[1:].sum()))
+                       for c, row in zip(new_causes, causes))
+    if check.leak or not two:
+        return replace(check, leak=split(leak), false_alarm=float(leak[1:].sum()), causes=new_causes)
+    return replace(check, false_alarm=float(leak[1:].sum()), causes=new_causes)
 
 
 def parameters_of(model: Model) -> Parameters:
@@ -387,8 +405,8 @@ class Counts:
     causes: list
     log_p: float = 0.0
     sessions: float = 0.0
-    root_informed: np.ndarray | None = None
-    check_made: np.ndarray | None = None
+    root_informed: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    check_made: np.ndarray = field(default_factory=lambda: np.zeros(0))
     refused: list = field(default_factory=list)
     #: (repairs before, check index, epoch, outcome) -> [cause presence, summed P(cause states | findings)]:
     #: the hidden counts are linear in those weights, so they are worked out once per key (:meth:`settle`).
@@ -412,7 +430,7 @@ class Counts:
         self.check_made += other.check_made
         self.refused.extend(other.refused)
 
-    def settle(self, params: Parameters) -> "Counts":
+    def settle(self, params: Parameters) -> Counts:
         """Turn the summed cause-state weights into expected outcome counts of every leak and cause."""
         for (_repairs, j, _epoch, outcome), (present, weights) in self.pending.items():
             leak_c, cause_c = hidden_outcome_counts(present, weights, params.leaks[j], params.causes[j], outcome)
@@ -429,7 +447,7 @@ def hidden_outcome_counts(present: np.ndarray, weights: np.ndarray, leak: np.nda
     Parameters
     ----------
     present : numpy.ndarray of bool, shape (S, I)
-        For each joint state s of the check's causes, which of its I causes are present.
+        For each joint state s of the check's causes, which of its n_causes causes are present.
     weights : numpy.ndarray, shape (S,)
         P(s | every finding of the session), this one included.
     leak : numpy.ndarray, shape (K,)
@@ -458,16 +476,16 @@ def hidden_outcome_counts(present: np.ndarray, weights: np.ndarray, leak: np.nda
     F. J. Díez, UAI 1993 (noisy-MAX); Heckerman & Breese 1996 (the hidden per-cause variables).
     """
     y = int(outcome)
-    S, I = present.shape
+    S, n_causes = present.shape
     K = leak.shape[0]
-    cdf = np.cumsum(causes, axis=1) if I else np.zeros((0, K))
+    cdf = np.cumsum(causes, axis=1) if n_causes else np.zeros((0, K))
     leak_cdf = np.cumsum(leak)
     # Columns: the leak, then each cause (an absent cause is always at the first outcome: F = 1).
-    at_y = np.ones((S, I + 1))
-    below = np.ones((S, I + 1))
+    at_y = np.ones((S, n_causes + 1))
+    below = np.ones((S, n_causes + 1))
     at_y[:, 0] = leak_cdf[y]
     below[:, 0] = leak_cdf[y - 1] if y > 0 else 0.0
-    if I:
+    if n_causes:
         at_y[:, 1:] = np.where(present, cdf[:, y], 1.0)
         below[:, 1:] = np.where(present, cdf[:, y - 1] if y > 0 else 0.0, 1.0 if y > 0 else 0.0)
     p_y = at_y.prod(axis=1) - below.prod(axis=1)
@@ -486,10 +504,10 @@ def hidden_outcome_counts(present: np.ndarray, weights: np.ndarray, leak: np.nda
     shown_here = np.einsum("sc,sc->c", wm, others_at)
     shown_above = np.einsum("sc,sc->c", wm, others_at - others_below)
     tables = np.vstack([leak[None, :], causes])
-    counts = np.zeros((I + 1, K))
+    counts = np.zeros((n_causes + 1, K))
     counts[:, :y] = tables[:, :y] * shown_above[:, None]
     counts[:, y] = tables[:, y] * shown_here
-    return counts[0], counts[1:].reshape(I, K)
+    return counts[0], counts[1:].reshape(n_causes, K)
 
 
 def _cause_presence(engine, posterior, check, epoch: int) -> np.ndarray:
@@ -664,13 +682,19 @@ def session_counts(engine: Engine, params: Parameters, data: SessionData, weight
         check = model.check_by_id[f.target]
         joint, _ = post.check_family(check.id, f.epoch)
         # What the check read then depends on the repairs made before it, not after.
-        key = (data.repairs[: f.epoch], j, f.epoch, f.outcome)
+        key = (data.repairs[: f.epoch], j, f.epoch, _levels(check).index(f.outcome))
         slot = into.pending.get(key)
         if slot is None:
             into.pending[key] = [_cause_presence(engine, post, check, f.epoch), weight * joint]
         else:
             slot[1] = slot[1] + weight * joint
         into.check_made[j] += weight
+
+
+def _levels(check) -> tuple[int, ...]:
+    from troubleshoot.engine.observation import levels
+
+    return levels(check)
 
 
 def _check_index(model: Model) -> dict[str, int]:
@@ -748,6 +772,7 @@ class TopProbability:
         from troubleshoot.analysis.bdd import DiagramTooLarge, FaultTreeBdd
 
         self.model = model
+        self.bdd: FaultTreeBdd | None = None
         try:
             self.bdd = FaultTreeBdd.from_model(model)
             position = {r: i for i, r in enumerate(model.hypotheses)}
@@ -868,7 +893,7 @@ def read_sessions(model: Model, model_sha: str, paths: list[str], executor=None,
 
     def read_progress(done, total):
         if progress is not None:
-            progress("read", min(len(paths), done * LOGS_PER_PIECE), len(paths), None)
+            progress(min(len(paths), done * LOGS_PER_PIECE), len(paths))
 
     read = executor.map(_read_piece, pieces, (model, model_sha), progress=read_progress)
     problems: list[LogProblem] = []
@@ -900,8 +925,8 @@ def learn(model: Model, model_sha: str, paths: list[str], *, prior_weight: float
     executor : optional
         From :func:`troubleshoot.study.execution.executor_for`; default in this process.
     progress : callable, optional
-        ``progress(stage, done, total, info)``: stage ``"read"`` (logs read) or ``"em"``
-        (iteration, with ``info`` the log-likelihood and its change).
+        ``progress(done, total)`` as logs are read, then ``progress("EM iteration k: log-likelihood
+        L, change D")`` after each E-step (see :class:`troubleshoot.progress.ProgressDisplay`).
 
     Raises
     ------
@@ -949,8 +974,8 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
     prior = prior_from(before, p_top0, prior_weight)
     top_probability = TopProbability(model)
     history: list[tuple[int, float, float]] = []
-    state = {"keys": keys, "unseen": 0.0 if exposure is None else float(exposure) - len(sessions),
-             "previous": None}
+    state: dict[str, Any] = {"keys": keys, "unseen": 0.0 if exposure is None else float(exposure) - len(sessions),
+                             "previous": None}
     dropped: list[LogProblem] = []
     structures: dict = {}
 
@@ -988,7 +1013,8 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
         state["previous"] = objective
         history.append((len(history), log_lik, change))
         if progress is not None:
-            progress("em", len(history) - 1, max_iterations, (log_lik, change))
+            progress(f"EM iteration {len(history) - 1}: log-likelihood {log_lik:,.4f}"
+                     + ("" if math.isnan(change) else f", change {change:+.3g}"))
         # M-step: every figure its Beta / Dirichlet posterior mean.
         working = engine.propagate([Finding(model.top, 0, 0)]).root_marginals() if p_top < 1.0 \
             else np.zeros_like(params.roots)
@@ -1067,11 +1093,12 @@ def _result(model, model_sha, params, before, prior, counts, sessions, problems,
                               low, high, float(counts.root_informed[i])))
     for j, check in enumerate(_all_checks(model)):
         made = float(counts.check_made[j])
+        names = [check.outcomes[i] for i in _levels(check)]
         alpha = prior.leaks[j] + counts.leaks[j]
         for k in range(1, len(alpha)):
             low, high = beta_interval(alpha[k], alpha.sum() - alpha[k])
             figures.append(Figure("false-alarm", check.id, check.label, float(before.leaks[j][k]),
-                                  float(params.leaks[j][k]), low, high, made, check.id, "", check.outcomes[k]))
+                                  float(params.leaks[j][k]), low, high, made, check.id, "", names[k]))
         for i, cause in enumerate(check.causes):
             alpha = prior.causes[j][i] + counts.causes[j][i]
             trials = float(counts.causes[j][i].sum())
@@ -1079,7 +1106,7 @@ def _result(model, model_sha, params, before, prior, counts, sessions, problems,
                 low, high = beta_interval(alpha[k], alpha.sum() - alpha[k])
                 figures.append(Figure("detection", f"{check.id}:{cause.target}", check.label,
                                       float(before.causes[j][i][k]), float(params.causes[j][i][k]), low, high,
-                                      trials, check.id, cause.target, check.outcomes[k]))
+                                      trials, check.id, cause.target, names[k]))
     confirmed = {r: 0 for r in model.hypotheses}
     for _, d in sessions:
         if d.confirmed is not None:

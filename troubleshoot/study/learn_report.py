@@ -11,6 +11,7 @@ _KIND_WORDS = {
     "torn": "torn (the last line cut off; the lines before it were used)",
     "other-model": "made on another model (left out)",
     "other-version": "written by another version of the log format (left out)",
+    "edited": "edited or damaged inside (a line breaks the log's hash chain or its rules; left out)",
     "damaged": "damaged or not a session log (left out)",
     "inconsistent": "edited or inconsistent: an action the session would have refused (left out)",
     "impossible": "findings impossible under the model (left out)",
