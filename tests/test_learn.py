@@ -302,6 +302,28 @@ def test_fold_follows_the_session(tmp_path):
     assert data.confirmed == "refrigerant_leak"
 
 
+def test_simulated_logs_are_real_session_logs(tmp_path, capsys):
+    # simulate --logs writes logs a real session would: they replay to 1e-9, and what the learner reads
+    # from each is what the replayed session holds.
+    from troubleshoot.session.replay import replay_log
+
+    folder = tmp_path / "fleet"
+    assert main(["simulate", "rooftop", "--cases", "6", "--seed", "4", "--strategy", "info-per-cost",
+                 "--workers", "1", "--logs", str(folder), "--json"]) == 0
+    capsys.readouterr()
+    logs = sorted(folder.glob("case-*.jsonl"))
+    assert [p.name for p in logs] == [f"case-{i:06d}.jsonl" for i in range(1, 7)]
+    model, _ = load_any_model("rooftop")
+    for path in logs:
+        report = replay_log(path)
+        assert report.confirmed, report.messages
+        data = fold_actions(model, [line.action for line in read_log(path).actions])
+        assert data.findings == report.session.findings
+        assert data.repairs == report.session.repairs
+    assert main(["simulate", "rooftop", "--cases", "6", "--seed", "4", "--logs", str(folder)]) == 2
+    assert "already exists" in capsys.readouterr().err
+
+
 def test_bad_logs_are_counted_and_named(tmp_path, capsys):
     model, _ = load_any_model("rooftop")
     good = tmp_path / "logs" / "good.jsonl"

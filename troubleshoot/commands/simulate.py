@@ -179,12 +179,10 @@ def _log_sink(folder: str, cases: int):
 def _load_truth(path: str, model):
     from troubleshoot.model.source import load_any_model
 
-    truth, _warnings = load_any_model(path)
-    def shape(m):
-        return (m.top, tuple(m.hypotheses), tuple((g.id, g.kind, g.inputs, g.k, g.condition) for g in m.gates),
-                tuple((c.id, tuple(x.target for x in c.causes)) for c in m.checks + m.symptoms))
+    from troubleshoot.study.learn import structure_of
 
-    if shape(truth) != shape(model):
+    truth, _warnings = load_any_model(path)
+    if structure_of(truth) != structure_of(model):
         raise SimulationError(f"{path}: --truth must have the same events, gates and checks as the model "
                               f"{model.name!r} (only its figures may differ)")
     return truth

@@ -646,18 +646,18 @@ _ENGINES = threading.local()
 def _engine_for(token: str, model: Model) -> Engine:
     """This thread's engine for a set of figures (keyed by their digest), its trees refitted, not compiled."""
     if getattr(_ENGINES, "token", None) != token:
-        if getattr(_ENGINES, "structure", None) != _structure_of(model):
-            _ENGINES.structure = _structure_of(model)
+        if getattr(_ENGINES, "structure", None) != structure_of(model):
+            _ENGINES.structure = structure_of(model)
             _ENGINES.trees = {}
         _ENGINES.engine = FleetEngine(model, _ENGINES.trees)
         _ENGINES.token = token
     return _ENGINES.engine
 
 
-def _structure_of(model: Model):
-    """What a compiled tree depends on besides the figures."""
+def structure_of(model: Model):
+    """What a compiled tree depends on besides the figures: the ids, the gates, which causes each check reads."""
     return (model.top, model.hypotheses, tuple((g.id, g.kind, g.inputs, g.k, g.condition) for g in model.gates),
-            tuple((c.id, tuple(x.target for x in c.causes)) for c in model.checks + model.symptoms))
+            tuple((c.id, c.outcomes, tuple(x.target for x in c.causes)) for c in model.checks + model.symptoms))
 
 
 def session_counts(engine: Engine, params: Parameters, data: SessionData, weight: float, into: Counts,
