@@ -95,7 +95,7 @@ def gate_operands(gate) -> tuple[str, ...]:
     return operands
 
 
-@functools.lru_cache(maxsize=None)
+@functools.cache
 def truth_table(gate) -> np.ndarray:
     """The gate's value for every combination of its operands, row b = sum_i value_i * 2^i."""
     m = len(gate_operands(gate))
