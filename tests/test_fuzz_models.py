@@ -60,12 +60,39 @@ ATTRIBUTES = ["id", "ref", "k", "cost", "detection", "false-alarm", "name", "min
               "unlisted-causes", "per-hour", "exposure-hours", "format-version", "verify", "probability"]
 
 
-def _numbers(rng: random.Random, text: str) -> str:
-    spans = [m.span() for m in re.finditer(r"-?\d+(?:\.\d+)?(?:[eE]-?\d+)?", text)]
+def _replace_one(rng: random.Random, text: str, pattern: str, choices: list[str]) -> str:
+    """Replace group 1 (or the whole match) of one match of ``pattern`` by one of ``choices``."""
+    spans = [m.span(1 if m.re.groups else 0) for m in re.finditer(pattern, text)]
     if not spans:
         return text
     start, end = rng.choice(spans)
-    return text[:start] + rng.choice(NUMBERS) + text[end:]
+    return text[:start] + rng.choice(choices) + text[end:]
+
+
+def _numbers(rng: random.Random, text: str) -> str:
+    return _replace_one(rng, text, r"-?\d+(?:\.\d+)?(?:[eE]-?\d+)?", NUMBERS)
+
+
+def _plausible_numbers(rng: random.Random, text: str) -> str:
+    """A number replaced by another plausible one (keeps many files valid, so they reach the engine)."""
+    return _replace_one(rng, text, r"\d+\.\d+(?:[eE]-?\d+)?", [f"{rng.random():.3g}", "0", "1", f"{rng.random():.2e}"])
+
+
+#: Element names that can stand for one another (model gates, MEF formulas, MEF expressions).
+KIND_FAMILIES = [["and-gate", "or-gate", "atleast-gate", "not-gate"],
+                 ["and", "or", "nand", "nor", "xor", "not", "iff", "imply", "atleast"],
+                 ["float", "int", "exponential", "Weibull", "lognormal-deviate", "beta-deviate"]]
+
+
+def _kinds(rng: random.Random, text: str) -> str:
+    """An element renamed at both ends: an AND gate becomes an OR or a vote, and so on."""
+    family = rng.choice(KIND_FAMILIES)
+    found = list(re.finditer(r"<(" + "|".join(family) + r")(\s[^<>]*)?>(.*?)</\1>", text, re.DOTALL))
+    if not found:
+        return text
+    match = rng.choice(found)
+    new = rng.choice(family)
+    return text[:match.start()] + f"<{new}{match.group(2) or ''}>{match.group(3)}</{new}>" + text[match.end():]
 
 
 def _values(rng: random.Random, text: str) -> str:
@@ -79,19 +106,11 @@ def _values(rng: random.Random, text: str) -> str:
 
 
 def _tags(rng: random.Random, text: str, vocabulary: list[str]) -> str:
-    spans = [m.span(1) for m in re.finditer(r"</?([A-Za-z][\w-]*)", text)]
-    if not spans:
-        return text
-    start, end = rng.choice(spans)
-    return text[:start] + rng.choice(vocabulary) + text[end:]
+    return _replace_one(rng, text, r"</?([A-Za-z][\w-]*)", vocabulary)
 
 
 def _attribute_names(rng: random.Random, text: str) -> str:
-    spans = [m.span(1) for m in re.finditer(r'\s([A-Za-z][\w-]*)="', text)]
-    if not spans:
-        return text
-    start, end = rng.choice(spans)
-    return text[:start] + rng.choice(ATTRIBUTES) + text[end:]
+    return _replace_one(rng, text, r'\s([A-Za-z][\w-]*)="', ATTRIBUTES)
 
 
 def _lines(rng: random.Random, text: str) -> str:
@@ -135,7 +154,8 @@ def _bytes(rng: random.Random, text: str) -> str:
     return text[:i] + text[min(i, j):max(i, j)] + text[i:]
 
 
-MUTATORS = [_numbers, _numbers, _values, _values, _attribute_names, _lines, _element_copies, _bytes, _bytes]
+MUTATORS = [_numbers, _plausible_numbers, _plausible_numbers, _kinds, _kinds, _values, _values,
+            _attribute_names, _lines, _element_copies, _bytes, _bytes]
 
 
 def mutate(rng: random.Random, text: str, vocabulary: list[str]) -> bytes:
