@@ -230,6 +230,65 @@ class Engine:
 
 
 @dataclass(frozen=True)
+class FamilyBatch:
+    """Checks whose cause families have the same shape, stacked.
+
+    Attributes
+    ----------
+    checks : tuple of str
+        Check ids, one per row.
+    joint : ndarray, shape (n, S)
+        P(c | findings) over the S joint states of each check's causes.
+    likelihood : ndarray, shape (n, K, S)
+        P(outcome | c), K outcomes (the first is the normal one).
+    """
+
+    checks: tuple[str, ...]
+    joint: np.ndarray
+    likelihood: np.ndarray
+
+
+def outcome_table(family: CheckFamily) -> np.ndarray:
+    """P(outcome | c) of one check family, shape (K, 2**m): outcomes by states of the causes (C order)."""
+    return np.stack([family.p_normal().reshape(-1), family.p_abnormal().reshape(-1)])
+
+
+@dataclass(frozen=True)
+class _BatchGroup:
+    checks: tuple[str, ...]
+    plan: tuple
+    likelihood: np.ndarray
+
+
+@dataclass(frozen=True)
+class _BatchPlans:
+    groups: dict  # (states, outcomes) -> _BatchGroup
+    where: dict  # check id -> ((states, outcomes), row)
+
+
+def _batch_plans(net: Network, tree: JoinTree, epoch: int) -> _BatchPlans:
+    """Every check family of one epoch the tree carries, grouped by shape; built once per tree and epoch."""
+    cached = tree._batch_plans.get(("families", epoch))
+    if cached is not None:
+        return cached
+    members: dict[tuple[int, int], list] = {}
+    for (check_id, e), fam in tree.families.items():
+        if e == epoch:
+            table = outcome_table(fam)
+            members.setdefault(table.shape[::-1], []).append((check_id, fam, table))
+    groups, where = {}, {}
+    for key, items in members.items():
+        checks = tuple(c for c, _, _ in items)
+        plan = tree.joints_plan(tuple(f.nodes for _, f, _ in items))
+        groups[key] = _BatchGroup(checks, plan, np.stack([t for _, _, t in items]))
+        for row, c in enumerate(checks):
+            where[c] = (key, row)
+    plans = _BatchPlans(groups, where)
+    tree._batch_plans[("families", epoch)] = plans
+    return plans
+
+
+@dataclass(frozen=True)
 class _ConstantLikelihood:
     value: float
 
@@ -292,6 +351,49 @@ class Posterior:
         """What a check reads at an epoch (nodes, detections, leak)."""
         epoch = self.epoch if epoch is None else epoch
         return self.network.families[(check_id, epoch)]
+
+    def family_batches(self, check_ids, epoch: int | None = None) -> list["FamilyBatch"]:
+        """The cause joint and outcome table of many checks at once, grouped by shape.
+
+        Parameters
+        ----------
+        check_ids : iterable of str
+            Checks or symptoms of the model.
+        epoch : int, optional
+            Default: now.
+
+        Returns
+        -------
+        list of FamilyBatch
+            One per (number of joint cause states, number of outcomes), in
+            first-seen order; every check appears in exactly one.
+
+        Notes
+        -----
+        Each group's joints come out of the calibrated tables in one gather
+        and one ``bincount`` over index plans the join tree keeps, whatever
+        the number of checks.
+        """
+        epoch = self.epoch if epoch is None else epoch
+        plans = _batch_plans(self.network, self.tree, epoch)
+        wanted: dict[tuple[int, int], list[int]] = {}
+        for check_id in check_ids:
+            found = plans.where.get(check_id)
+            if found is None:
+                raise SessionError(f"{check_id!r} is not a check or symptom of model {self.model.name!r} "
+                                   f"read after {epoch} repair(s)")
+            key, row = found
+            wanted.setdefault(key, []).append(row)
+        out = []
+        for key, rows in wanted.items():
+            group = plans.groups[key]
+            joint = self._calibrated.joints(group.plan, len(group.checks))
+            if len(rows) != len(group.checks) or rows != list(range(len(rows))):
+                pick = np.array(rows, dtype=np.int64)
+                out.append(FamilyBatch(tuple(group.checks[r] for r in rows), joint[pick], group.likelihood[pick]))
+            else:
+                out.append(FamilyBatch(group.checks, joint, group.likelihood))
+        return out
 
     def check_family(self, check_id: str, epoch: int | None = None) -> tuple[np.ndarray, np.ndarray]:
         """(P(c | findings), P(abnormal | c)) over the joint states c of the check's causes.
