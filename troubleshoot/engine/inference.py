@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from troubleshoot.errors import ImpossibleFindings, SessionError
-from troubleshoot.engine.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability
+from troubleshoot.engine.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability, gc_paused
 from troubleshoot.model import Model
 from troubleshoot.engine.network import CheckFamily, Network, build_network
 
@@ -100,11 +100,12 @@ class Engine:
         for r in repairs:
             if r not in self.model.hypotheses:
                 raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
-        if repairs not in self._networks:
-            self._networks[repairs] = build_network(self.model, repairs, with_checks=False)
-        net = self._networks[repairs]
-        variables, families = net.relevant(key[1])
-        tree = JoinTree(net, self.memory_budget, families=families, variables=variables)
+        with gc_paused():
+            if repairs not in self._networks:
+                self._networks[repairs] = build_network(self.model, repairs, with_checks=False)
+            net = self._networks[repairs]
+            variables, families = net.relevant(key[1])
+            tree = JoinTree(net, self.memory_budget, families=families, variables=variables)
         self._trees[key] = (net, tree)
         while len(self._trees) > self.cache_size:
             self._trees.pop(next(iter(self._trees)))
