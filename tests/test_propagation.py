@@ -217,8 +217,8 @@ def test_batched_cause_joints_equal_variable_elimination(name, make):
             expected = ref.joint(fam_nodes).reshape(-1)
             assert joint == pytest.approx(expected, abs=TOL), check_id
             order = [nodes.index(x) for x in fam_nodes]
-            assert likelihood[1] == pytest.approx(np.transpose(p_abnormal, order).reshape(-1), abs=TOL)
-            assert likelihood.sum(axis=0) == pytest.approx(np.ones(likelihood.shape[1]), abs=TOL)
+            assert likelihood[:, 1] == pytest.approx(np.transpose(p_abnormal, order).reshape(-1), abs=TOL)
+            assert likelihood.sum(axis=1) == pytest.approx(np.ones(likelihood.shape[0]), abs=TOL)
     assert seen == set(checks)
 
 
@@ -251,8 +251,8 @@ def test_ranking_bits_equal_variable_elimination():
 def test_entropy_over_an_outcome_axis_of_any_length():
     # H of a uniform distribution over K outcomes is log2 K bits (Cover & Thomas 2006, eq. 2.1).
     for k in (1, 2, 3, 5):
-        assert entropy_bits(np.full((4, k), 1.0 / k), axis=1) == pytest.approx(np.full(4, math.log2(k)), abs=TOL)
-    assert entropy_bits(np.array([[1.0, 0.0, 0.0]]), axis=1)[0] == 0.0
+        assert entropy_bits(np.full((4, k), 1.0 / k)) == pytest.approx(np.full(4, math.log2(k)), abs=TOL)
+    assert entropy_bits(np.array([[1.0, 0.0, 0.0]]))[0] == 0.0
 
 
 def test_after_a_repair_marginals_equal_variable_elimination():

@@ -1,5 +1,8 @@
 """What the findings say about the faults: suspects, remaining uncertainty, the
-most probable explanation, isolation, the ambiguity group and the repair order.
+most probable explanation, isolation and the ambiguity group.
+
+The repair order lives in :mod:`troubleshoot.advice.repair`, the decision in
+:mod:`troubleshoot.advice.policy`.
 
 Pure functions of a :class:`~troubleshoot.engine.inference.Posterior` (and, for the
 most probable explanation, the :class:`~troubleshoot.engine.inference.Engine` that
@@ -9,11 +12,6 @@ References
 ----------
 J. de Kleer and B. C. Williams, "Diagnosing multiple faults", Artificial
 Intelligence 32(1), 1987 (entropy of the fault hypotheses).
-J. B. Kadane and H. A. Simon, "Optimal strategies for a class of constrained
-sequential problems", Annals of Statistics 5(2), 1977 (repair in order of
-probability over cost).
-D. Heckerman, J. S. Breese and K. Rommelse, "Decision-theoretic
-troubleshooting", Communications of the ACM 38(3), 1995.
 J. Pearl, *Probabilistic Reasoning in Intelligent Systems*, 1988, section 5.3
 (most probable explanation).
 """
@@ -25,15 +23,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.errors import ImpossibleFindings
-from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.engine.inference import Engine, Posterior
 from troubleshoot.model import DERIVED, Model
-from troubleshoot.advice.ranking import rank
 
-#: The most probable explanation search gives up (and says so) after this many propagations.
-MPE_MAX_PROPAGATIONS = 2000
-#: Single-fault states tried first to give the search a bound.
-SEED_GUESSES = 5
 
 
 @dataclass(frozen=True)
@@ -104,8 +96,8 @@ def entropy_bits(posterior: Posterior) -> float:
     for f in posterior.findings:
         if f.target not in model.check_by_id:
             continue
-        joint, p_abnormal = posterior.check_family(f.target, epoch=f.epoch)
-        lik = p_abnormal if f.outcome == 1 else 1.0 - p_abnormal
+        joint, table = posterior.check_likelihood(f.target, epoch=f.epoch)
+        lik = table[:, f.outcome]
         e_log_lik += _expected_log(joint, lik)
     nats = posterior.log_p - e_log_prior - e_log_lik
     bits = nats / math.log(2.0)
@@ -123,10 +115,11 @@ class Explanation:
     p : float
         Its posterior probability P(f | findings).
     exact : bool
-        False when the search stopped at its propagation bound: ``failed``
-        is then the best state found, not proven the best.
+        True: the state is proven the most probable (the max pass is exact
+        and always finishes). Kept so a future bounded search can say when
+        it stopped early.
     propagations : int
-        Propagations the search used.
+        Passes the search used (one max pass).
     """
 
     failed: tuple[str, ...]
@@ -135,124 +128,34 @@ class Explanation:
     propagations: int
 
 
-def most_probable_explanation(engine: Engine, posterior: Posterior,
-                              max_propagations: int = MPE_MAX_PROPAGATIONS) -> Explanation:
-    """The joint state of every root with the highest posterior, found exactly.
+def most_probable_explanation(engine: Engine, posterior: Posterior) -> Explanation:
+    """The joint state of every root with the highest posterior, found exactly in one pass.
 
     Parameters
     ----------
     engine : Engine
-        The engine that made ``posterior``.
+        The engine that made ``posterior`` (kept for the callers' signature).
     posterior : Posterior
-    max_propagations : int
-        Bound on the work; the result says whether it was proven best.
+        A join-tree or compiled posterior.
 
     Notes
     -----
-    Depth-first branch and bound over the roots, each node one propagation
-    with exact findings on the roots assigned so far. The propagation of a
-    partial assignment A gives P(A | e) and the conditional marginals
-    P(F_j | A, e); any completion f of A has P(f | e) <= P(A | e) *
-    P(F_j = f_j | A, e) for every unassigned j. So once a state of
-    probability p* is known, a root whose value v has P(A|e) P(F_j=v|A,e)
-    <= p* must take the other value (one propagation fixes all such roots),
-    and a branch whose bound is <= p* is cut without propagating. The first
-    leaf is the greedy state (likelier value first, most uncertain root
-    first), unless a few cheap guesses tried first (every root at its
-    likelier value; each of the five likeliest suspects as the only fault)
-    already bound it. The search is exact when it finishes within the
-    propagation bound.
+    On the join tree it is one max-product collect pass and a decoding walk
+    (Dawid 1992): the gates are functions of the roots, so the best joint
+    state of all variables carries the best state of the roots. On the
+    compiled diagram it is one max pass over the evidence diagram, whose
+    leaves hold the checks' noise already summed out. Either costs about one
+    propagation, needs no search (no branch is ever tried, so an impossible
+    one costs nothing) and its memory does not depend on the number of roots
+    assigned.
 
     References
     ----------
-    Pearl 1988, section 5.3 (most probable explanation); A. H. Land and
-    A. G. Doig, Econometrica 28(3), 1960 (branch and bound).
+    Pearl 1988, section 5.3 (most probable explanation); A. P. Dawid,
+    Statistics and Computing 2, 1992 (max-propagation).
     """
-    model = posterior.model
-    roots = model.hypotheses
-    log_pe = posterior.log_p
-    base = tuple(posterior.findings)
-    repairs = tuple(posterior.repairs)
-    best_assign: dict[str, int] | None = None
-    best_p = 0.0
-    used = 0
-    exhausted = False
-
-    def propagate(assign: dict[str, int]) -> Posterior | None:
-        nonlocal used, exhausted
-        if used >= max_propagations:
-            exhausted = True
-            return None
-        used += 1
-        extra = tuple(Finding(r, v, 0) for r, v in assign.items())
-        try:
-            return engine.propagate(base + extra, repairs)
-        except ImpossibleFindings:
-            return None
-
-    def visit(assign: dict[str, int], post: Posterior) -> None:
-        nonlocal best_assign, best_p
-        if exhausted:
-            return
-        p_assign = math.exp(post.log_p - log_pe)
-        if best_assign is not None and p_assign <= best_p:
-            return
-        q = post.root_marginals()
-        forced: dict[str, int] = {}
-        free: list[tuple[float, int, str, float]] = []
-        for j, r in enumerate(roots):
-            if r in assign:
-                continue
-            qj = float(q[j])
-            can_fail = qj > 0.0 and (best_assign is None or p_assign * qj > best_p)
-            can_work = qj < 1.0 and (best_assign is None or p_assign * (1.0 - qj) > best_p)
-            if not can_fail and not can_work:
-                return
-            if not can_fail:
-                forced[r] = 0
-            elif not can_work:
-                forced[r] = 1
-            else:
-                free.append((-min(qj, 1.0 - qj), j, r, qj))
-        if forced:
-            new = {**assign, **forced}
-            child = propagate(new)
-            if child is not None:
-                visit(new, child)
-            return
-        if not free:
-            best_assign, best_p = dict(assign), p_assign
-            return
-        free.sort()
-        _, _, r, qj = free[0]
-        values = (1, 0) if qj > 0.5 else (0, 1)
-        for v in values:
-            bound = p_assign * (qj if v == 1 else 1.0 - qj)
-            if bound <= 0.0 or (best_assign is not None and bound <= best_p):
-                continue
-            new = {**assign, r: v}
-            child = propagate(new)
-            if child is not None:
-                visit(new, child)
-
-    # A good first bound makes the search prune from the root: the state with
-    # every root at its likelier value, and each of the likeliest suspects as
-    # the only fault. Any state will do for soundness; these are cheap guesses.
-    q0 = posterior.root_marginals()
-    order = sorted(range(len(roots)), key=lambda j: (-float(q0[j]), roots[j]))
-    guesses = [{r: int(q0[j] > 0.5) for j, r in enumerate(roots)}]
-    guesses += [{r: int(r == roots[k]) for r in roots} for k in order[:SEED_GUESSES]]
-    for guess in guesses:
-        if used >= max_propagations // 2:
-            break
-        post = propagate(guess)
-        if post is not None:
-            p_guess = math.exp(post.log_p - log_pe)
-            if p_guess > best_p:
-                best_assign, best_p = guess, p_guess
-    visit({}, posterior)
-    failed = tuple(r for r in roots if best_assign and best_assign.get(r) == 1)
-    return Explanation(failed, best_p, not exhausted and best_assign is not None, used)
+    failed, p = posterior.most_probable_state()
+    return Explanation(failed, p, True, 1)
 
 
 def isolated_suspect(ranked: tuple[Suspect, ...], threshold: float) -> Suspect | None:
@@ -266,232 +169,3 @@ def isolated_suspect(ranked: tuple[Suspect, ...], threshold: float) -> Suspect |
 def ambiguity_group(ranked: tuple[Suspect, ...], min_p: float) -> tuple[Suspect, ...]:
     """Suspects not yet repaired with P(failed | findings) >= min_p, most probable first."""
     return tuple(s for s in ranked if not s.repaired and s.p >= min_p)
-
-
-@dataclass(frozen=True)
-class RepairStep:
-    """One entry of the repair order.
-
-    Attributes
-    ----------
-    id, label : str
-        The suspect.
-    p : float
-        P(failed | findings).
-    cost : float or None
-        Repair cost in the model's cost unit; None when the model lists no repair.
-    ratio : float or None
-        p / cost per cost unit (infinite for a free repair); None without a repair.
-    repair_label : str or None
-    note : str or None
-        Why the entry is last (no repair listed; cause outside the model).
-    """
-
-    id: str
-    label: str
-    p: float
-    cost: float | None
-    ratio: float | None
-    repair_label: str | None
-    note: str | None = None
-
-
-def repair_order(model: Model, group: tuple[Suspect, ...]) -> tuple[RepairStep, ...]:
-    """Repairs in order of P(failed) / repair cost, descending; suspects without a repair last.
-
-    Notes
-    -----
-    With a single fault among the suspects and each repair followed by a
-    check of the unit, repairing in decreasing p / cost minimises the
-    expected cost (Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995).
-    An unlisted-cause event has no repair (the cause is outside the model):
-    it is listed after every repairable suspect, with a note, as is a basic
-    event whose model lists no repair. Ties go by higher p, then id.
-
-    References
-    ----------
-    Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995.
-    """
-    repairable, other = [], []
-    for s in group:
-        event = model.event_by_id.get(s.id)
-        repair = event.repair if event is not None else None
-        if repair is None:
-            if s.unlisted:
-                note = "the cause lies outside the model: inspect beyond the listed components"
-            else:
-                note = "the model lists no repair for this event"
-            other.append(RepairStep(s.id, s.label, s.p, None, None, None, note))
-            continue
-        cost = float(repair.cost)
-        ratio = s.p / cost if cost > 0 else math.inf
-        repairable.append(RepairStep(s.id, s.label, s.p, cost, ratio, repair.label))
-    repairable.sort(key=lambda r: (-r.ratio, -r.p, r.id))
-    other.sort(key=lambda r: (-r.p, r.id))
-    return tuple(repairable + other)
-
-
-# ---------------------------------------------------------------- verification and value
-
-@dataclass(frozen=True)
-class VerificationRequest:
-    """What to check after the last repair to confirm it."""
-
-    target: str  # the repair's verify check, or the top event
-    label: str
-    cost: float
-    outcomes: tuple[str, str]  # (works / normal, still fails / abnormal)
-    instructions: str = ""
-    caution: str | None = None
-
-
-
-def verification_for(model: Model, repaired: str) -> VerificationRequest:
-    """The first check after a repair of ``repaired``: its ``verify`` check, else the top event."""
-    event = model.event_by_id.get(repaired)
-    verify = event.repair.verify if event is not None and event.repair is not None else None
-    if verify is not None and verify in model.check_by_id:
-        check = model.check_by_id[verify]
-        return VerificationRequest(check.id, check.label, float(check.cost), tuple(check.outcomes),
-                                   check.instructions, check.caution)
-    return top_verification(model)
-
-
-def top_verification(model: Model) -> VerificationRequest:
-    """Checking the unit itself after a repair ("does it work now?"), which alone confirms it."""
-    v = model.verification
-    if v is None:
-        return VerificationRequest(model.top, f"does the unit work now? ({model.label_of(model.top)})",
-                                   0.0, ("works", "still fails"))
-    return VerificationRequest(model.top, v.label, float(v.cost), tuple(v.outcomes), v.instructions)
-
-
-def verification_of(model: Model, target: str, repaired: str) -> VerificationRequest:
-    """The verification a recorded verification finding on ``target`` answered."""
-    return top_verification(model) if target == model.top else verification_for(model, repaired)
-
-
-def expected_repair_cost(posterior: Posterior) -> float:
-    """Expected cost of repairing now, in the repair order, each repair verified, one fault assumed.
-
-    Notes
-    -----
-    With the suspects not yet repaired (P > 1e-12) renormalised to a single
-    fault, p_i, and the repairs in the order of :func:`repair_order`, the
-    expected cost is sum_j (c_j + v_j) * (1 - sum_(i<j) p_i): repair j (cost
-    c_j, its verification v_j: the repair's own check, if any, and the unit
-    itself) is reached only if none of the earlier ones was the fault.
-    Suspects with no repair (unlisted causes) are passed over. Whole arrays:
-    it runs several times per action.
-
-    References
-    ----------
-    Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995 (expected cost of repair).
-    """
-    model = posterior.model
-    table = _repair_table(model)
-    p = posterior.root_marginals()
-    live = p > 1e-12
-    for r in posterior.repairs:
-        live[table.index[r]] = False
-    total = float(p[live].sum())
-    if total <= 0.0:
-        return 0.0
-    cand = np.flatnonzero(live & table.repairable)
-    if cand.size == 0:
-        return 0.0
-    pc, cost = p[cand], table.repair_cost[cand]
-    with np.errstate(divide="ignore"):
-        ratio = np.where(cost > 0, pc / np.where(cost > 0, cost, 1.0), np.inf)
-    order = cand[np.lexsort((table.id_rank[cand], -pc, -ratio))]
-    q = p[order] / total
-    before = 1.0 - np.concatenate(([0.0], np.cumsum(q)[:-1]))  # P(repair j is reached)
-    reached = np.concatenate(([True], before[1:] > 1e-12))
-    return float(np.sum(before[reached] * table.full_cost[order][reached]))
-
-
-@dataclass(frozen=True)
-class _RepairTable:
-    index: dict
-    repairable: np.ndarray
-    repair_cost: np.ndarray
-    full_cost: np.ndarray  # repair + its verification (own check, then the unit)
-    id_rank: np.ndarray
-
-
-_REPAIR_TABLES: dict[int, tuple] = {}
-
-
-def _repair_table(model: Model) -> _RepairTable:
-    """Per-hypothesis repair costs as arrays, built once per model."""
-    hit = _REPAIR_TABLES.get(id(model))
-    if hit is not None and hit[0]() is model:
-        return hit[1]
-    import weakref
-
-    hyps = model.hypotheses
-    top_cost = top_verification(model).cost
-    repairable, repair_cost, full_cost = [], [], []
-    for h in hyps:
-        event = model.event_by_id.get(h)
-        repair = event.repair if event is not None else None
-        repairable.append(repair is not None)
-        cost = float(repair.cost) if repair is not None else 0.0
-        repair_cost.append(cost)
-        if repair is None:
-            full_cost.append(0.0)
-            continue
-        verify = verification_for(model, h)
-        full_cost.append(cost + verify.cost + (top_cost if verify.target != model.top else 0.0))
-    id_rank = np.empty(len(hyps), dtype=np.int64)
-    id_rank[np.argsort(np.array(hyps, dtype=object), kind="stable")] = np.arange(len(hyps))
-    table = _RepairTable({h: i for i, h in enumerate(hyps)}, np.array(repairable, dtype=bool),
-                         np.array(repair_cost), np.array(full_cost), id_rank)
-    _REPAIR_TABLES[id(model)] = (weakref.ref(model), table)
-    return table
-
-
-def expected_cost_ahead(engine: Engine, posterior: Posterior, candidates: tuple[str, ...], depth: int,
-                        breadth: int, min_bits: float) -> float:
-    """Least expected cost from here looking ``depth`` checks ahead, then repairing.
-
-    min(ECR(e), min over the ``breadth`` best-scoring informative checks t of
-    cost(t) + sum_o P(o | e) * expected_cost_ahead(e + o, depth - 1)); at
-    depth 0 it is ECR(e), :func:`expected_repair_cost`.
-
-    References
-    ----------
-    Heckerman, Breese & Rommelse 1995 (observation versus repair; the
-    myopic rule is depth 1).
-    """
-    best = expected_repair_cost(posterior)
-    if depth <= 0:
-        return best
-    for row in rank(posterior, candidates).worth_doing(min_bits)[:breadth]:
-        best = min(best, cost_of_check_then(engine, posterior, row.check, row.cost, row.p_outcomes,
-                                            candidates, depth, breadth, min_bits, bound=best))
-    return best
-
-
-def cost_of_check_then(engine: Engine, posterior: Posterior, check_id: str, cost: float,
-                       p_outcomes: tuple[float, float], candidates: tuple[str, ...], depth: int,
-                       breadth: int, min_bits: float, bound: float = math.inf) -> float:
-    """Expected cost of doing a check now and then the best of ``depth - 1`` more checks or repairing.
-
-    Stops adding once the sum reaches ``bound`` (the caller only needs to
-    know it is not below it). One propagation per outcome at each level.
-    """
-    total = cost
-    rest = tuple(c for c in candidates if c != check_id)
-    findings = tuple(posterior.findings)
-    for outcome, p in enumerate(p_outcomes):
-        if p <= 0.0:
-            continue
-        try:
-            later = engine.propagate(findings + (Finding(check_id, outcome, posterior.epoch),), posterior.repairs)
-        except ImpossibleFindings:
-            continue
-        total += p * expected_cost_ahead(engine, later, rest, depth - 1, breadth, min_bits)
-        if total >= bound:
-            return total
-    return total

@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Iterable
+from collections.abc import Iterable
 
 import numpy as np
 
@@ -43,14 +43,18 @@ from troubleshoot.model import Check
 BITS_EPSILON = 1e-12
 
 
+def entropy_bits(p: np.ndarray) -> np.ndarray:
+    """H = -sum_k p_k log2 p_k over the last axis (a distribution over outcomes); 0 log 0 = 0, never NaN."""
+    p = np.clip(np.asarray(p, dtype=float), 0.0, 1.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        terms = np.where(p > 0.0, -p * np.log2(np.where(p > 0.0, p, 1.0)), 0.0)
+    return terms.sum(axis=-1)
+
+
 def binary_entropy_bits(p: np.ndarray) -> np.ndarray:
     """H(p) = -p log2 p - (1 - p) log2 (1 - p), elementwise; 0 at p = 0 and p = 1, never NaN."""
     p = np.clip(np.asarray(p, dtype=float), 0.0, 1.0)
-    out = np.zeros_like(p)
-    inside = (p > 0.0) & (p < 1.0)
-    q = p[inside]
-    out[inside] = -(q * np.log2(q) + (1.0 - q) * np.log2(1.0 - q))
-    return out
+    return entropy_bits(np.stack([p, 1.0 - p], axis=-1))
 
 
 @dataclass(frozen=True)
@@ -70,9 +74,9 @@ class RankRow:
         bits / cost, in bits per cost unit; ``math.inf`` for an informative
         check of cost 0.
     outcomes : tuple of str
-        (normal, abnormal) outcome names.
+        The check's outcome names, normal first.
     p_outcomes : tuple of float
-        P(outcome | findings) for each outcome, in the order of ``outcomes``.
+        P(outcome | findings) of each, in the same order.
     caution : str or None
         The model's safety caution for this check.
     """
@@ -82,8 +86,8 @@ class RankRow:
     cost: float
     bits: float
     score: float
-    outcomes: tuple[str, str]
-    p_outcomes: tuple[float, float]
+    outcomes: tuple[str, ...]
+    p_outcomes: tuple[float, ...]
     caution: str | None = None
 
     def outcome_probabilities(self) -> dict[str, float]:
@@ -148,21 +152,14 @@ def score_of(bits: float, cost: float) -> float:
     return math.inf if bits > 0 else 0.0
 
 
-def entropy_bits(p: np.ndarray, axis: int = -1) -> np.ndarray:
-    """-sum p log2 p over one axis (the outcomes), with 0 log 0 = 0; never NaN."""
-    p = np.clip(np.asarray(p, dtype=float), 0.0, 1.0)
-    logs = np.log2(p, out=np.zeros_like(p), where=p > 0.0)
-    return -(p * logs).sum(axis=axis)
-
-
-def batch_information(joint: np.ndarray, likelihood: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def batch_information(joint: np.ndarray, table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """I(F; T | e) in bits and P(T = t | e) for a stack of checks, in whole arrays.
 
     Parameters
     ----------
     joint : ndarray, shape (n, S)
         P(c | e) over the S joint states of each check's causes.
-    likelihood : ndarray, shape (n, K, S)
+    table : ndarray, shape (n, S, K)
         P(T = t | c) for each of K outcomes (any K >= 1).
 
     Returns
@@ -176,15 +173,14 @@ def batch_information(joint: np.ndarray, likelihood: np.ndarray) -> tuple[np.nda
     ----------
     Cover & Thomas 2006, eq. 2.45; de Kleer & Williams 1987.
     """
-    p_t = np.clip((likelihood * joint[:, None, :]).sum(axis=2), 0.0, 1.0)
-    h_t = entropy_bits(p_t, axis=1)
-    h_t_given_c = (joint * entropy_bits(likelihood, axis=1)).sum(axis=1)
-    bits = h_t - h_t_given_c
+    p_t = np.clip(np.einsum("ij,ijk->ik", joint, table), 0.0, 1.0)
+    h_t_given_c = np.einsum("ij,ij->i", joint, entropy_bits(table))
+    bits = entropy_bits(p_t) - h_t_given_c
     return np.where(bits < BITS_EPSILON, 0.0, bits), p_t
 
 
-def information_bits(posterior: Posterior, check_ids: Iterable[str]) -> dict[str, tuple[float, float]]:
-    """I(F; T | findings) in bits and P(abnormal | findings) of each check, done now.
+def outcome_information(posterior: Posterior, check_ids: Iterable[str]) -> dict[str, tuple[float, np.ndarray]]:
+    """I(F; T | findings) in bits and P(outcome | findings) of each check, done now.
 
     Parameters
     ----------
@@ -196,23 +192,25 @@ def information_bits(posterior: Posterior, check_ids: Iterable[str]) -> dict[str
     Returns
     -------
     dict
-        check id -> (bits, P(last outcome | findings)).
+        check id -> (bits, P(T = each outcome | findings), in the check's outcome order).
 
     Notes
     -----
-    I(F;T|e) = H(T|e) - sum_c P(c|e) H(T|c): the check's noise is
-    independent of everything given its causes c, so H(T | F, e) =
-    sum_c P(c|e) H(T|c). Checks whose families have the same shape are
-    stacked (:meth:`Posterior.family_batches`) and scored together.
+    I(F;T|e) = H(T|e) - sum_c P(c|e) H(T|c) over the check's K outcomes:
+    the check's noise is independent of everything given its causes c, so
+    H(T | F, e) = sum_c P(c|e) H(T|c). Checks whose families have the same
+    number of joint states and outcomes come stacked from
+    :meth:`Posterior.family_batches` (one gather and one sum per shape) and
+    are scored together by :func:`batch_information`.
 
     References
     ----------
     Cover & Thomas 2006, eq. 2.45 (I = H(T) - H(T|F)); de Kleer & Williams 1987.
     """
-    out: dict[str, tuple[float, float]] = {}
+    out: dict[str, tuple[float, np.ndarray]] = {}
     for batch in posterior.family_batches(check_ids):
         bits, p_t = batch_information(batch.joint, batch.likelihood)
-        out.update(zip(batch.checks, zip(bits.tolist(), p_t[:, -1].tolist())))
+        out.update(zip(batch.checks, zip(bits.tolist(), p_t)))
     return out
 
 
@@ -259,8 +257,8 @@ def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
         for check_id, b, p in zip(batch.checks, bits.tolist(), p_t.tolist()):
             check = model.check_by_id[check_id]
             cost = float(check.cost)
-            score = score_of(b, cost)
-            row = _new_row(check_id, check.label, cost, b, score, tuple(check.outcomes), tuple(p), check.caution)
+            row = _new_row(check_id, check.label, cost, b, score_of(b, cost), tuple(check.outcomes), tuple(p),
+                           check.caution)
             rows.append(row)
             keys.append(_sort_key(row))
     order = sorted(range(len(rows)), key=keys.__getitem__)

@@ -38,28 +38,17 @@ def add_parser(subparsers, name):
 
 
 def run(args) -> int:
-    from rich.console import Console
-    from rich.progress import BarColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
-
+    from troubleshoot.progress import ProgressDisplay
     from troubleshoot.study.benchmark import as_json, as_table, run_size
 
-    console = Console(stderr=True)
     results = []
     gave_up: set = set()
-    columns = (SpinnerColumn(), TextColumn("bench: {task.description}"), BarColumn(),
-               TextColumn("{task.completed}/{task.total} sizes"), TimeElapsedColumn())
-    with Progress(*columns, console=console, transient=True) as progress:
-        task = progress.add_task("starting", total=len(args.sizes))
-
-        def show(text: str) -> None:
-            progress.update(task, description=text)
-            if not console.is_terminal:  # a log or CI: one plain line per phase
-                console.print(f"bench: {text}", highlight=False)
-
-        for n in args.sizes:
+    with ProgressDisplay("bench", unit="sizes", delay=0.0) as progress:
+        for i, n in enumerate(args.sizes):
+            progress.count(i, len(args.sizes))
             results.append(run_size(n, seed=args.seed, references=not args.no_references,
-                                    budget=args.budget, progress=show, gave_up=gave_up))
-            progress.advance(task)
+                                    budget=args.budget, progress=progress.message, gave_up=gave_up))
+        progress.count(len(args.sizes), len(args.sizes))
     if args.json:
         print(json.dumps(as_json(results), indent=2))
     else:

@@ -37,6 +37,7 @@ from __future__ import annotations
 
 import gc
 import heapq
+import math
 from collections import deque
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -49,8 +50,11 @@ from troubleshoot.engine.network import Network
 
 #: Default ceiling on the memory the tables may take, in bytes.
 DEFAULT_MEMORY_BUDGET = 2 * 1024**3
-#: Bytes per table entry across the base buffer, a working copy, messages and index plans.
+#: Bytes per table entry across the base buffer, a working copy and messages.
 _BYTES_PER_ENTRY = 8 * 3
+#: Bytes per table entry of the index plans kept beside the tables (the
+#: parents' gathers of every level and the marginals' gathers, int64 each).
+_PLAN_BYTES_PER_ENTRY = 8 * 2
 #: Cliques are merged while the merged table stays at most this many entries.
 MERGE_ENTRIES = 256
 #: Index arrays of the table layout are built this many entries at a time (bounds peak memory).
@@ -59,6 +63,14 @@ _CHUNK = 1 << 20
 
 class ZeroProbability(Exception):
     """Internal: the findings have probability zero under the network."""
+
+
+class _OverBudget(Exception):
+    """Internal: the elimination cliques made so far already pass the table budget."""
+
+    def __init__(self, clique: frozenset, entries: int, width_bound: int | None = None):
+        super().__init__()
+        self.clique, self.entries, self.width_bound = clique, entries, width_bound
 
 
 @dataclass(frozen=True)
@@ -120,13 +132,61 @@ def moral_graph(network: Network, variables: list[str], families) -> list[set[in
     return adjacency
 
 
-def min_fill_order(adjacency: list[set[int]]) -> tuple[list[int], list[frozenset[int]]]:
+def minor_min_width(adjacency: list[set[int]]) -> tuple[int, frozenset[int]]:
+    """A lower bound on the treewidth of a graph: minor-min-width.
+
+    Repeatedly contract a vertex of least degree into its neighbour of least
+    degree; the largest least degree met bounds the treewidth from below.
+    Returns the bound and the vertex that met it with its neighbours then.
+
+    References
+    ----------
+    V. Gogate and R. Dechter, "A complete anytime algorithm for treewidth",
+    UAI 2004; H. L. Bodlaender and A. M. C. A. Koster, "Treewidth lower
+    bounds", Computer Science Review 2(1), 2008 (MMW).
+    """
+    adj = [set(s) for s in adjacency]
+    alive = [True] * len(adj)
+    heap = [(len(m), v) for v, m in enumerate(adj)]
+    heapq.heapify(heap)
+    bound, where = 0, frozenset[int]()
+    left = len(adj)
+    while left > 1 and heap:
+        d, v = heapq.heappop(heap)
+        if not alive[v] or len(adj[v]) != d:
+            continue
+        m = adj[v]
+        alive[v] = False
+        left -= 1
+        if d > bound:
+            bound, where = d, frozenset([v, *m])
+        if not m:
+            continue
+        u = min(m, key=lambda x: (len(adj[x]), x))
+        for w in m:
+            adj[w].discard(v)
+            if w != u:
+                adj[w].add(u)
+                adj[u].add(w)
+        adj[v] = set()
+        for w in (*m, u):
+            heapq.heappush(heap, (len(adj[w]), w))
+    return bound, where
+
+
+def min_fill_order(adjacency: list[set[int]], max_entries: float = math.inf
+                   ) -> tuple[list[int], list[frozenset[int]]]:
     """Greedy elimination order: least fill-in first, ties by fewest neighbours, then index.
 
     Parameters
     ----------
     adjacency : list of set of int
         An undirected graph (not modified).
+    max_entries : float
+        Raise _OverBudget as soon as the elimination cliques made so far
+        hold more table entries than this (a tree too large is refused
+        without finishing the order); with a finite budget, the
+        minor-min-width lower bound is checked first.
 
     Returns
     -------
@@ -149,8 +209,14 @@ def min_fill_order(adjacency: list[set[int]]) -> tuple[list[int], list[frozenset
     ----------
     Kjaerulff 1990 (min-fill).
     """
+    if max_entries < math.inf:
+        bound, where = minor_min_width(adjacency)
+        if 2 ** (bound + 1) > max_entries:
+            raise _OverBudget(where, 2 ** (bound + 1), bound)
     adj = [set(s) for s in adjacency]
     n = len(adj)
+    entries = 0
+    largest: frozenset[int] = frozenset()
 
     def fill(v: int) -> int:
         nb = adj[v]
@@ -177,6 +243,11 @@ def min_fill_order(adjacency: list[set[int]]) -> tuple[list[int], list[frozenset
         nb = adj[v]
         adj[v] = set()
         neighbours[v] = frozenset(nb)
+        entries += 1 << (len(nb) + 1)
+        if len(nb) + 1 > len(largest):
+            largest = neighbours[v] | {v}
+        if entries > max_entries:
+            raise _OverBudget(largest, entries)
         if not f:
             # v is simplicial: each neighbour a loses exactly the missing
             # pairs (v, b) with b outside v's clique, deg(a) - deg(v) of them.
@@ -662,22 +733,32 @@ def marginal_plan(lay: Layout, sep_offsets: np.ndarray, n_vars: int) -> Marginal
     return MarginalPlan(cat(gathers), cat(targets), tuple(groups))
 
 
-def check_budget(variables: list[str], neighbours: list[frozenset[int]], memory_budget: int) -> None:
-    """Raise NetworkTooLarge, before anything is allocated, if the elimination cliques exceed the budget."""
-    sizes = [len(nb) + 1 for nb in neighbours]
-    entries = sum(1 << s for s in sizes)
-    need = entries * _BYTES_PER_ENTRY
-    if need <= memory_budget:
-        return
-    v = max(range(len(sizes)), key=sizes.__getitem__)
-    largest = neighbours[v] | {v}
+def too_large(variables: list[str], largest, entries: int, memory_budget: int, early: bool,
+              width: int | None = None) -> NetworkTooLarge:
+    """The refusal of a join tree over budget, naming its width, its size and the gates of its largest clique."""
     names = sorted({variables[i].split(DERIVED)[0] for i in largest})
     shown = ", ".join(names[:12]) + (" ..." if len(names) > 12 else "")
-    raise NetworkTooLarge(
-        f"the join tree would need {need / 1024**2:,.0f} MiB (budget {memory_budget / 1024**2:,.0f} MiB): "
-        f"width {len(largest) - 1}, {entries:,} table entries; the largest clique joins {shown}. "
+    need = entries * (_BYTES_PER_ENTRY + _PLAN_BYTES_PER_ENTRY)
+    more = " or more" if early else ""
+    width = max(len(largest) - 1, width or 0)
+    return NetworkTooLarge(
+        f"the join tree would need {need / 1024**2:,.0f} MiB{more} (budget {memory_budget / 1024**2:,.0f} MiB): "
+        f"width {width}{more}, {entries:,} table entries{more}; the largest clique so far joins {shown}. "
         "Split checks with many causes, or remove repeated events shared across these gates"
     )
+
+
+def check_budget(variables: list[str], neighbours: list[frozenset[int]], memory_budget: int) -> None:
+    """Raise NetworkTooLarge, before anything is allocated, if the elimination cliques exceed the budget.
+
+    The tables (base, working copy, messages) and their index plans are counted.
+    """
+    sizes = [len(nb) + 1 for nb in neighbours]
+    entries = sum(1 << s for s in sizes)
+    if entries * (_BYTES_PER_ENTRY + _PLAN_BYTES_PER_ENTRY) <= memory_budget:
+        return
+    v = max(range(len(sizes)), key=sizes.__getitem__)
+    raise too_large(variables, neighbours[v] | {v}, entries, memory_budget, early=False)
 
 
 # -- the compiled tree ------------------------------------------------------------
@@ -731,7 +812,11 @@ class JoinTree:
         n = len(self.variables)
 
         adjacency = moral_graph(network, self.variables, self.families)
-        order, neighbours = min_fill_order(adjacency)
+        try:
+            order, neighbours = min_fill_order(adjacency, memory_budget / (_BYTES_PER_ENTRY + _PLAN_BYTES_PER_ENTRY))
+        except _OverBudget as over:
+            raise too_large(self.variables, over.clique, over.entries, memory_budget, early=True,
+                            width=over.width_bound) from None
         check_budget(self.variables, neighbours, memory_budget)
         position = [0] * n
         for i, v in enumerate(order):
@@ -897,7 +982,7 @@ class JoinTree:
         return plan
 
     # -- propagation -----------------------------------------------------
-    def propagate(self, evidence: list[Evidence]) -> "Calibrated":
+    def propagate(self, evidence: list[Evidence]) -> Calibrated:
         """Collect and distribute with the given likelihoods; raises ZeroProbability.
 
         Returns the calibrated clique tables and log P(evidence).
@@ -942,8 +1027,56 @@ class JoinTree:
                 work[lev.lo : lev.hi] *= ratio.repeat(lev.block_sizes)
         return Calibrated(self, work, new, log_p)
 
+    def max_propagate(self, evidence: list[Evidence]) -> tuple[dict[int, int], float]:
+        """The most probable joint state of every variable with the evidence: max-product collect, then decode.
+
+        Returns (variable index -> state, log max P(state, evidence)). One
+        collect pass with max in place of sum, level by level over the same
+        plans as :meth:`propagate` (block maxima into messages, each
+        normalised as it is sent); the decoding walks the tree from the
+        roots, each clique taking its best state given what its parent
+        chose. Memory: one copy of the tables. Raises ZeroProbability.
+
+        References
+        ----------
+        A. P. Dawid, "Applications of a general propagation algorithm for
+        probabilistic expert systems", Statistics and Computing 2, 1992
+        (max-propagation in a join tree).
+        """
+        work = self.base.copy()
+        offsets, shapes = self.offsets, self.shapes
+        for ev in evidence:
+            c = ev.clique
+            work[offsets[c] : offsets[c + 1]].reshape(shapes[c])[...] *= ev.factor
+        z = np.empty(len(self.cliques))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            for lev in reversed(self._levels):
+                raw = np.maximum.reduceat(work[lev.lo : lev.hi], lev.block_starts)
+                zl = z[lev.first : lev.last]
+                np.maximum.reduceat(raw, lev.sep_starts, out=zl)
+                msg = raw / zl.repeat(lev.sep_counts)
+                for length, gather in lev.rounds:
+                    work[lev.parent_lo : lev.parent_lo + length] *= msg[gather]
+            roots = work[: self.offsets[self._roots_end]]
+            np.maximum.reduceat(roots, self._root_starts, out=z[: self._roots_end])
+            if not z.min(initial=1.0) > 0.0:
+                raise ZeroProbability
+            log_m = float(np.log(z).sum())
+        state: dict[int, int] = {}
+        for c, members in enumerate(self.cliques):  # numbered level by level: parents first
+            table = work[offsets[c] : offsets[c + 1]].reshape(shapes[c])
+            index = tuple(state[v] if v in state else slice(None) for v in members)
+            sub = table[index]
+            free = [v for v in members if v not in state]
+            best = np.unravel_index(int(np.argmax(sub)), sub.shape) if free else ()
+            for v, s in zip(free, best):
+                state[v] = int(s)
+        return state, log_m
+
 
 class Calibrated:
+
+
     """Clique and separator tables after propagation: each is the posterior of its variables."""
 
     def __init__(self, tree: JoinTree, work: np.ndarray, separators: np.ndarray, log_p: float):

@@ -54,7 +54,7 @@ REPLAY_TOLERANCE = 1e-9
 
 def utc_now() -> str:
     """The current time, ISO 8601 in UTC, e.g. ``2024-05-01T09:30:00.123456Z``."""
-    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
 def _json_score(score: float):
@@ -93,6 +93,7 @@ def header_record(session: Session) -> dict:
         "model_name": session.model.name,
         "model_path": str(path) if path else None,
         "model_sha256": file_sha256(path) if path else None,
+        "engine": session.engine.name,
         "settings": {
             "isolation_threshold": session.settings.isolation_threshold,
             "min_bits": session.settings.min_bits,
@@ -166,7 +167,7 @@ def create_log_file(log_path: str | os.PathLike | None = None) -> tuple[Path, in
         raise LogError(f"{directory}: cannot create the session log folder ({exc.strerror}); "
                        "give --log PATH") from None
     for _ in range(16):
-        stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%S%fZ")
+        stamp = _dt.datetime.now(_dt.UTC).strftime("%Y%m%dT%H%M%S%fZ")
         path = directory / f"{stamp}-{secrets.token_hex(4)}.jsonl"
         try:
             fd = os.open(path, flags, 0o644)

@@ -18,7 +18,7 @@ import datetime as _dt
 import json
 import sys
 from pathlib import Path
-from typing import Callable
+from collections.abc import Callable
 
 from textual.app import App
 from textual.binding import Binding
@@ -50,7 +50,7 @@ def _log_start_time(path: Path | None) -> _dt.datetime | None:
         with open(path, encoding="utf-8") as handle:
             header = json.loads(handle.readline())
         stamp = str(header["time"]).rstrip("Z")
-        return _dt.datetime.fromisoformat(stamp).replace(tzinfo=_dt.timezone.utc)
+        return _dt.datetime.fromisoformat(stamp).replace(tzinfo=_dt.UTC)
     except (OSError, ValueError, KeyError, TypeError):
         return None
 
@@ -83,7 +83,7 @@ class TroubleshootApp(App[int]):
         self.busy = False
         self.messages: list[str] = []  # every message shown, newest last (the screen shows them as toasts)
         self.log_path = log_path_of(session)
-        self.started = _log_start_time(self.log_path) or _dt.datetime.now(_dt.timezone.utc)
+        self.started = _log_start_time(self.log_path) or _dt.datetime.now(_dt.UTC)
         self.summary_written: Path | None = None
         model = session.model
         self.complaint = model.top_label or model.label_of(model.top)
@@ -217,7 +217,7 @@ class TroubleshootApp(App[int]):
             return None
         path = summary_path(self.log_path)
         text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
-                                _dt.datetime.now(_dt.timezone.utc))
+                                _dt.datetime.now(_dt.UTC))
         try:
             path.write_text(text, encoding="utf-8")
         except OSError as exc:
@@ -229,7 +229,7 @@ class TroubleshootApp(App[int]):
     def show_summary(self) -> None:
         path = self.write_summary()
         text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
-                                _dt.datetime.now(_dt.timezone.utc))
+                                _dt.datetime.now(_dt.UTC))
         if path is not None:
             text += f"\nThis summary is also written to `{path}`.\n"
         self.push_screen(SummaryScreen(text))
