@@ -273,7 +273,7 @@ def test_second_demo_checks_repair_and_verification(tmp_path):
         return app.return_code
 
     assert run(scenario()) == 0
-    assert len([a for a in app.session.actions if a["action"] == "finding"]) == len(model.symptoms) + 2
+    assert len([a for a in app.session.actions if a.kind == "finding"]) == len(model.symptoms) + 2
     replay_ok(log)
 
 
@@ -358,7 +358,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
         return app.return_code
 
     assert run(scenario()) == 0
-    kinds = [a["action"] for a in session.actions]
+    kinds = [a.kind for a in session.actions]
     for kind in ("skip", "undo", "finding", "retract", "correct", "note"):
         assert kind in kinds
     assert summary_path(log).exists()  # quitting brings the summary up to date

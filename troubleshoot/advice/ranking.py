@@ -36,6 +36,7 @@ from collections.abc import Iterable
 import numpy as np
 
 from troubleshoot.engine.inference import Posterior
+from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.model import Check
 
 #: Information below this many bits is treated as exactly zero (floating-point
@@ -214,13 +215,18 @@ def outcome_information(posterior: Posterior, check_ids: Iterable[str]) -> dict[
     return out
 
 
-def _sort_key(row: RankRow):
-    # Round the score to 12 significant digits so checks whose scores agree
-    # analytically but differ in the last bit still fall to the cost/id tie-break.
-    # Free informative checks (infinite score) are ordered among themselves by bits.
-    if math.isinf(row.score):
-        return (-row.score, -row.bits, row.cost, row.check)
-    return (-float(f"{row.score:.12g}"), 0.0, row.cost, row.check)
+def _ordered(rows: list[RankRow]) -> list[RankRow]:
+    """Rows best first: by score, ties (within the tolerance) by cost, then id.
+
+    Free informative checks (infinite score) are ordered among themselves by
+    bits. Scores are compared with :func:`~troubleshoot.advice.ties.tie_ranks`,
+    so checks whose scores agree analytically but differ in the last bits
+    still fall to the cost/id tie-break.
+    """
+    score_rank = tie_ranks([r.score for r in rows])
+    bits_rank = tie_ranks([r.bits if math.isinf(r.score) else 0.0 for r in rows])
+    keyed = sorted(range(len(rows)), key=lambda i: (score_rank[i], bits_rank[i], rows[i].cost, rows[i].check))
+    return [rows[i] for i in keyed]
 
 
 def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
@@ -251,15 +257,11 @@ def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
     model = posterior.model
     ids = [c.id if isinstance(c, Check) else c for c in checks]
     rows = []
-    keys = []
     for batch in posterior.family_batches(ids):
         bits, p_t = batch_information(batch.joint, batch.likelihood)
         for check_id, b, p in zip(batch.checks, bits.tolist(), p_t.tolist()):
             check = model.check_by_id[check_id]
             cost = float(check.cost)
-            row = _new_row(check_id, check.label, cost, b, score_of(b, cost), tuple(check.outcomes), tuple(p),
-                           check.caution)
-            rows.append(row)
-            keys.append(_sort_key(row))
-    order = sorted(range(len(rows)), key=keys.__getitem__)
-    return Ranking(tuple(rows[i] for i in order), posterior.epoch)
+            rows.append(_new_row(check_id, check.label, cost, b, score_of(b, cost), tuple(check.outcomes),
+                                 tuple(p), check.caution))
+    return Ranking(tuple(_ordered(rows)), posterior.epoch)

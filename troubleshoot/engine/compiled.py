@@ -66,7 +66,8 @@ import numpy as np
 
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.engine.observation import CheckFamily, check_family
-from troubleshoot.model import Model, unlisted_id
+from troubleshoot.model import Model
+from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective
 
 #: The name this path reports (``suggest --json`` key ``engine``).
 ENGINE_NAME = "decision diagram"
@@ -112,10 +113,7 @@ def root_order(model: Model) -> tuple[str, ...]:
         if gate is None:
             order.append(node)
             continue
-        children = list(gate.operands)
-        if gate.unlisted is not None:
-            children.append(unlisted_id(gate.id))
-        stack.extend(reversed(children))
+        stack.extend(reversed(connective(gate).operands))
     order += [r for r in model.hypotheses if r not in seen]
     return tuple(order)
 
@@ -347,35 +345,26 @@ class CompiledModel:
         found = self._gates.get(node_id)
         if found is not None:
             return found
-        # Post-order without Python recursion over the gate graph.
+        # Children first, without Python recursion; what a gate computes is
+        # read from model/gates.py, the one statement of gate semantics.
         gates = self.model.gate_by_id
-        stack = [(node_id, False)]
-        while stack:
-            gid, expanded = stack.pop()
-            if gid in self._gates or gid in self.level:
-                continue
-            gate = gates[gid]
-            if not expanded:
-                stack.append((gid, True))
-                stack.extend((x, False) for x in gate.operands if x in gates and x not in self._gates)
-                continue
-            ins = [self.function(x) for x in gate.inputs]
-            if gate.kind in ("and", "inhibit"):
+        for gid in bottom_up(self.model, [node_id], skip=self._gates.__contains__):
+            conn = connective(gates[gid])
+            ins = [self.function(x) for x in conn.operands]
+            if conn.op == AND:
                 f = 1
-                for g in ins + ([self.function(gate.condition)] if gate.condition else []):
+                for g in ins:
                     f = s.and_(f, g)
-            elif gate.kind == "or":
+            elif conn.op == OR:
                 f = 0
                 for g in ins:
                     f = s.or_(f, g)
-                if gate.unlisted is not None:
-                    f = s.or_(f, s.variable(self.level[unlisted_id(gate.id)]))
-            elif gate.kind == "atleast":
-                f = self._at_least(int(gate.k or 0), ins)
-            elif gate.kind == "not":
+            elif conn.op == ATLEAST:
+                f = self._at_least(conn.threshold(), ins)
+            elif conn.op == NOT:
                 f = s.not_(ins[0])
-            else:
-                raise ValueError(f"unknown gate kind {gate.kind!r}")
+            else:  # pragma: no cover - connective() knows no other
+                raise ValueError(f"unknown connective {conn.op!r}")
             self._gates[gid] = f
         return self._gates[node_id]
 
