@@ -20,20 +20,29 @@ def add_parser(subparsers, name):
     p.add_argument("--budget", type=float, default=REFERENCE_BUDGET_S, metavar="SECONDS",
                    help="time a reference library may take per job (default: %(default)s s)")
     p.add_argument("--seed", type=int, default=1, help="seed of the synthetic trees (default: 1)")
+    p.add_argument("--three-outcomes", type=float, default=0.0, metavar="SHARE",
+                   help="also time the step on the same trees with this share of the checks read as "
+                        "low / normal / high (e.g. 0.33), against the two-outcome trees")
     return p
 
 
 def run(args) -> int:
     from troubleshoot.study.benchmark import as_json, as_table, run_size
 
+    from troubleshoot.errors import InputError
     from troubleshoot.progress import ProgressDisplay
+
+    if not 0.0 <= args.three_outcomes <= 1.0:
+        raise InputError(f"--three-outcomes {args.three_outcomes:g} is not a share; give a number from 0 to 1, "
+                         "such as 0.33")
 
     results = []
     with ProgressDisplay("bench", delay=0.0) as progress:
         for i, n in enumerate(args.sizes, start=1):
             progress.count(i - 1, len(args.sizes))
             results.append(run_size(n, seed=args.seed, references=not args.no_references,
-                                    budget=args.budget, progress=progress.message))
+                                    budget=args.budget, progress=progress.message,
+                                    three_outcomes=args.three_outcomes))
     if args.json:
         print(json.dumps(as_json(results), indent=2))
     else:
