@@ -571,46 +571,63 @@ class FleetEngine(Engine):
             return self._trees[key]
         known = self._structures.get(key)
         if known is None:
-            known = _Structure(*super().compiled(repairs, everything))
+            canonical = self._structures.get("canonical")
+            if canonical is None:
+                canonical = self._structures["canonical"] = _CanonicalEngine(self.model)
+            known = _Structure(*canonical.compiled(repairs, everything))
             self._structures[key] = known
-        # Always through the refit, so a tree's numbers never depend on when it was first compiled.
         self._trees[key] = known.refit(self.model)
         return self._trees[key]
+
+
+class _CanonicalEngine(Engine):
+    """The model's structure with every root at probability 1/2: what every refit starts from.
+
+    Multiplying a clique by 2 (1 - p) and 2 p is exact in floating point, so a refitted tree holds
+    the same bits whichever figures were current when its structure was first met (in any process).
+    """
+
+    cache_size = 4096
+
+    def __init__(self, model: Model):
+        half = replace(parameters_of(model), roots=np.full(len(model.hypotheses), 0.5))
+        super().__init__(model_with(model, half))
 
 
 class _Families(dict):
     """A network's check families, each built when first asked for (EM reads only the checks made)."""
 
-    def __init__(self, builder, model: Model):
+    def __init__(self, net, model: Model, keys):
         super().__init__()
-        self._builder = builder
+        self._net = net
         self._model = model
+        self._keys = tuple(keys)
+
+    def items(self):  # type: ignore[override]
+        for key in self._keys:  # a reader of every family (the batch ranking) gets every one
+            self[key]
+        return super().items()
 
     def __missing__(self, key):
-        family = self._builder.family(self._model.check_by_id[key[0]], key[1])
+        from troubleshoot.engine.observation import check_family
+
+        check, epoch = self._model.check_by_id[key[0]], key[1]
+        family = check_family(check, epoch, lambda target: self._net.node_for(target, epoch))
         self[key] = family
         return family
 
 
 class _Structure:
-    """A compiled (network, tree) kept for its structure, with the clique potentials before the root tables."""
+    """A (network, tree) compiled with every root at 1/2, kept for its structure."""
 
     def __init__(self, net, tree):
-        import copy
-
         self.net, self.tree = net, tree
-        roots = [r for r in net.model.hypotheses if r in tree.index]
-        flat = net.graph.copy()
-        for r in roots:
-            flat.nodes[r]["table"] = np.ones(2)
-        scratch = copy.copy(tree)
-        scratch.network = copy.copy(net)
-        scratch.network.graph = flat
-        self.base = scratch._base_potentials()  # every deterministic table, no root's
         self.slots = []
-        for r in roots:
+        for r in net.model.hypotheses:
+            if r not in tree.index:
+                continue
             i = tree.index[r]
-            c = tree._host_of_group([i])
+            c = int(tree.var_host[i])  # the clique a single variable's table went into
             shape = [1] * len(tree.cliques[c])
             shape[tree.cliques[c].index(i)] = 2
             self.slots.append((r, int(tree.offsets[c]), int(tree.offsets[c + 1]), tree.shapes[c], tuple(shape)))
@@ -618,24 +635,22 @@ class _Structure:
     def refit(self, model: Model):
         """The network and tree with ``model``'s figures: root tables into their cliques, families anew.
 
-        The network's graph stays the structure's (its root tables are those it was compiled with);
-        inference reads only the tree's potentials and the families.
+        The network's graph stays the structure's (its root tables are the 1/2 it was compiled
+        with); inference reads only the tree's potentials and the families.
         """
         import copy
 
-        from troubleshoot.engine.network import MAX_FANIN, _Builder
-
         net = copy.copy(self.net)
         net.model = model
-        builder = _Builder(model, self.net.repairs, MAX_FANIN)
-        builder.net.gate_node = self.net.gate_node  # read only: every (gate, epoch) is already there
-        net.families = _Families(builder, model)
+        net.families = _Families(net, model, self.net.families)
         tree = copy.copy(self.tree)
         tree.network = net
-        base = self.base.copy()
+        tree.families = _Families(net, model, self.tree.families)
+        tree._batch_plans = {}  # they hold the check tables of the figures compiled with
+        base = self.tree.base.copy()
         for root, start, stop, clique_shape, shape in self.slots:
             p = model.prior_of(root)
-            base[start:stop].reshape(clique_shape)[...] *= np.array([1.0 - p, p]).reshape(shape)
+            base[start:stop].reshape(clique_shape)[...] *= np.array([2.0 * (1.0 - p), 2.0 * p]).reshape(shape)
         tree.base = base
         return net, tree
 

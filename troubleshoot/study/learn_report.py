@@ -167,6 +167,14 @@ def markdown(result: LearnResult, output: str) -> str:
     return "\n".join(lines)
 
 
+def _plot_label(result: LearnResult, f) -> str:
+    if f.kind == "root":
+        return f.id
+    graded = len(result.model.check_by_id[f.check].outcomes) > 2
+    what = f"{f.check}: false alarm" if f.kind == "false-alarm" else f.id
+    return f"{what} -> {f.outcome}" if graded else what
+
+
 def plot(result: LearnResult, path: str, plt) -> None:
     """Before / after with intervals, root events on the left, check figures on the right (PNG)."""
     roots = [f for f in result.figures if f.kind == "root"]
@@ -182,8 +190,7 @@ def plot(result: LearnResult, path: str, plt) -> None:
         err = [[max(0.0, f.after - f.low) for f in figs], [max(0.0, f.high - f.after) for f in figs]]
         ax.errorbar(after, y, xerr=err, fmt="s", color="tab:blue", ms=4, capsize=2,
                     label=f"learned, {int(INTERVAL * 100)} % interval", zorder=2)
-        ax.set_yticks(y, [f.id if f.kind != "false-alarm" else f"{f.check}: false alarm" for f in figs],
-                      fontsize=6)
+        ax.set_yticks(y, [_plot_label(result, f) for f in figs], fontsize=6)
         ax.invert_yaxis()
         if log and figs and min(min(f.low, f.before) for f in figs) > 0:
             ax.set_xscale("log")
