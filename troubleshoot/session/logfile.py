@@ -51,7 +51,7 @@ from typing import Any
 from troubleshoot.errors import LogError, SessionError, TroubleshootError
 from troubleshoot.files import open_input, read_fd
 from troubleshoot.model import Model
-from troubleshoot.session.actions import Action, ActionError, Resume, action_from_record, describe
+from troubleshoot.session.actions import Action, ActionError, Resume, action_from_record
 from troubleshoot.session.session import STATUSES, Session, SessionView, settings_for
 
 try:  # advisory lock so two processes never append to one log
@@ -132,11 +132,6 @@ def header_record(session: Session, version: int = LOG_FORMAT_VERSION) -> dict:
         "time": utc_now(),
         **snapshot(session.view),
     }
-
-
-def describe_action(action: Action | dict) -> str:
-    """An action in words (see :func:`troubleshoot.session.actions.describe`)."""
-    return describe(action)
 
 
 def encode_line(record: dict, seq: int, prev: str | None, version: int = LOG_FORMAT_VERSION) -> tuple[bytes, str | None]:
@@ -331,10 +326,6 @@ class LogLine:
     number: int
     record: dict
     action: Action
-
-    # (number, record) unpacking, as the first readers of LogContents.actions used it
-    def __iter__(self):
-        return iter((self.number, self.record))
 
 
 @dataclass
