@@ -193,7 +193,7 @@ class Engine:
                 or finding.target in model.event_by_id or finding.target in model.hypotheses):
             raise SessionError(f"unknown check, symptom or event {finding.target!r} in model {model.name!r}")
 
-    def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | None:
+    def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | _ConstantLikelihood:
         model = self.model
         self._validate(finding, net.epochs)
         if finding.target in model.check_by_id:
@@ -262,7 +262,8 @@ class Engine:
                 raise
             self._switch(exc)
             return self._run_compiled(tuple(findings), tuple(repairs))
-        evidence, log_constant = [], 0.0
+        evidence: list[Evidence] = []
+        log_constant = 0.0
         for f in findings:
             ev = self._evidence(net, tree, f)
             if isinstance(ev, _ConstantLikelihood):
