@@ -275,7 +275,7 @@ class Engine:
         calibrated = tree.propagate(evidence)
         return net, tree, calibrated, log_constant, evidence
 
-    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> Posterior | CompiledPosterior:
+    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> AnyPosterior:
         """Posterior given findings (in order) and the repairs made so far.
 
         Raises
@@ -297,7 +297,7 @@ class Engine:
             raise ImpossibleFindings([describe_finding(self.model, f, repairs)
                                       for f in self.conflict(findings, repairs)]) from None
         self.propagations += 1
-        post: Posterior | CompiledPosterior
+        post: AnyPosterior
         if isinstance(run, Passes):
             assert self._diagram is not None
             post = CompiledPosterior(self.model, self._diagram, run, findings, repairs)
@@ -640,3 +640,7 @@ class CompiledPosterior:
         state, log_joint = self.passes.max_state()
         failed = tuple(r for r, lv in zip(self.model.hypotheses, self._levels) if state[lv] == 1)
         return failed, float(np.exp(min(0.0, log_joint - self.log_p)))
+
+
+#: What :meth:`Engine.propagate` gives: either posterior, read through the same interface.
+AnyPosterior = Posterior | CompiledPosterior
