@@ -214,7 +214,8 @@ def test_whole_session_to_confirmed_repair(tmp_path):
             assert "acknowledged" in screen.message
             await pilot.press(str(technician.outcome(screen.card.target, ()) + 1))
             await settle(app, pilot)
-            assert len(app.session.actions) == actions_before + 1
+            assert len(app.session.actions) == actions_before + 2  # the acknowledgement is logged too
+            assert [a.kind for a in app.session.actions[-2:]] == ["acknowledge", "finding"]
 
             await diagnose_to_the_end(app, pilot, technician)
             assert isinstance(app.screen, SummaryScreen)
