@@ -284,7 +284,7 @@ class Expressions:
 
     def _compute(self, node, values: dict, in_progress: dict[str, None]) -> float | None:
         """The value of ``node`` from the values of what it needs (all present now)."""
-        tag = tag_of(node)
+        tag = tag_of(node) or ""
         line = node.sourceline
         if tag == "parameter":
             name = node.get("name")
@@ -302,6 +302,7 @@ class Expressions:
                 mean = deviate_mean(tag, args)
             else:
                 mean = None
+                assert tag is not None, "only elements that take arguments (see _needs) are computed"
                 result = self._arithmetic(tag, args)
         except DomainError as exc:
             self.error(line, f"<{tag}> is outside its domain: {exc}; correct its arguments")
