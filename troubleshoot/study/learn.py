@@ -603,7 +603,7 @@ class _Families(dict):
         self._model = model
         self._keys = tuple(keys)
 
-    def items(self):  # type: ignore[override]
+    def items(self):
         for key in self._keys:  # a reader of every family (the batch ranking) gets every one
             self[key]
         return super().items()
