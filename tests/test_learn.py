@@ -296,7 +296,7 @@ def test_fold_follows_the_session(tmp_path):
     ]
     session = _log_session(model_path, tmp_path / "s.jsonl", actions)
     contents = read_log(tmp_path / "s.jsonl")
-    data = fold_actions(session.model, [r["action"] for _, r in contents.actions])
+    data = fold_actions(session.model, [line.action for line in contents.actions])
     assert data.findings == session.findings
     assert data.repairs == session.repairs
     assert data.confirmed == "refrigerant_leak"
