@@ -13,6 +13,7 @@ from hypothesis import strategies as st
 
 import bruteforce as bf
 from randommodels import random_model
+from test_inference import _random_findings
 from troubleshoot.advice.ranking import rank
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.engine.network import build_network
@@ -21,16 +22,6 @@ from troubleshoot.errors import ImpossibleFindings, SessionError
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model
 
 TOL = 1e-9  # exact paths (DESIGN.md, Numbers)
-
-
-def _findings(model: Model, rng: random.Random, repairs: tuple[str, ...]) -> list[Finding]:
-    findings = [Finding(model.top, 1, 0)]
-    for epoch in range(len(repairs) + 1):
-        for check in rng.sample(list(model.checks), min(2, len(model.checks))):
-            findings.append(Finding(check.id, rng.randrange(len(check.outcomes)), epoch))
-        if epoch:
-            findings.append(Finding(model.top, rng.randint(0, 1), epoch))
-    return findings
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -42,7 +33,7 @@ def test_k_outcome_posteriors_log_p_and_bits_equal_brute_force(seed, n_events, n
     model = random_model(seed, n_events=n_events, n_gates=n_gates, n_checks=4, max_outcomes=4)
     rng = random.Random(seed)
     repairs = tuple(rng.sample([e.id for e in model.basic_events], min(n_repairs, n_events)))
-    findings = _findings(model, rng, repairs)
+    findings = _random_findings(model, rng, repairs)
     ref = bf.posterior(model, findings, repairs)
     engine = Engine(model)
     if ref["log_p"] == -math.inf:
@@ -367,3 +358,27 @@ def test_export_carries_every_outcome(tmp_path, capsys):
     assert main(["export", "rooftop", "--format", "xmlbif", "-o", str(out)]) == 0
     var = [v for v in etree.parse(str(out)).iter("VARIABLE") if v.findtext("NAME") == "compressor_current"][0]
     assert [o.text for o in var.iter("OUTCOME")] == ["near rated", "low", "high"]
+
+
+def test_synthetic_three_outcome_variant_keeps_the_tree_and_every_total():
+    from troubleshoot.study.synthetic import synthetic_model
+
+    two = synthetic_model(300, seed=4)
+    three = synthetic_model(300, seed=4, three_outcome_share=1 / 3)
+    assert (two.gates, two.basic_events) == (three.gates, three.basic_events)
+    assert [c.id for c in two.checks] == [c.id for c in three.checks]
+    graded = [c for c in three.checks if len(c.outcomes) == 3]
+    assert 0.2 < len(graded) / len(three.checks) < 0.45
+    for old, new in zip(two.checks, three.checks):
+        assert new.false_alarm == pytest.approx(old.false_alarm, abs=1e-15)
+        for a, b in zip(old.causes, new.causes):
+            assert (a.target, b.detection) == (b.target, pytest.approx(a.detection, abs=1e-15))
+
+
+def test_bench_prints_the_three_outcome_step_beside_the_two_outcome_one(capsys):
+    from troubleshoot.cli import main
+
+    assert main(["bench", "--sizes", "100", "--no-references", "--three-outcomes", "0.33"]) == 0
+    assert "33% of the checks with three outcomes: step" in capsys.readouterr().out
+    assert main(["bench", "--three-outcomes", "1.5"]) == 2
+    assert "give a number from 0 to 1" in capsys.readouterr().err
