@@ -31,11 +31,11 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 
 import numpy as np
 
-from troubleshoot.engine.inference import Posterior
+from troubleshoot.engine.inference import AnyPosterior
 from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.model import Check
 
@@ -119,7 +119,7 @@ class Ranking:
     def __init__(self, rows: tuple[RankRow, ...] = (), epoch: int = 0):
         self.epoch = epoch
         self._rows: list[RankRow | None] = list(rows)
-        self._make = None
+        self._make: Callable[[int], RankRow] | None = None
         self._bits: np.ndarray | None = None
         self._position: dict[str, int] | None = None
 
@@ -136,6 +136,7 @@ class Ranking:
     def _row(self, i: int) -> RankRow:
         row = self._rows[i]
         if row is None:
+            assert self._make is not None  # only a deferred ranking has rows still to build
             row = self._rows[i] = self._make(i)
         return row
 
@@ -228,7 +229,7 @@ def batch_information(joint: np.ndarray, table: np.ndarray) -> tuple[np.ndarray,
     return np.where(bits < BITS_EPSILON, 0.0, bits), p_t
 
 
-def outcome_information(posterior: Posterior, check_ids: Iterable[str]) -> dict[str, tuple[float, np.ndarray]]:
+def outcome_information(posterior: AnyPosterior, check_ids: Iterable[str]) -> dict[str, tuple[float, np.ndarray]]:
     """I(F; T | findings) in bits and P(outcome | findings) of each check, done now.
 
     Parameters
@@ -279,7 +280,7 @@ def _order(checks: list[str], costs: np.ndarray, scores: np.ndarray, bits: np.nd
     return np.lexsort((np.array(checks), costs, bits_rank, score_rank))
 
 
-def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
+def rank(posterior: AnyPosterior, checks: Iterable[str | Check]) -> Ranking:
     """Score every candidate check from one propagation and sort them, best first.
 
     Parameters
@@ -307,7 +308,8 @@ def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
     model = posterior.model
     ids = [c.id if isinstance(c, Check) else c for c in checks]
     names: list[str] = []
-    bits_parts, p_parts = [], []
+    bits_parts: list[np.ndarray] = []
+    p_parts: list[np.ndarray] = []
     for batch in posterior.family_batches(ids):
         bits, p_t = batch_information(batch.joint, batch.likelihood)
         names.extend(batch.checks)
