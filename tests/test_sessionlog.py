@@ -122,10 +122,13 @@ def test_torn_last_line_is_skipped_and_resume_truncates_it(model_file, tmp_path)
     assert len(contents.actions) == 4 and "cut off" in contents.warnings[0]
     resumed = resume_session(log)
     assert any("skipped" in w for w in resumed.resume_warnings)
-    assert log.read_bytes() == good  # the torn tail is gone, nothing before it lost
+    # The torn tail is gone, nothing before it lost; the resume itself is logged after it.
+    assert log.read_bytes().startswith(good)
+    assert lines_of(log)[-1]["action"]["action"] == "resume" and lines_of(log)[-1]["seq"] == 5
+    assert "torn" in lines_of(log)[-1]["action"]["reason"]
     resumed.apply(ACTIONS[4])
     resumed.close()
-    assert lines_of(log)[-1]["seq"] == 5
+    assert lines_of(log)[-1]["seq"] == 6
     assert replay_log(log).confirmed
 
 
@@ -168,7 +171,7 @@ def test_session_killed_with_sigkill_resumes_and_replays(model_file, tmp_path):
         proc.wait(timeout=60)
     assert proc.returncode == -signal.SIGKILL
     resumed = resume_session(log)
-    assert resumed.actions == ACTIONS[:5]
+    assert resumed.actions == ACTIONS[:5] + [{"action": "resume"}]  # the resume is logged
     for action in ACTIONS[5:]:
         resumed.apply(action)
     assert resumed.status == "confirmed"

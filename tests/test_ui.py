@@ -144,7 +144,8 @@ async def diagnose_to_the_end(app, pilot, technician, max_steps=60) -> None:
             return
         if state.status == "diagnosing":
             assert isinstance(app.screen, MainScreen)
-            check_id = state.ranking[0].check
+            check_id = state.next_check.check  # the recommended check is the first row
+            assert rows(app)[0] == check_id
             await pilot.press("home", "enter")
             await pilot.pause()
             assert app.screen.card.target == check_id
@@ -163,6 +164,11 @@ async def diagnose_to_the_end(app, pilot, technician, max_steps=60) -> None:
             assert isinstance(screen, CheckScreen) and screen.card.verification
             await enter_outcome(app, pilot, technician.outcome(screen.card.target, state.repairs))
     raise AssertionError(f"no confirmed repair after {max_steps} steps; status {app.state.status}")
+
+
+def rows(app) -> list[str]:
+    """The check ids in the order the main screen lists them."""
+    return app.screen.query_one("#checks").row_ids()
 
 
 def replay_ok(log: Path) -> None:
@@ -196,7 +202,8 @@ def test_whole_session_to_confirmed_repair(tmp_path):
 
             # The first check with a caution: an outcome before acknowledging is refused.
             state = app.state
-            with_caution = next(i for i, r in enumerate(state.ranking) if r.caution)
+            cautions = {r.check for r in state.ranking if r.caution}
+            with_caution = next(i for i, c in enumerate(rows(app)) if c in cautions)
             await pilot.press("home", *["down"] * with_caution, "enter")
             await pilot.pause()
             screen = app.screen
@@ -212,7 +219,9 @@ def test_whole_session_to_confirmed_repair(tmp_path):
             assert "acknowledged" in screen.message
             await pilot.press(str(technician.outcome(screen.card.target, ()) + 1))
             await settle(app, pilot)
-            assert len(app.session.actions) == actions_before + 1
+            # The acknowledgement is logged, then the finding.
+            assert [a["action"] for a in app.session.actions[actions_before:]] == ["acknowledge", "finding"]
+            assert app.session.actions[actions_before]["check"] == screen.card.target
 
             await diagnose_to_the_end(app, pilot, technician)
             assert isinstance(app.screen, SummaryScreen)
@@ -227,9 +236,11 @@ def test_whole_session_to_confirmed_repair(tmp_path):
     summary = summary_path(log).read_text(encoding="utf-8")
     assert summary_path(log) == log.with_suffix(".md")
     assert model.top_label in summary
-    assert f"Fault isolated and repaired:** {model.label_of(fault)}" in summary
+    assert f"Fault repaired and confirmed:** {model.label_of(fault)}" in summary
+    assert "**Ending:** Confirmed" in summary
     assert str(log) in summary
-    assert f"Total cost:** {app.state.cost_spent:g} {model.cost_unit}" in summary
+    assert f"Cost of the steps, by the model's figures:** {app.state.cost_spent:g} {model.cost_unit}" in summary
+    assert "Caution acknowledged" in summary  # the acknowledgement is logged and listed
     for view in app.state.findings:
         if view.kind == "finding":
             assert view.label in summary and view.outcome in summary
@@ -248,7 +259,7 @@ def test_second_demo_checks_repair_and_verification(tmp_path):
             await settle(app, pilot)
             await mark_symptoms_and_begin(app, pilot, technician)
             for _ in range(2):
-                check_id = app.state.ranking[0].check
+                check_id = rows(app)[0]
                 await pilot.press("home", "enter")
                 await pilot.pause()
                 await enter_outcome(app, pilot, technician.outcome(check_id, ()))
@@ -284,7 +295,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
             assert any("nothing to undo" in m for m in app.messages)
 
             # Skip the top check with a reason: it leaves the ranking; an empty reason is refused.
-            top = app.state.ranking[0]
+            top = next(r for r in app.state.ranking if r.check == rows(app)[0])
             await pilot.press("home", "s")
             await pilot.pause()
             assert isinstance(app.screen, PromptScreen)
@@ -302,7 +313,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
             await pilot.press("u")
             await settle(app, pilot)
             assert app.state.skipped == ()
-            assert app.state.ranking[0].check == top.check
+            assert rows(app)[0] == top.check
 
             # Record an outcome, then retract it: the finding is gone, the check is back.
             await pilot.press("home", "enter")
@@ -330,7 +341,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
             assert finding.outcome_index == 0
 
             # A note goes to the log and the findings panel.
-            await pilot.press("n")
+            await pilot.press("m")
             await pilot.pause()
             await pilot.press(*"flat roof")
             await pilot.press("enter")
@@ -380,7 +391,7 @@ def test_wrong_repair_fault_persists_and_diagnosis_goes_on(tmp_path):
             assert any("persists" in m for m in app.messages)
             assert isinstance(app.screen, MainScreen)
             # The diagnosis goes on: the next check is recorded after the repair.
-            check_id = app.state.ranking[0].check
+            check_id = rows(app)[0]
             await pilot.press("home", "enter")
             await pilot.pause()
             await enter_outcome(app, pilot, technician.outcome(check_id, app.state.repairs))
@@ -447,18 +458,26 @@ def test_every_panel_and_footer_key_fits_80_by_24(tmp_path, theme):
             for key in keys:
                 assert _inside(key.region, *SIZE), f"footer key {key.description!r} does not fit in 80 columns"
             text = screen_text(app)
-            # Every number has its unit: costs, bits, scores, odds and suspects.
+            # Every number has its unit: costs, chances and suspects; no bits by default.
             row = app.state.ranking[1]
             assert f"{row.cost:g} {app.state.cost_unit}" in text
-            assert " bit" in text and "bit/" in text and " %" in text
+            assert " %" in text and "bit" not in text
             top = app.state.suspects[0]
             assert f"{top.p * 100:.1f} %" in text
+            # The figures are one key away, with their units.
+            await pilot.press("f")
+            await pilot.pause()
+            text_figures = screen_text(app)
+            assert " bit" in text_figures and "bit/" in text_figures
+            await pilot.press("f")
+            await pilot.pause()
             # The status is said in a word, not only a colour.
             assert "DIAGNOSING" in text
 
             # The check dialog fits too, caution and message included.
             await pilot.press("home")
-            index = next(i for i, r in enumerate(app.state.ranking) if r.caution)
+            cautions = {r.check for r in app.state.ranking if r.caution}
+            index = next(i for i, c in enumerate(rows(app)) if c in cautions)
             await pilot.press(*["down"] * index, "enter")
             await pilot.pause()
             for widget_id in ("check-title", "check-caution", "check-outcomes", "check-message"):
@@ -480,10 +499,11 @@ def test_larger_terminal_shows_whole_labels_and_marks_the_recommended_check(tmp_
             await pilot.press("b")
             await settle(app, pilot)
             assert app.state.ranking[0].label in screen_text(app)
-            # The recommended check is marked and under the cursor.
+            # The recommended check is marked, first and under the cursor.
             recommended = app.state.next_check
             assert recommended is not None
             assert app.screen.query_one("#checks").highlighted_check() == recommended.check
+            assert rows(app)[0] == recommended.check
             assert "► " + ("⚠ " if recommended.caution else "") + recommended.label in screen_text(app)
             await pilot.press("q")
         return app.return_code
@@ -506,7 +526,7 @@ def test_summary_markdown_from_session_data(tmp_path):
     assert model.symptoms[0].label in text and model.symptoms[0].outcomes[1] in text
     assert "no meter" in text and "roof hatch locked" in text
     assert f"{session.state.cost_spent:g} {model.cost_unit}" in text
-    assert "not finished" in text
+    assert "not finished" in text and "Abandoned" in text
     assert summary_path("a/b.jsonl") == Path("a/b.md")
     assert summary_path("a/b.md") == Path("a/b.md.md")  # never overwrites the log
 

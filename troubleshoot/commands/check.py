@@ -10,6 +10,7 @@ import json
 from collections import Counter
 from pathlib import Path
 
+from troubleshoot.analysis.observability import observability_warnings
 from troubleshoot.model.demos import DEMOS, demo_path
 from troubleshoot.model import Model
 from troubleshoot.model.xmlfile import load_model_with_warnings
@@ -65,6 +66,7 @@ def summary(model: Model) -> dict:
 def run(args) -> int:
     path = resolve_model_path(args.model)
     model, warnings = load_model_with_warnings(path)
+    warnings = list(warnings) + observability_warnings(model)
     facts = summary(model)
     if args.json:
         facts["warnings"] = [str(w) for w in warnings]

@@ -92,7 +92,7 @@ def _finite(x):
 
 def suggestion_json(session: Session, model_spec: str) -> dict:
     """The ``suggest --json`` document (see docs/suggest-contract.md)."""
-    state = session.state
+    state = session.explained_state()
     model = session.model
     explanation = session.explanation
     return {
@@ -110,6 +110,7 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
             for r in state.ranking
         ],
         "next_check": state.next_check.check if state.next_check else None,
+        "why": state.why.to_dict() if state.why is not None else None,
         "explanation": {"failed": list(explanation.failed), "p": explanation.p, "exact": explanation.exact},
         "isolated": state.isolated.id if state.isolated else None,
         "ambiguity_group": [s.id for s in state.ambiguity_group] if state.ambiguity_group is not None else None,
@@ -184,6 +185,13 @@ def render_text(session: Session) -> str:
                      f"{v.outcomes[1]!r})")
     if state.next_check:
         lines.append(f"Next check: {state.next_check.check} ({state.next_check.label})")
+        why = session.explained_state().why
+        if why is not None:
+            lines.append(f"Why: {why.text}")
+            for s in why.suspects:
+                after = ", ".join(f"if {o}: {p:.3f}" if p is not None else f"if {o}: impossible"
+                                  for o, p in s.p_if)
+                lines.append(f"  {s.id}: now {s.p_now:.3f}; {after}")
     for caution in state.cautions:
         lines.append(f"CAUTION: {caution}")
     return "\n".join(lines) + "\n"

@@ -47,6 +47,10 @@ LOG_FORMAT_VERSION = 1
 LOGGED_ROWS = 10
 #: Tolerance replay confirms numbers to (absolute, and relative for scores).
 REPLAY_TOLERANCE = 1e-9
+#: The job fields a log header may carry (who, which unit, where, which work order).
+JOB_KEYS = ("technician", "unit", "site", "work_order")
+#: Actions the log records that change nothing in the diagnosis (replay re-checks their snapshot only).
+MARK_ACTIONS = ("acknowledge", "resume", "job")
 
 
 # ---------------------------------------------------------------------- records
@@ -101,6 +105,7 @@ def header_record(session: Session) -> dict:
             "value_depth": session.settings.value_depth,
         },
         "time": utc_now(),
+        "job": dict(getattr(session, "job", None) or {}),
         **snapshot(session.view),
     }
 
@@ -240,7 +245,8 @@ def _load_model(model_or_path) -> tuple[Model, str | None]:
 
 def new_session(model_or_path, log_path: str | os.PathLike | None = None, *,
                 isolation_threshold: float | None = None, min_bits: float | None = None,
-                group_min_p: float | None = None, write_log: bool = True) -> Session:
+                group_min_p: float | None = None, write_log: bool = True,
+                job: dict | None = None) -> Session:
     """Start a session on a model (a Model, a model file path or a demo name) and open its log.
 
     Parameters
@@ -253,6 +259,10 @@ def new_session(model_or_path, log_path: str | os.PathLike | None = None, *,
         Override the model's isolation threshold and the defaults.
     write_log : bool
         False: no log at all (a one-shot query).
+    job : dict, optional
+        Who and what the session is for: ``technician``, ``unit`` (serial or
+        tag), ``site``, ``work_order`` (empty ones are left out); written in
+        the log header and the summary.
 
     Returns
     -------
@@ -262,6 +272,7 @@ def new_session(model_or_path, log_path: str | os.PathLike | None = None, *,
     model, model_path = _load_model(model_or_path)
     settings = settings_for(model, isolation_threshold, min_bits, group_min_p)
     session = Session(model, settings, model_path=model_path)
+    session.job = clean_job(job)
     if write_log:
         path, fd = create_log_file(log_path)
         writer = LogWriter(path, fd)
@@ -272,6 +283,25 @@ def new_session(model_or_path, log_path: str | os.PathLike | None = None, *,
             raise
         session.log = writer
     return session
+
+
+def clean_job(job: dict | None) -> dict:
+    """The job fields given (technician, unit, site, work_order), stripped, empty ones left out."""
+    out = {}
+    for key in JOB_KEYS:
+        value = (job or {}).get(key)
+        if value is not None and str(value).strip():
+            out[key] = str(value).strip()
+    return out
+
+
+def job_of(contents: "LogContents") -> dict:
+    """The job fields of a log: its header's, updated by any ``job`` line (typed after the start)."""
+    job = clean_job(contents.header.get("job"))
+    for _, record in contents.actions:
+        if record["action"].get("action") == "job":
+            job.update(clean_job(record["action"]))
+    return job
 
 
 # ---------------------------------------------------------------------- reading
@@ -456,6 +486,9 @@ def rerun(contents: LogContents, model: Model | None = None, stop_at_difference:
     count = 0
     for number, record in contents.actions:
         action = record["action"]
+        if action.get("action") in MARK_ACTIONS:  # changes nothing: kept, not re-run nor counted
+            session.actions.append(action)
+            continue
         try:
             session.apply(action)
         except TroubleshootError as exc:
@@ -529,4 +562,9 @@ def resume_session(log_path: str | os.PathLike, model: Model | None = None) -> S
     last_seq = contents.actions[-1][1].get("seq", len(contents.actions)) if contents.actions else 0
     session.log = LogWriter(path, fd, seq=int(last_seq))
     session.resume_warnings = contents.warnings + report.messages
+    session.job = job_of(contents)
+    resumed = {"action": "resume"}
+    if contents.warnings:
+        resumed["reason"] = "the last line was torn: the session had stopped while writing it"
+    session.mark(resumed)
     return session

@@ -75,6 +75,7 @@ from troubleshoot.advice.diagnosis import (
     repair_order,
     suspects,
 )
+from troubleshoot.advice.explain import Why, explain_check
 from troubleshoot.errors import SessionError
 from troubleshoot.engine.inference import Engine, Finding, Posterior
 from troubleshoot.model import Model
@@ -235,6 +236,9 @@ class SessionState:
     epoch : int
         Repairs made so far.
     settings : SessionSettings
+    why : Why or None
+        Why the recommended check is worth doing (only from
+        :meth:`Session.explained_state`; None when no check is recommended).
     """
 
     status: str
@@ -256,6 +260,7 @@ class SessionState:
     cautions: tuple[str, ...]
     epoch: int
     settings: SessionSettings
+    why: Why | None = None
 
     def to_dict(self) -> dict:
         """The state as JSON-ready dicts and lists (an infinite score becomes None)."""
@@ -395,6 +400,16 @@ class SessionView:
         return repair_order(self.model, self.group)
 
     @cached_property
+    def why(self) -> Why | None:
+        """Why the recommended check is worth doing (None when no check is recommended)."""
+        if self.status != DIAGNOSING or self.recommended is None:
+            return None
+        settings = self.settings
+        return explain_check(self.engine, self.posterior, self.recommended, self.candidates,
+                             depth=settings.value_depth,
+                             breadth=max(1, settings.value_lookahead), min_bits=settings.min_bits)
+
+    @cached_property
     def cost_spent(self) -> float:
         model = self.model
         total = 0.0
@@ -520,6 +535,7 @@ class Session:
         self._history: list[SessionView] = []
         self.actions: list[dict] = []  # committed actions, in order (undo included)
         self.resume_warnings: list[str] = []  # set by resume_session
+        self.job: dict = {}  # technician, unit, site, work_order (set by new_session / resume_session)
 
     # ------------------------------------------------------------------ reading
 
@@ -532,6 +548,10 @@ class Session:
     def state(self) -> SessionState:
         """The current state as plain data."""
         return self._view.state()
+
+    def explained_state(self) -> SessionState:
+        """The current state with :attr:`SessionState.why` filled in (a few more propagations)."""
+        return replace(self._view.state(), why=self._view.why)
 
     @property
     def status(self) -> str:
@@ -679,6 +699,28 @@ class Session:
         rec = self._view.record
         return self._commit({"action": "note", "text": text}, replace(rec, notes=rec.notes + (text,)),
                             same_posterior=True)
+
+    def acknowledge_caution(self, check_id: str) -> None:
+        """Log that the technician read and acknowledged a check's safety caution (changes no figure)."""
+        request = self._view.verification_request
+        caution = None
+        if check_id in self.model.check_by_id:
+            caution = self.model.check_by_id[check_id].caution
+        elif request is not None and request.target == check_id:
+            caution = request.caution
+        else:
+            self._check(check_id)
+        if not caution:
+            raise SessionError(f"check {check_id!r} has no safety caution to acknowledge")
+        self.mark({"action": "acknowledge", "check": check_id})
+
+    def mark(self, action: dict) -> None:
+        """Log an event that changes nothing in the diagnosis (a caution acknowledged, a resume).
+
+        It is not undoable: :meth:`undo` takes back the last action that changed the record.
+        """
+        self._write(action, self._view)
+        self.actions.append(action)
 
     def undo(self) -> SessionState:
         """Take back the last action (the undo itself is logged)."""

@@ -24,7 +24,7 @@ from textual.app import App
 from textual.binding import Binding
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.session.summary import summary_markdown, summary_path
+from troubleshoot.session.summary import parse_time, summary_markdown, write_summary
 from troubleshoot.ui.screens import (
     CheckCard,
     CheckScreen,
@@ -49,8 +49,7 @@ def _log_start_time(path: Path | None) -> _dt.datetime | None:
     try:
         with open(path, encoding="utf-8") as handle:
             header = json.loads(handle.readline())
-        stamp = str(header["time"]).rstrip("Z")
-        return _dt.datetime.fromisoformat(stamp).replace(tzinfo=_dt.timezone.utc)
+        return parse_time(header["time"])
     except (OSError, ValueError, KeyError, TypeError):
         return None
 
@@ -73,6 +72,8 @@ class TroubleshootApp(App[int]):
     BINDINGS = [
         Binding("ctrl+t", "toggle_theme", "Light/dark", show=False),
         Binding("ctrl+q", "quit_session", "Quit", show=False, priority=True),
+        # Ctrl+C quits as safely as q: every action is already in the log.
+        Binding("ctrl+c", "quit_session", "Quit", show=False, priority=True),
     ]
 
     def __init__(self, session, fresh: bool | None = None) -> None:
@@ -80,6 +81,7 @@ class TroubleshootApp(App[int]):
         self.session = session
         self.fresh = (not session.actions) if fresh is None else fresh
         self.state = None
+        self.show_figures = False  # bits, scores and entropy: one key away (f)
         self.busy = False
         self.messages: list[str] = []  # every message shown, newest last (the screen shows them as toasts)
         self.log_path = log_path_of(session)
@@ -133,7 +135,7 @@ class TroubleshootApp(App[int]):
             try:
                 if action is not None:
                     action()
-                state = self.session.state  # computed here, off the screen's thread
+                state = self.session.explained_state()  # computed here, off the screen's thread
             except TroubleshootError as exc:
                 error = "\n".join(exc.lines())
             except Exception as exc:  # an unexpected failure must not kill the screen
@@ -166,11 +168,20 @@ class TroubleshootApp(App[int]):
         if main is not None and main.is_mounted:
             main.show_busy()
 
-    def begin_diagnosis(self, observations: list[tuple[str, int]]) -> None:
-        """Record the symptoms marked on the start screen (all or none), then open the main screen."""
+    def begin_diagnosis(self, observations: list[tuple[str, int]], job: dict | None = None) -> None:
+        """Record the symptoms marked on the start screen (all or none), then open the main screen.
+
+        ``job`` holds the technician, unit, site and work order typed on the
+        start screen; they are logged (the header holds those given on the
+        command line) and go to the summary.
+        """
         session = self.session
+        job = {k: v.strip() for k, v in (job or {}).items() if v and v.strip()}
 
         def record_all() -> None:
+            if job:  # the header is written already: the job typed here is logged as its own line
+                session.job = {**session.job, **job}
+                session.mark({"action": "job", **job})
             recorded = 0
             try:
                 for symptom_id, outcome in observations:
@@ -203,11 +214,21 @@ class TroubleshootApp(App[int]):
             if not result or result[0] != "outcome":
                 return
             index = result[2]
+            self.log_acknowledgement(result[1])
             message = None if index == 0 else "The fault persists: the diagnosis goes on with the next check."
             self.perform("recording the verification", lambda: self.session.record_verification(index),
                          done=message)
 
         self.push_screen(CheckScreen(card), verified)
+
+    def log_acknowledgement(self, card) -> None:
+        """Log that the card's safety caution was acknowledged (once per card, before its outcome)."""
+        if card.caution is None:
+            return
+        try:
+            self.session.acknowledge_caution(card.target)
+        except TroubleshootError as exc:
+            self.say("The acknowledgement was not logged: " + " ".join(exc.lines()), "error")
 
     # ------------------------------------------------------------------ the end
 
@@ -215,23 +236,21 @@ class TroubleshootApp(App[int]):
         """Write the summary beside the log (LOG with suffix .md); None without a log."""
         if self.log_path is None or self.state is None:
             return None
-        path = summary_path(self.log_path)
-        text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
-                                _dt.datetime.now(_dt.timezone.utc))
         try:
-            path.write_text(text, encoding="utf-8")
-        except OSError as exc:
-            self.say(f"Cannot write the summary {path}: {exc.strerror}", "error")
+            path = write_summary(self.session, _dt.datetime.now(_dt.timezone.utc))
+        except (OSError, TroubleshootError) as exc:
+            self.say(f"Cannot write the summary beside {self.log_path}: {exc}", "error")
             return None
         self.summary_written = path
         return path
 
     def show_summary(self) -> None:
         path = self.write_summary()
-        text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
-                                _dt.datetime.now(_dt.timezone.utc))
         if path is not None:
-            text += f"\nThis summary is also written to `{path}`.\n"
+            text = path.read_text(encoding="utf-8") + f"\nThis summary is also written to `{path}`.\n"
+        else:
+            text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
+                                    _dt.datetime.now(_dt.timezone.utc), job=self.session.job)
         self.push_screen(SummaryScreen(text))
 
     def action_quit_session(self) -> None:

@@ -24,10 +24,15 @@ from troubleshoot.ui.widgets import (
     StatusBar,
     SuspectsPanel,
     bits_text,
+    checks_title,
     cost_text,
     outcome_odds_line,
     percent,
+    truncate,
 )
+
+#: Below this chance a repair asks for confirmation while another suspect stands isolated.
+LOW_REPAIR_P = 0.10
 
 #: Shown once at the start of every sitting (the start screen, or a notice when a session is resumed).
 SAFETY_NOTICE = (
@@ -35,6 +40,10 @@ SAFETY_NOTICE = (
     "procedures, lockout/tagout, local codes or licensed practice. Make a check only if you are "
     "qualified for it and the equipment is made safe as its caution says."
 )
+
+#: The job fields of the start screen (optional, for the supervisor's record): key, placeholder.
+JOB_INPUTS = (("technician", "technician"), ("unit", "unit serial/tag"), ("site", "site"),
+              ("work_order", "work order"))
 
 #: Marks of a symptom on the start screen: what the technician saw, in words.
 SEEN, NOT_SEEN, NOT_LOOKED = "seen", "not seen", "not looked at"
@@ -48,12 +57,13 @@ class CheckCard:
     label: str
     cost: float
     unit: str
-    outcomes: tuple[str, str]
+    outcomes: tuple[str, ...]
     instructions: str = ""
     caution: str | None = None
-    p_outcomes: tuple[float, float] | None = None
+    p_outcomes: tuple[float, ...] | None = None
     bits: float | None = None
     verification: bool = False
+    why: object | None = None  # the session's Why, when this is the recommended check
 
 
 class StartScreen(Screen):
@@ -81,7 +91,12 @@ class StartScreen(Screen):
             table = DataTable(id="symptoms", cursor_type="row", zebra_stripes=True)
             table.border_title = "Symptoms: mark each one y seen, n not seen, - not looked at"
             yield table
-            yield Static("Press b to begin the diagnosis with these marks.", id="start-hint")
+            with Horizontal(id="job"):
+                job = getattr(self.app.session, "job", None) or {}
+                for key, placeholder in JOB_INPUTS:
+                    yield Input(value=job.get(key, ""), placeholder=placeholder, id=f"job-{key}",
+                                classes="job-field")
+            yield Static("Optional for the record: Tab to the fields above. Press b to begin.", id="start-hint")
         yield Footer()
 
     def on_mount(self) -> None:
@@ -114,20 +129,39 @@ class StartScreen(Screen):
         """(symptom id, outcome index) for every symptom marked seen (abnormal) or not seen (normal)."""
         return [(sid, 1 if mark == SEEN else 0) for sid, mark in self.marks.items() if mark != NOT_LOOKED]
 
+    def job(self) -> dict:
+        """The job fields as typed (empty ones left out)."""
+        out = {}
+        for key, _ in JOB_INPUTS:
+            value = self.query_one(f"#job-{key}", Input).value.strip()
+            if value:
+                out[key] = value
+        return out
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        event.stop()
+        self.query_one("#symptoms", DataTable).focus()
+
     def action_begin(self) -> None:
-        self.app.begin_diagnosis(self.observations())
+        self.app.begin_diagnosis(self.observations(), self.job())
 
 
 class MainScreen(Screen):
-    """Ranked checks, suspects, uncertainty and findings, together; the keys act on the session."""
+    """Ranked checks, suspects and findings, together; the keys act on the session.
+
+    Every key has one meaning on this screen; the footer shows the common
+    ones and the help (?) lists them all.
+    """
 
     BINDINGS = [
         Binding("s", "skip", "Skip"),
+        Binding("k", "unskip", "Unskip", show=False),
         Binding("u", "undo", "Undo"),
         Binding("x", "retract", "Retract"),
         Binding("r", "repair", "Repair"),
         Binding("v", "verify", "Verify"),
-        Binding("n", "note", "Note"),
+        Binding("m", "note", "Note"),
+        Binding("f", "figures", "Figures", show=False),
         Binding("question_mark", "help", "Help", key_display="?"),
         Binding("q", "app.quit_session", "Quit"),
     ]
@@ -145,15 +179,15 @@ class MainScreen(Screen):
             yield Static(id="check-detail")
         with Horizontal(id="lower"):
             suspects = SuspectsPanel(id="suspects")
-            suspects.border_title = "Suspects: P(failed)"
+            suspects.border_title = "Suspects: chance failed"
             yield suspects
             findings = FindingsPanel(id="findings")
-            findings.border_title = "Findings so far"
+            findings.border_title = "Findings and repairs"
             yield findings
         yield Footer()
 
     def on_mount(self) -> None:
-        self.query_one("#checks-panel").border_title = "Next checks, best first"
+        self.query_one("#checks-panel").border_title = "Checks"
         self.query_one("#checks", ChecksTable).focus()
         self.show_state()
 
@@ -161,52 +195,72 @@ class MainScreen(Screen):
         """Render the app's latest session state (nothing is computed here)."""
         app = self.app
         state = app.state
-        self.query_one("#status", StatusBar).show(app.complaint, state, app.busy)
+        self.query_one("#status", StatusBar).show(app.complaint, state, app.busy, app.show_figures)
         if state is None:
             return
         self.query_one("#diagnosis", DiagnosisPanel).show(state)
-        self.query_one("#checks", ChecksTable).show(state, keep_cursor)
+        self.query_one("#checks-panel").border_title = checks_title(state)
+        self.query_one("#checks", ChecksTable).show(state, app.session.model, app.show_figures, keep_cursor)
         self.query_one("#suspects", SuspectsPanel).show(state.suspects)
         self.query_one("#findings", FindingsPanel).show(state, app.session.model)
         self._show_detail()
         self.refresh_bindings()
 
     def show_busy(self) -> None:
-        self.query_one("#status", StatusBar).show(self.app.complaint, self.app.state, self.app.busy)
+        self.query_one("#status", StatusBar).show(self.app.complaint, self.app.state, self.app.busy,
+                                                  self.app.show_figures)
         self.query_one("#checks", ChecksTable).set_class(self.app.busy, "-busy")
 
     def _show_detail(self) -> None:
+        """The whole name of the check under the cursor, and its outcomes (or why it was skipped)."""
         state = self.app.state
         detail = self.query_one("#check-detail", Static)
-        check_id = self.query_one("#checks", ChecksTable).highlighted_check()
-        row = next((r for r in state.ranking if r.check == check_id), None) if state else None
+        table = self.query_one("#checks", ChecksTable)
+        check_id = table.highlighted_check()
+        if state is None:
+            detail.update("")
+            return
+        if check_id is None:
+            detail.update("No check is left to rank.")
+            return
+        model = self.app.session.model
+        if check_id in table.skipped:
+            check = model.check_by_id[check_id]
+            detail.update(Text(f"{check.label}\n↷ skipped: {table.skipped[check_id]} — key k brings it back"))
+            return
+        row = next((r for r in state.ranking if r.check == check_id), None)
         if row is None:
-            detail.update("No check is left to rank." if state else "")
-        else:
-            detail.update(Text(outcome_odds_line(row), no_wrap=True, overflow="ellipsis"))
+            detail.update("")
+            return
+        detail.update(Text(f"{row.label}\n{outcome_odds_line(row)}"))
 
     def on_resize(self) -> None:
         self.show_state(keep_cursor=True)
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
         self._show_detail()
+        self.refresh_bindings()
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
         event.stop()
         self.action_open_check()
 
     def check_action(self, action: str, parameters) -> bool | None:
+        state = self.app.state
         # The verify key is shown only while a repair awaits its verification.
         if action == "verify":
-            state = self.app.state
             return state is not None and state.status == "awaiting-verification"
         return True
 
     def _highlighted_row(self):
         state = self.app.state
-        check_id = self.query_one("#checks", ChecksTable).highlighted_check()
+        table = self.query_one("#checks", ChecksTable)
+        check_id = table.highlighted_check()
         if state is None or check_id is None:
             self.app.say("No check is left to open.")
+            return None
+        if check_id in table.skipped:
+            self.app.say("This check is skipped: key k brings it back first.")
             return None
         return next(r for r in state.ranking if r.check == check_id)
 
@@ -214,11 +268,13 @@ class MainScreen(Screen):
         row = self._highlighted_row()
         if row is None:
             return
+        state = self.app.state
         model = self.app.session.model
         check = model.check_by_id[row.check]
+        why = state.why if state.why is not None and state.why.check == row.check else None
         card = CheckCard(row.check, row.label, row.cost, model.cost_unit, tuple(row.outcomes),
-                         check.instructions, row.caution, tuple(row.p_outcomes), row.bits)
-        self.app.push_screen(CheckScreen(card), self._check_done)
+                         check.instructions, row.caution, tuple(row.p_outcomes), row.bits, why=why)
+        self.app.push_screen(CheckScreen(card, self.app.show_figures), self._check_done)
 
     def _check_done(self, result) -> None:
         if not result:
@@ -226,6 +282,7 @@ class MainScreen(Screen):
         verb, card = result[0], result[1]
         if verb == "outcome":
             index = result[2]
+            self.app.log_acknowledgement(card)
             self.app.perform(f"recording {card.outcomes[index]!r}",
                              lambda: self.app.session.record_finding(card.target, index))
         elif verb == "skip":
@@ -235,6 +292,20 @@ class MainScreen(Screen):
         row = self._highlighted_row()
         if row is not None:
             self._ask_skip_reason(row.check, row.label)
+
+    def action_unskip(self) -> None:
+        table = self.query_one("#checks", ChecksTable)
+        check_id = table.highlighted_check()
+        if check_id is None or check_id not in table.skipped:
+            self.app.say("Move to a skipped check (listed dimmed at the end) to bring it back.")
+            return
+        label = self.app.session.model.label_of(check_id)
+        self.app.perform("bringing the check back", lambda: self.app.session.unskip_check(check_id),
+                         done=f"Brought back: {label}")
+
+    def action_figures(self) -> None:
+        self.app.show_figures = not self.app.show_figures
+        self.show_state(keep_cursor=True)
 
     def _ask_skip_reason(self, check_id: str, label: str) -> None:
         def skip(reason: str | None) -> None:
@@ -267,12 +338,31 @@ class MainScreen(Screen):
             if verb == "retract":
                 self.app.perform("retracting the finding",
                                  lambda: self.app.session.retract_finding(target, epoch))
-            else:
-                view = next(v for v in state.findings if v.target == target and v.epoch == epoch)
+                return
+            view = next(v for v in state.findings if v.target == target and v.epoch == epoch)
+            outcomes = self._outcomes_of(view)
+            others = [(i, name) for i, name in enumerate(outcomes) if i != view.outcome_index]
+            if len(others) == 1:
                 self.app.perform("correcting the finding",
-                                 lambda: self.app.session.correct_finding(target, 1 - view.outcome_index, epoch))
+                                 lambda: self.app.session.correct_finding(target, others[0][0], epoch))
+                return
+
+            def corrected(result) -> None:
+                if result:
+                    self.app.perform("correcting the finding",
+                                     lambda: self.app.session.correct_finding(target, result[1], epoch))
+
+            self.app.push_screen(ChoiceScreen(f"Correct: {view.label} — it read", others, "Record"), corrected)
 
         self.app.push_screen(FindingChoiceScreen(options), chosen)
+
+    def _outcomes_of(self, view) -> tuple[str, ...]:
+        model = self.app.session.model
+        if view.target in model.check_by_id:
+            return tuple(model.check_by_id[view.target].outcomes)
+        if model.verification is not None:
+            return tuple(model.verification.outcomes)
+        return ("works", "still fails")
 
     def action_repair(self) -> None:
         state = self.app.state
@@ -280,27 +370,52 @@ class MainScreen(Screen):
             return
         model = self.app.session.model
         unit = model.cost_unit
-        options, listed = [], set()
+        p_of = {s.id: s.p for s in state.suspects}
+        entries = []  # (event id, repair label, part label, cost, p)
+        listed = set()
         for step in state.repair_order:
             if step.cost is None:
                 continue
             listed.add(step.id)
-            options.append((step.id, f"{step.repair_label} — {cost_text(step.cost, unit)} "
-                                     f"· P {percent(step.p)}"))
-        p_of = {s.id: s.p for s in state.suspects}
+            entries.append((step.id, step.repair_label, step.label, step.cost, step.p))
         for event in model.basic_events:
             if event.id in listed or event.repair is None or event.id in state.repairs:
                 continue
-            options.append((event.id, f"{event.repair.label} — {cost_text(event.repair.cost, unit)} "
-                                      f"· P {percent(p_of.get(event.id, 0.0))}"))
-        if not options:
+            entries.append((event.id, event.repair.label, event.label, event.repair.cost, p_of.get(event.id, 0.0)))
+        if not entries:
             self.app.say("The model lists no repair left to record.")
             return
+        counts: dict[str, int] = {}
+        for _, repair_label, _, _, _ in entries:
+            counts[repair_label] = counts.get(repair_label, 0) + 1
+        options = []
+        for event_id, repair_label, part, cost, p in entries:
+            # Two repairs with the same words are told apart by the part they concern.
+            what = f"{repair_label} [{part}]" if counts[repair_label] > 1 else repair_label
+            options.append((event_id, f"{what} — {cost_text(cost, unit)} · chance {percent(p)}"))
+
+        def record(event_id: str) -> None:
+            self.app.perform("recording the repair", lambda: self.app.session.record_repair(event_id),
+                             then=self.app.open_verification)
 
         def chosen(result) -> None:
-            if result:
-                self.app.perform("recording the repair", lambda: self.app.session.record_repair(result[1]),
-                                 then=self.app.open_verification)
+            if not result:
+                return
+            event_id = result[1]
+            isolated = state.isolated
+            p = p_of.get(event_id, 0.0)
+            if isolated is not None and isolated.id != event_id and p < LOW_REPAIR_P:
+                question = (f"{isolated.label} stands isolated at {percent(isolated.p)}, and "
+                            f"{model.label_of(event_id)} has a chance of {percent(p)}. Record this repair anyway?")
+
+                def confirmed(yes: bool | None) -> None:
+                    if yes:
+                        record(event_id)
+
+                self.app.push_screen(ConfirmScreen("Repair a part that is probably not at fault?", question),
+                                     confirmed)
+                return
+            record(event_id)
 
         self.app.push_screen(ChoiceScreen("Record a repair (repair order first)", options, "Record"), chosen)
 
@@ -320,20 +435,27 @@ class MainScreen(Screen):
 
 
 class CheckScreen(ModalScreen):
-    """One check (or the verification): instructions, outcomes, and the caution to acknowledge first."""
+    """One check (or the verification): instructions, outcomes, and the caution to acknowledge first.
+
+    The outcome keys 1, 2, ... carry the outcome names in the footer. For the
+    recommended check the card also says why: the suspects it separates, each
+    with its chance now and after each outcome.
+    """
 
     BINDINGS = [
         Binding("a", "acknowledge", "Ack caution"),
-        Binding("1", "outcome(0)", "1st outcome"),
-        Binding("2", "outcome(1)", "2nd outcome"),
         Binding("s", "skip", "Skip"),
         Binding("escape", "back", "Back", key_display="esc"),
+        Binding("q", "back", "Back", show=False),
     ]
 
-    def __init__(self, card: CheckCard) -> None:
+    def __init__(self, card: CheckCard, figures: bool = False) -> None:
         super().__init__(id="check-screen")
         self.card = card
+        self.figures = figures
         self.acknowledged = card.caution is None
+        for i, name in enumerate(card.outcomes[:9]):
+            self._bindings.bind(str(i + 1), f"outcome({i})", truncate(name, 18))
 
     def compose(self) -> ComposeResult:
         card = self.card
@@ -341,7 +463,7 @@ class CheckScreen(ModalScreen):
             title = "Verify the repair: " if card.verification else ""
             yield Static(Text(title + card.label, style="bold"), id="check-title")
             facts = f"Cost: {cost_text(card.cost, card.unit)}"
-            if card.bits is not None:
+            if card.bits is not None and self.figures:
                 facts += f" · expected information: {bits_text(card.bits)}"
             yield Static(facts, id="check-facts")
             if card.caution:  # first, so it is read before the instructions
@@ -350,21 +472,27 @@ class CheckScreen(ModalScreen):
                 yield Static(Text("How: " + card.instructions), id="check-instructions")
             lines = []
             for i, name in enumerate(card.outcomes):
-                odds = f"  (P {percent(card.p_outcomes[i])})" if card.p_outcomes else ""
+                odds = f"  (chance {percent(card.p_outcomes[i])})" if card.p_outcomes else ""
                 lines.append(f"  key {i + 1}: {name}{odds}")
             yield Static(Text("Outcomes:\n" + "\n".join(lines)), id="check-outcomes")
             yield Static(id="check-message")
+            if card.why is not None:  # below the message: scroll down to read it
+                yield Static(Text(why_card_text(card)), id="check-why")
         yield Footer()
 
     def on_mount(self) -> None:
         self._show_ack()
 
+    def _keys(self) -> str:
+        n = len(self.card.outcomes)
+        return "key 1 or 2" if n == 2 else f"keys 1 to {n}"
+
     def _show_ack(self) -> None:
         message = self.query_one("#check-message", Static)
         if self.card.caution is None:
-            message.update("This check lists no safety caution. Enter its outcome with key 1 or 2.")
+            message.update(f"This check lists no safety caution. Enter its outcome with {self._keys()}.")
         elif self.acknowledged:
-            message.update("✔ Caution acknowledged. Enter the outcome with key 1 or 2.")
+            message.update(f"✔ Caution acknowledged. Enter the outcome with {self._keys()}.")
         else:
             message.update("Read the caution, then press a to acknowledge it before entering an outcome.")
         self.refresh_bindings()
@@ -399,6 +527,41 @@ class CheckScreen(ModalScreen):
     def message(self) -> str:
         """The message line as plain text (what a refusal says)."""
         return str(self.query_one("#check-message", Static).render())
+
+
+def why_card_text(card: CheckCard) -> str:
+    """Why this check: the reason, then each suspect it separates, its chance now and after each outcome."""
+    why = card.why
+    lines = [f"Why: {why.text}", "Suspects it separates (chance now → after each outcome):"]
+    for s in why.suspects:
+        after = " · ".join(f"{name}: {percent(p) if p is not None else 'impossible'}" for name, p in s.p_if)
+        lines.append(f"  {s.label}: {percent(s.p_now)} → {after}")
+    return "\n".join(lines)
+
+
+class ConfirmScreen(ModalScreen):
+    """A yes/no question; y confirms, n or Escape declines."""
+
+    BINDINGS = [
+        Binding("y", "answer(True)", "Yes"),
+        Binding("n", "answer(False)", "No"),
+        Binding("escape", "answer(False)", "No", show=False),
+    ]
+
+    def __init__(self, title: str, question: str) -> None:
+        super().__init__(classes="prompt-screen")
+        self.title_text = title
+        self.question = question
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="card"):
+            yield Static(Text(self.title_text, style="bold"))
+            yield Static(Text(self.question), id="confirm-question")
+            yield Static("y records it; n or Escape goes back.")
+        yield Footer()
+
+    def action_answer(self, yes: bool) -> None:
+        self.dismiss(yes)
 
 
 class PromptScreen(ModalScreen):
@@ -508,32 +671,47 @@ class FindingChoiceScreen(ChoiceScreen):
 HELP_TEXT = """\
 # Keys
 
-**Main screen**
+**Start screen**: `↑ ↓` move through the symptoms; `y` seen, `n` not seen,
+`-` not looked at; `Tab` goes to the optional fields for the record
+(technician, unit, site, work order); `b` begins; `q` quits.
+
+**Main screen** (one meaning per key)
 
 | Key | Does |
 |-----|------|
-| ↑ ↓ | move through the ranked checks |
-| ⏎ | open the highlighted check: how to do it, its outcomes, its caution |
+| ↑ ↓ | move through the checks; the line under the list shows the whole name |
+| ⏎ | open the highlighted check: how to do it, its outcomes, its caution, why |
 | s | skip the highlighted check (say why; the log keeps the reason) |
+| k | bring a skipped check back (skipped checks stay listed, dimmed, at the end) |
 | u | undo the last action |
 | x | retract a finding, or correct its outcome (c) |
 | r | record a repair (the repair order comes first) |
 | v | verify the last repair (shown while a repair awaits it) |
-| n | add a note to the log |
+| m | add a note to the log |
+| f | show or hide the figures: information in bits, scores, uncertainty |
 | ? | this help |
 | q | quit: every action is already saved in the log |
 
 **A check**: `a` acknowledges its safety caution (needed before an outcome),
-`1` and `2` enter its first or second outcome, `s` skips it, `esc` goes back.
+`1`, `2`, ... enter the outcome named beside the key, `s` skips it,
+`q` or `esc` goes back without entering anything.
 
-# The numbers
+**Anywhere**: `Ctrl+C` and `Ctrl+Q` quit as safely as `q` (the log is already
+saved and the summary is brought up to date); `Ctrl+T` switches between a
+light and a dark theme.
 
+# The words and numbers
+
+- **First row**: the recommended check; the line "Why" says what it is expected to save.
 - **Cost**: what a check or repair takes, in the model's cost unit.
-- **Info**: the information the check is expected to give about the faults, in bits.
-- **Score**: bits per cost unit; the list is sorted by it. A free informative check reads ∞.
-- **Odds n/abn**: the chance of the normal and the abnormal outcome, in percent.
-- **Suspects**: the probability that each fault is present, given the findings.
-- **Uncertainty**: what is still unknown about the faults, in bits; 0 bit means certain.
+- **Narrows**: how much the check is expected to narrow the suspects down
+  (a lot, well, somewhat, a little, not at all), against what is still unknown.
+- **Abnormal**: the chance that the check reads abnormal.
+- **Suspects**: the chance that each part has failed, given the findings;
+  a repaired part leaves the list and is shown under the findings.
+- With the figures shown (`f`): **Info**, the information the check is
+  expected to give in bits; **Score**, bits per cost unit (a free
+  informative check reads ∞); **uncertainty**, what is still unknown, in bits.
 
 ⚠ The suggestions do not replace the equipment maker's procedures,
 lockout/tagout, local codes or licensed practice.

@@ -31,9 +31,6 @@ STATUS_WORDS = {
     "confirmed": "✔ REPAIR CONFIRMED",
 }
 
-#: Cells of the checks table other than the label (index, cost, bits, score, odds) plus padding.
-_CHECK_TABLE_FIXED_WIDTH = 54
-
 
 def percent(p: float) -> str:
     """A probability as a percentage with one decimal, e.g. ``62.1 %``; a tiny one as ``<0.1 %``."""
@@ -63,10 +60,29 @@ def score_text(score: float, unit: str) -> str:
     return f"{score:.3f} bit/{unit}"
 
 
-def odds_text(p_outcomes: tuple[float, float]) -> str:
-    """Both outcome probabilities in percent, normal first, e.g. ``42/58 %``."""
-    normal, abnormal = p_outcomes
-    return f"{normal * 100:.0f}/{abnormal * 100:.0f} %"
+def narrowing_words(bits: float, entropy_bits: float) -> str:
+    """How much a check is expected to narrow the suspects down, in words.
+
+    Measured against what is still unknown (the share of the remaining
+    uncertainty it is expected to remove): ``a lot`` (a quarter or more),
+    ``well`` (a tenth or more), ``somewhat`` (3 % or more), ``a little``
+    (less), ``not at all`` (nothing).
+    """
+    if bits <= 0.0:
+        return "not at all"
+    share = bits / entropy_bits if entropy_bits > 0 else 1.0
+    if share >= 0.25:
+        return "a lot"
+    if share >= 0.1:
+        return "well"
+    if share >= 0.03:
+        return "somewhat"
+    return "a little"
+
+
+def chance_abnormal(row) -> str:
+    """``58 % abnormal``-style text for a check: the chance of its abnormal outcome(s)."""
+    return percent(1.0 - row.p_outcomes[0])
 
 
 def bar(p: float, width: int = 8) -> str:
@@ -88,9 +104,9 @@ def truncate(text: str, width: int) -> str:
 
 
 def outcome_odds_line(row) -> str:
-    """``Outcomes: <normal> 42.2 % · <abnormal> 57.8 %`` for one ranking row."""
+    """``Chance of each outcome: <normal> 42.2 % · <abnormal> 57.8 %`` for one ranking row."""
     parts = [f"{name} {percent(p)}" for name, p in zip(row.outcomes, row.p_outcomes)]
-    line = "Outcomes: " + " · ".join(parts)
+    line = "Chance of each outcome: " + " · ".join(parts)
     if row.caution:
         line += "  ⚠ has a safety caution"
     return line
@@ -147,30 +163,70 @@ def repair_order_lines(state, limit: int | None = None) -> list[str]:
     return lines
 
 
-def diagnosis_text(state) -> str:
-    """What the diagnosis says now, in words, with what to do next."""
+def first_repair_words(state) -> str:
+    """The first entry of the repair order in words: repair, part, cost."""
     unit = state.cost_unit
+    for step in state.repair_order:
+        if step.cost is not None:
+            return f"{step.repair_label} ({step.label}, {cost_text(step.cost, unit)})"
+    return ""
+
+
+def outside_model(state):
+    """The most probable unrepaired suspect when it is a cause outside the model, else None."""
+    top = next((s for s in state.suspects if not s.repaired), None)
+    return top if top is not None and top.unlisted else None
+
+
+def why_line(state) -> str:
+    """One line saying what to do next and why, in the technician's words."""
+    unit = state.cost_unit
+    if state.status == "diagnosing":
+        if state.why is not None:
+            return state.why.text
+        nxt = state.next_check
+        return f"next: {nxt.label} ({cost_text(nxt.cost, unit)})" if nxt is not None else ""
+    if state.status == "isolated":
+        s = state.isolated
+        step = next((r for r in state.repair_order if r.id == s.id), None)
+        if step is not None and step.cost is not None:
+            return (f"{s.label} stands at {percent(s.p)}: repair it — {step.repair_label} "
+                    f"({cost_text(step.cost, unit)})")
+        return f"{s.label} stands at {percent(s.p)}; the model lists no repair for it"
+    if state.status == "ambiguity":
+        out = outside_model(state)
+        if out is not None:
+            return (f"the cause is probably outside this model ({percent(out.p)}, {out.label}): "
+                    "call the field engineer or hand the unit over")
+        first = first_repair_words(state)
+        if first:
+            return f"no check is worth its time now: repair {first}"
+        return "no check is worth its time now and the model lists no repair: hand the unit over"
+    if state.status == "awaiting-verification":
+        v = state.verification
+        return f"check that the repair worked: {v.label} ({cost_text(v.cost, unit)})"
+    if state.status == "confirmed":
+        return "the unit works: the repair is confirmed"
+    return ""
+
+
+def diagnosis_text(state) -> str:
+    """What the diagnosis says now, in words: the status, what to do next and why."""
     word = STATUS_WORDS.get(state.status, state.status)
+    unit = state.cost_unit
     if state.status == "diagnosing":
         nxt = state.next_check
         if nxt is None:
             return f"{word} — no check is left; record a repair (key r)."
-        return (f"{word} — next check: {nxt.label} ({cost_text(nxt.cost, unit)}, {bits_text(nxt.bits)}). "
-                "Enter opens the highlighted check.")
+        return f"{word} — do the first check. Why: {why_line(state)}"
     if state.status == "isolated":
-        s = state.isolated
-        lines = [f"{word}: {s.label} — P {percent(s.p)}. Repair order (key r records a repair):"]
+        return f"{word} — {why_line(state)}. Key r records the repair."
+    if state.status == "ambiguity":
+        lines = [f"{word} — {why_line(state)}. Repair order (key r):"]
         lines += repair_order_lines(state, limit=3)
         return "\n".join(lines)
-    if state.status == "ambiguity":
-        lines = [word + ": no check left is expected to save more than it costs. "
-                 "Repair in this order (key r records a repair):"]
-        lines += repair_order_lines(state)
-        return "\n".join(lines)
     if state.status == "awaiting-verification":
-        v = state.verification
-        return (f"{word}: {v.label} ({cost_text(v.cost, unit)}). Key v opens the verification; "
-                "if the fault persists the diagnosis goes on.")
+        return f"{word} — {why_line(state)}. Key v opens it; if the fault persists the diagnosis goes on."
     if state.status == "confirmed":
         return f"{word} — the unit works. Key q quits; the summary is written beside the log."
     return word
@@ -179,13 +235,17 @@ def diagnosis_text(state) -> str:
 class StatusBar(Static):
     """One line: the complaint, the remaining uncertainty, the cost so far, the status, and a busy mark."""
 
-    def show(self, complaint: str, state, busy: bool) -> None:
+    def show(self, complaint: str, state, busy: bool, figures: bool = False) -> None:
         text = Text(no_wrap=True, overflow="ellipsis")
         if busy:
             text.append("⏳ working… ", style="bold reverse")
         if state is not None:
             text.append(STATUS_WORDS.get(state.status, state.status), style="bold")
-            text.append(f" │ uncertainty {bits_text(state.entropy_bits)}")
+            top = next((s for s in state.suspects if not s.repaired), None)
+            if figures:
+                text.append(f" │ uncertainty {bits_text(state.entropy_bits)}")
+            elif top is not None:
+                text.append(f" │ top suspect {percent(top.p)}")
             text.append(f" │ spent {cost_text(state.cost_spent, state.cost_unit)}")
             text.append(f" │ {complaint}")
         else:
@@ -205,8 +265,38 @@ class DiagnosisPanel(VerticalScroll):
             self.set_class(state.status == status, f"-{status}")
 
 
+def check_rows(state):
+    """The rows of the checks list: the recommended check first, the others by value for time, then
+    the skipped checks (kept listed so they can be brought back).
+
+    Returns a list of ``(check id, ranking row or None, skip reason or None)``.
+    """
+    rows = []
+    recommended = state.next_check.check if state.next_check is not None else None
+    if recommended is not None:
+        rows += [(r.check, r, None) for r in state.ranking if r.check == recommended]
+    rows += [(r.check, r, None) for r in state.ranking if r.check != recommended]
+    rows += [(check_id, None, reason) for check_id, reason in state.skipped]
+    return rows
+
+
+def checks_title(state) -> str:
+    """The title of the checks list, saying what its first row is."""
+    if state.next_check is not None:
+        return "Checks: the recommended one first, then by value for time"
+    if state.status in ("isolated", "ambiguity"):
+        return "Other checks: none is worth its time now (repair first)"
+    return "Checks left"
+
+
 class ChecksTable(DataTable):
-    """The next checks, ranked: label, cost with unit, expected bits, score and outcome odds."""
+    """The checks: the recommended one first, then by value for time, then the skipped ones (dimmed).
+
+    By default each row says in words how much the check narrows things down
+    and gives the chance of an abnormal reading; with the figures shown (key
+    f) it gives the expected information in bits and the score in bits per
+    cost unit instead.
+    """
 
     # Enter selects the highlighted row (the screen opens that check); shown in the footer.
     BINDINGS = [
@@ -218,35 +308,45 @@ class ChecksTable(DataTable):
     def on_mount(self) -> None:
         self.cursor_type = "row"
         self.zebra_stripes = True
+        self.ids: list[str] = []
+        self.skipped: dict[str, str] = {}
 
-    def show(self, state, keep_cursor: bool = False) -> None:
-        """Fill the table; the cursor goes to the recommended check unless ``keep_cursor`` (a resize).
-
-        The recommended check (the session's next check: of the best few by
-        score, the one expected to cost least to finish) is marked ``►``.
-        """
+    def show(self, state, model, figures: bool = False, keep_cursor: bool = False) -> None:
+        """Fill the table; the cursor goes to the first row (the recommendation) unless ``keep_cursor``."""
         unit = state.cost_unit
         keep = self.cursor_row if keep_cursor else 0
         self.clear(columns=True)
-        # The panel spans the screen; its border takes 2 columns.
-        label_width = max(12, self.app.size.width - 2 - _CHECK_TABLE_FIXED_WIDTH)
+        fixed = 42 if figures else 38
+        label_width = max(12, self.app.size.width - 2 - fixed)
         self.add_column("#", key="rank")
         self.add_column("Check", key="label", width=label_width)
         self.add_column("Cost", key="cost")
-        self.add_column("Info", key="bits")
-        self.add_column("Score", key="score")
-        self.add_column("Odds n/abn", key="odds")
+        if figures:
+            self.add_column("Info", key="bits")
+            self.add_column("Score", key="score")
+        else:
+            self.add_column("Narrows", key="narrows")
+            self.add_column("Abnormal", key="abnormal")
+        rows = check_rows(state)
+        self.ids = [check_id for check_id, _, _ in rows]
+        self.skipped = {check_id: reason for check_id, row, reason in rows if row is None}
         recommended = state.next_check.check if state.next_check is not None else None
-        for i, row in enumerate(state.ranking, 1):
+        for i, (check_id, row, reason) in enumerate(rows, 1):
+            if row is None:
+                check = model.check_by_id[check_id]
+                dim = "dim"
+                cells = [Text(str(i), style=dim), Text(truncate("↷ skipped: " + check.label, label_width), style=dim),
+                         Text(cost_text(check.cost, unit), style=dim), Text("—", style=dim), Text("—", style=dim)]
+                self.add_row(*cells, key=check_id)
+                continue
             label = ("► " if row.check == recommended else "") + ("⚠ " if row.caution else "") + row.label
-            self.add_row(str(i), truncate(label, label_width), cost_text(row.cost, unit), bits_text(row.bits),
-                         score_text(row.score, unit), odds_text(row.p_outcomes), key=row.check)
-        if state.ranking:
-            if keep:
-                self.move_cursor(row=min(max(keep, 0), len(state.ranking) - 1))
+            if figures:
+                extra = (bits_text(row.bits), score_text(row.score, unit))
             else:
-                ids = [r.check for r in state.ranking]
-                self.move_cursor(row=ids.index(recommended) if recommended in ids else 0)
+                extra = (narrowing_words(row.bits, state.entropy_bits), chance_abnormal(row))
+            self.add_row(str(i), truncate(label, label_width), cost_text(row.cost, unit), *extra, key=row.check)
+        if rows:
+            self.move_cursor(row=min(max(keep, 0), len(rows) - 1))
 
     def highlighted_check(self) -> str | None:
         """Id of the check under the cursor, or None when the table is empty."""
@@ -254,6 +354,10 @@ class ChecksTable(DataTable):
             return None
         row_key, _ = self.coordinate_to_cell_key((self.cursor_row, 0))
         return row_key.value
+
+    def row_ids(self) -> list[str]:
+        """The check ids in the order the rows show them."""
+        return list(getattr(self, "ids", []))
 
 
 class SuspectsPanel(VerticalScroll):
@@ -263,13 +367,14 @@ class SuspectsPanel(VerticalScroll):
         yield Static(id="suspects-text")
 
     def show(self, suspects: Iterable) -> None:
+        """Every suspect not repaired (a repaired part is listed under the findings instead)."""
         text = Text(no_wrap=True, overflow="ellipsis")
         for s in suspects:
-            # The tag goes before the label, so a narrow panel never cuts it off.
-            tag = "[repaired] " if s.repaired else ""
+            if s.repaired:
+                continue
             text.append(f"{percent(s.p):>7} ")
-            text.append(bar(s.p), style="bold")
-            text.append(f" {tag}{s.label}\n")
+            text.append(bar(s.p, 5), style="bold")
+            text.append(f" {s.label}\n")
         self.query_one("#suspects-text", Static).update(text)
 
 
