@@ -8,12 +8,14 @@ openpra-org/generic-openpsa-models (../shared/benchmarks/aralia/README.md).
 
 from __future__ import annotations
 
+
 import itertools
 import json
 import math
 
 import pytest
-from test_cutsets import P_A, P_B, P_C, read_benchmark, shared_dir, tree
+from conftest import aralia_path
+from test_cutsets import P_A, P_B, P_C, read_benchmark, tree
 
 from troubleshoot import cli
 from troubleshoot.analysis.bdd import FaultTreeBdd
@@ -40,7 +42,7 @@ def run_cli(capsys, *argv) -> tuple[int, str, str]:
 @pytest.fixture
 def small_model_file(tmp_path):
     """(A + B.C) OR-ed with unlisted causes, written in our XML format."""
-    modelfile = pytest.importorskip("troubleshoot.model.xmlfile", reason="the model file writer is absent")
+    from troubleshoot.model import xmlfile as modelfile
     gates = [Gate("t", "unit fails", "or", ("A", "g"), unlisted=0.01), Gate("g", "both", "and", ("B", "C"))]
     model = tree("t", gates, {"A": P_A, "B": P_B, "C": P_C})
     path = tmp_path / "small.xml"
@@ -79,7 +81,7 @@ def test_json_has_the_documented_shape_and_the_handbook_figures(capsys, small_mo
 
 
 def test_infinite_rrw_is_null_in_json_and_inf_in_text(capsys, tmp_path):
-    modelfile = pytest.importorskip("troubleshoot.model.xmlfile", reason="the model file writer is absent")
+    from troubleshoot.model import xmlfile as modelfile
     model = tree("t", [Gate("t", "", "and", ("A", "B"))], {"A": P_A, "B": P_B})
     path = tmp_path / "and.xml"
     modelfile.save_model(model, path)
@@ -129,7 +131,7 @@ def test_bad_option_values_exit_2(capsys, small_model_file):
 
 
 def test_too_many_cut_sets_is_refused_with_exit_2(capsys, tmp_path, monkeypatch):
-    modelfile = pytest.importorskip("troubleshoot.model.xmlfile", reason="the model file writer is absent")
+    from troubleshoot.model import xmlfile as modelfile
     import troubleshoot.analysis.cutsets as cutsets
 
     priors = {f"e{i}": 0.01 for i in range(10)}
@@ -151,11 +153,7 @@ def test_too_many_cut_sets_is_refused_with_exit_2(capsys, tmp_path, monkeypatch)
 
 
 def benchmark_path(name: str):
-    shared = shared_dir()
-    if shared is None:
-        pytest.skip("../shared/benchmarks/aralia is absent (set TROUBLESHOOT_SHARED to the shared folder)")
-    pytest.importorskip("troubleshoot.model.mef.read", reason="the Open-PSA MEF reader troubleshoot.model.mef.read is absent")
-    return shared / "benchmarks" / "aralia" / f"{name}.xml"
+    return aralia_path(name)
 
 
 def test_analyze_reads_mef_and_reproduces_das9201(capsys):
@@ -228,8 +226,8 @@ def pyagrum_top_probability(model: Model) -> float:
 
 
 def demo_model(name: str) -> Model:
-    demos = pytest.importorskip("troubleshoot.model.demos")
-    modelfile = pytest.importorskip("troubleshoot.model.xmlfile", reason="the model file reader is absent")
+    from troubleshoot.model import demos
+    from troubleshoot.model import xmlfile as modelfile
     path = demos.demo_path(name)
     if not path.is_file():
         pytest.skip(f"the demo model file {path.name} does not exist yet")

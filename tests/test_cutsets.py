@@ -11,18 +11,18 @@ from __future__ import annotations
 
 import itertools
 import math
-import os
-from pathlib import Path
 
 import bruteforce
 import numpy as np
 import pytest
+from conftest import aralia_path
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from troubleshoot.analysis.cutsets import TooManyCutSets, minimal_cut_sets
 from troubleshoot.analysis.bdd import FaultTreeBdd, variable_order
 from troubleshoot.model import BasicEvent, Gate, Model, unlisted_id
+from troubleshoot.model.mef import read_mef
 
 # --------------------------------------------------------------------------- helpers
 
@@ -276,20 +276,8 @@ def test_a_very_wide_voting_gate_is_counted_without_listing():
 # --------------------------------------------------------------------------- Aralia benchmarks
 
 
-def shared_dir() -> Path | None:
-    env = os.environ.get("TROUBLESHOOT_SHARED")
-    for candidate in ([Path(env)] if env else []) + [Path(__file__).resolve().parents[2] / "shared"]:
-        if (candidate / "benchmarks" / "aralia").is_dir():
-            return candidate
-    return None
-
-
 def read_benchmark(name: str) -> Model:
-    shared = shared_dir()
-    if shared is None:
-        pytest.skip("../shared/benchmarks/aralia is absent (set TROUBLESHOOT_SHARED to the shared folder)")
-    mef = pytest.importorskip("troubleshoot.model.mef.read", reason="the Open-PSA MEF reader troubleshoot.model.mef.read is absent")
-    model, _ = mef.read_mef(shared / "benchmarks" / "aralia" / f"{name}.xml")
+    model, _ = read_mef(aralia_path(name))
     return model
 
 

@@ -4,14 +4,13 @@ reference libraries and the published Aralia figures."""
 from __future__ import annotations
 
 import math
-import os
 import random
 import warnings
 from math import comb
-from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import aralia_path
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -320,16 +319,6 @@ def test_pgmpy_variable_elimination_agrees(tmp_path):
 
 # -- the public Aralia benchmark trees ----------------------------------------
 
-def _shared() -> Path | None:
-    env = os.environ.get("TROUBLESHOOT_SHARED")
-    candidates = [Path(env)] if env else []
-    candidates.append(Path(__file__).resolve().parents[2] / "shared")
-    for c in candidates:
-        if (c / "benchmarks" / "aralia").is_dir():
-            return c / "benchmarks" / "aralia"
-    return None
-
-
 # Published P(top), Rauzy et al., RESS 79(1), 2003, as tabled in
 # openpra-org/generic-openpsa-models (shared/benchmarks/aralia/README.md).
 ARALIA_P_TOP = {"chinese.xml": "1.17058E-03", "baobab2.xml": "7.13018E-04", "das9201.xml": "1.34237E-02"}
@@ -337,12 +326,9 @@ ARALIA_P_TOP = {"chinese.xml": "1.17058E-03", "baobab2.xml": "7.13018E-04", "das
 
 @pytest.mark.parametrize("file_name", sorted(ARALIA_P_TOP))
 def test_aralia_top_event_probability(file_name):
-    folder = _shared()
-    if folder is None:
-        pytest.skip("shared/benchmarks/aralia not found beside the repository (set TROUBLESHOOT_SHARED)")
     from troubleshoot.model.mef.read import read_mef
 
-    model, _ = read_mef(str(folder / file_name))
+    model, _ = read_mef(str(aralia_path(file_name)))
     p = Engine(model).propagate().p_failed(model.top)
     assert f"{p:.5E}" == ARALIA_P_TOP[file_name]
 

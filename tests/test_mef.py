@@ -14,10 +14,10 @@ from __future__ import annotations
 
 import itertools
 import math
-import os
 from pathlib import Path
 
 import pytest
+from conftest import aralia_path
 
 from troubleshoot import cli
 from troubleshoot.errors import ModelError
@@ -32,17 +32,8 @@ FILES = Path(__file__).resolve().parent / "mef_files"
 ARALIA = {"chinese": (25, 36), "baobab2": (32, 40), "das9201": (122, 82)}
 
 
-def shared_dir() -> Path:
-    env = os.environ.get("TROUBLESHOOT_SHARED")
-    return Path(env) if env else Path(__file__).resolve().parents[2] / "shared"
-
-
 def aralia_file(name: str) -> Path:
-    path = shared_dir() / "benchmarks" / "aralia" / f"{name}.xml"
-    if not path.is_file():
-        pytest.skip(f"Aralia benchmark file {path} is absent (the shared benchmark folder is not "
-                    "here; set TROUBLESHOOT_SHARED to the folder holding benchmarks/aralia)")
-    return path
+    return aralia_path(name)
 
 
 def validation_errors(model: Model) -> list[str]:
@@ -333,7 +324,7 @@ def test_export_names_are_legal_mef_identifiers(tmp_path):
 
 def _random_models():
     try:
-        from strategies import models  # written alongside the engine's property tests
+        from model_strategies import models  # written alongside the engine's property tests
     except ImportError:
         return None
     return models

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from hypothesis import HealthCheck, given, settings
 from lxml import etree
-from strategies import models
+from model_strategies import models
 
 from troubleshoot.model.demos import DEMOS, demo_path
 from troubleshoot.errors import ModelError

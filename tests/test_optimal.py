@@ -20,7 +20,7 @@ from troubleshoot.advice.diagnosis import Suspect, is_unlisted
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair, Verification
 from troubleshoot.study.optimal import Enumeration, OptimalTooLarge, expected_cost, repair_phase_cost, solve
 from troubleshoot.session import settings_for, verification_for
-from troubleshoot.study.simulation import next_repair, repair_cost
+from troubleshoot.advice.repair import next_repair, repair_cost
 from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy
 from troubleshoot.study.synthetic import synthetic_model
 

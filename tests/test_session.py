@@ -197,7 +197,9 @@ def test_one_propagation_per_action():
 BAD_ACTIONS = [
     (lambda s: s.record_finding("nope", "on"), SessionError, "unknown check"),
     (lambda s: s.record_finding("top", "on"), SessionError, "event or gate"),
-    (lambda s: s.record_finding("lamp", "blinking"), SessionError, "outcomes 'off' and 'on'"),
+    (lambda s: s.record_finding("lamp", "blinking"), SessionError, "outcomes 1 'off', 2 'on', not 'blinking'"),
+    (lambda s: s.record_finding("lamp", "3"), SessionError, "outcomes 1 'off', 2 'on', not '3'"),
+    (lambda s: s.record_finding("lamp", 2), SessionError, "outcomes 1 'off', 2 'on', not 2"),
     (lambda s: s.record_finding("flow", "flow low"), SessionError, "already done"),
     (lambda s: s.record_repair("pump_motor"), SessionError, "not a basic event"),
     (lambda s: s.record_verification("flows"), SessionError, "nothing has been repaired"),

@@ -92,7 +92,8 @@ def test_readable_table_has_units(model_file, capsys):
 
 @pytest.mark.parametrize("args, words", [
     (["--finding", "nope=on"], "unknown check 'nope'"),
-    (["--finding", "lamp=blinking"], "outcomes 'off' and 'on'"),
+    (["--finding", "lamp=blinking"], "outcomes 1 'off', 2 'on', not 'blinking'"),
+        (["--finding", "lamp=3"], "outcomes 1 'off', 2 'on', not '3'"),
     (["--finding", "lamp"], "write CHECK=OUTCOME"),
     (["--repaired", "motor"], "not a basic event"),
 ])

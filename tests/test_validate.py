@@ -6,7 +6,7 @@ import dataclasses
 
 import pytest
 from hypothesis import given, settings
-from strategies import models
+from model_strategies import models
 
 from troubleshoot.model import (
     BasicEvent,

@@ -1,17 +1,14 @@
 """troubleshoot: fault trees turned into diagnostic Bayesian networks.
 
-The functional core (model, network, join tree, ranking, analysis) is pure;
-the shell (session, log, CLI, terminal UI) holds state and touches files.
+The functional core (``model``, ``engine``, ``advice``, ``analysis``) is pure;
+the shell (``session``, ``study``, ``ui``, ``commands``) holds state, touches
+files and talks to people.
 """
-
-from importlib import metadata as _metadata
 
 from troubleshoot.model import Model
 
-try:
-    __version__ = _metadata.version("troubleshoot")
-except _metadata.PackageNotFoundError:  # running from a source tree
-    __version__ = "0.1.0"
+#: The one place the version is written; pyproject.toml reads it from here.
+__version__ = "0.2.0"
 
 
 def load_model(path):

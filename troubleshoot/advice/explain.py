@@ -26,12 +26,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Sequence
 
-from troubleshoot.advice.diagnosis import (
-    Suspect,
-    cost_of_check_then,
-    expected_repair_cost,
-    suspects,
-)
+from troubleshoot.advice.diagnosis import Suspect, suspects
 from troubleshoot.advice.ranking import RankRow
 from troubleshoot.engine.inference import Engine, Finding, Posterior
 from troubleshoot.errors import ImpossibleFindings
@@ -177,10 +172,8 @@ def check_reason(row: RankRow, shifts: Sequence[SuspectShift], cost_check_first:
     return f"{cost} to {target}{tail}"
 
 
-def explain_check(engine: Engine, posterior: Posterior, row: RankRow, candidates: tuple[str, ...], *,
-                  depth: int = 1, breadth: int = 3,
-                  min_bits: float = 0.01, cost_check_first: float | None = None,
-                  cost_repair_now: float | None = None) -> Why:
+def explain_check(engine: Engine, posterior: Posterior, row: RankRow, cost_check_first: float,
+                  cost_repair_now: float) -> Why:
     """Why ``row``'s check is recommended: the suspects it separates and the costs weighed.
 
     Parameters
@@ -190,26 +183,17 @@ def explain_check(engine: Engine, posterior: Posterior, row: RankRow, candidates
         The findings and repairs so far.
     row : RankRow
         The recommended check's ranking row.
-    candidates : tuple of str
-        The checks still to do (for the cost of checking first, which looks
-        ``depth`` checks ahead).
-    depth, breadth, min_bits
-        As the session's value comparison (``value_depth``,
-        ``value_lookahead``, ``min_bits``).
-    cost_check_first, cost_repair_now : float, optional
-        The expected costs when the caller's policy already computed them;
-        otherwise computed here (:func:`cost_of_check_then`,
-        :func:`expected_repair_cost`).
+    cost_check_first : float
+        Expected cost to finish doing the check first (the policy's figure,
+        :func:`troubleshoot.advice.policy.cost_of_check_then`).
+    cost_repair_now : float
+        Expected cost to finish without checking: repairing in order, or
+        escalating when that is cheaper (:func:`troubleshoot.advice.policy.finish_plan`).
 
     Returns
     -------
     Why
     """
-    if cost_repair_now is None:
-        cost_repair_now = expected_repair_cost(posterior)
-    if cost_check_first is None:
-        cost_check_first = cost_of_check_then(engine, posterior, row.check, row.cost, row.p_outcomes,
-                                              candidates, max(1, depth), breadth, min_bits)
     shifts = pick_suspects(suspect_shifts(engine, posterior, row))
     text = check_reason(row, shifts, cost_check_first, cost_repair_now, posterior.model.cost_unit)
     return Why(row.check, text, shifts, float(cost_check_first), float(cost_repair_now))

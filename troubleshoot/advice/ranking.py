@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Iterable
+from collections.abc import Iterable
 
 import numpy as np
 
@@ -43,14 +43,18 @@ from troubleshoot.model import Check
 BITS_EPSILON = 1e-12
 
 
+def entropy_bits(p: np.ndarray) -> np.ndarray:
+    """H = -sum_k p_k log2 p_k over the last axis (a distribution over outcomes); 0 log 0 = 0, never NaN."""
+    p = np.clip(np.asarray(p, dtype=float), 0.0, 1.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        terms = np.where(p > 0.0, -p * np.log2(np.where(p > 0.0, p, 1.0)), 0.0)
+    return terms.sum(axis=-1)
+
+
 def binary_entropy_bits(p: np.ndarray) -> np.ndarray:
     """H(p) = -p log2 p - (1 - p) log2 (1 - p), elementwise; 0 at p = 0 and p = 1, never NaN."""
     p = np.clip(np.asarray(p, dtype=float), 0.0, 1.0)
-    out = np.zeros_like(p)
-    inside = (p > 0.0) & (p < 1.0)
-    q = p[inside]
-    out[inside] = -(q * np.log2(q) + (1.0 - q) * np.log2(1.0 - q))
-    return out
+    return entropy_bits(np.stack([p, 1.0 - p], axis=-1))
 
 
 @dataclass(frozen=True)
@@ -70,9 +74,9 @@ class RankRow:
         bits / cost, in bits per cost unit; ``math.inf`` for an informative
         check of cost 0.
     outcomes : tuple of str
-        (normal, abnormal) outcome names.
+        The check's outcome names, normal first.
     p_outcomes : tuple of float
-        P(normal | findings), P(abnormal | findings).
+        P(outcome | findings) of each, in the same order.
     caution : str or None
         The model's safety caution for this check.
     """
@@ -82,8 +86,8 @@ class RankRow:
     cost: float
     bits: float
     score: float
-    outcomes: tuple[str, str]
-    p_outcomes: tuple[float, float]
+    outcomes: tuple[str, ...]
+    p_outcomes: tuple[float, ...]
     caution: str | None = None
 
     def outcome_probabilities(self) -> dict[str, float]:
@@ -133,8 +137,8 @@ def score_of(bits: float, cost: float) -> float:
     return math.inf if bits > 0 else 0.0
 
 
-def information_bits(posterior: Posterior, check_ids: Iterable[str]) -> dict[str, tuple[float, float]]:
-    """I(F; T | findings) in bits and P(abnormal | findings) of each check, done now.
+def outcome_information(posterior: Posterior, check_ids: Iterable[str]) -> dict[str, tuple[float, np.ndarray]]:
+    """I(F; T | findings) in bits and P(outcome | findings) of each check, done now.
 
     Parameters
     ----------
@@ -146,34 +150,34 @@ def information_bits(posterior: Posterior, check_ids: Iterable[str]) -> dict[str
     Returns
     -------
     dict
-        check id -> (bits, P(abnormal | findings)).
+        check id -> (bits, P(T = each outcome | findings), in the check's outcome order).
 
     Notes
     -----
-    I(F;T|e) = H(T|e) - sum_c P(c|e) H(T|c): the check's noise is
-    independent of everything given its causes c, so H(T | F, e) =
-    sum_c P(c|e) H(T|c). Checks whose families have the same number of
-    joint states are stacked into one array and scored together.
+    I(F;T|e) = H(T|e) - sum_c P(c|e) H(T|c) over the check's K outcomes:
+    the check's noise is independent of everything given its causes c, so
+    H(T | F, e) = sum_c P(c|e) H(T|c). Checks whose families have the same
+    number of joint states and outcomes are stacked into one array and
+    scored together.
 
     References
     ----------
     Cover & Thomas 2006, eq. 2.45 (I = H(T) - H(T|F)); de Kleer & Williams 1987.
     """
-    by_size: dict[int, list[tuple[str, np.ndarray, np.ndarray]]] = {}
+    by_shape: dict[tuple[int, int], list[tuple[str, np.ndarray, np.ndarray]]] = {}
     for check_id in check_ids:
-        joint, p_abnormal = posterior.check_family(check_id)
-        by_size.setdefault(joint.size, []).append((check_id, joint, p_abnormal))
-    out: dict[str, tuple[float, float]] = {}
-    for group in by_size.values():
+        joint, table = posterior.check_likelihood(check_id)
+        by_shape.setdefault(table.shape, []).append((check_id, joint, table))
+    out: dict[str, tuple[float, np.ndarray]] = {}
+    for group in by_shape.values():
         joint = np.stack([g[1] for g in group])  # (checks, states) P(c | e)
-        p_abn = np.stack([g[2] for g in group])  # (checks, states) P(abnormal | c)
-        p_t = np.clip(np.einsum("ij,ij->i", joint, p_abn), 0.0, 1.0)
-        h_t = binary_entropy_bits(p_t)
-        h_t_given_c = np.einsum("ij,ij->i", joint, binary_entropy_bits(p_abn))
-        bits = h_t - h_t_given_c
+        table = np.stack([g[2] for g in group])  # (checks, states, outcomes) P(t | c)
+        p_t = np.clip(np.einsum("ij,ijk->ik", joint, table), 0.0, 1.0)
+        h_t_given_c = np.einsum("ij,ij->i", joint, entropy_bits(table))
+        bits = entropy_bits(p_t) - h_t_given_c
         bits = np.where(bits < BITS_EPSILON, 0.0, bits)
         for (check_id, _, _), b, p in zip(group, bits, p_t):
-            out[check_id] = (float(b), float(p))
+            out[check_id] = (float(b), p)
     return out
 
 
@@ -213,11 +217,11 @@ def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
     """
     model = posterior.model
     ids = [c.id if isinstance(c, Check) else c for c in checks]
-    info = information_bits(posterior, ids)
+    info = outcome_information(posterior, ids)
     rows = []
     for check_id in ids:
         check = model.check_by_id[check_id]
-        bits, p_abn = info[check_id]
+        bits, p_t = info[check_id]
         rows.append(RankRow(
             check=check_id,
             label=check.label,
@@ -225,7 +229,7 @@ def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
             bits=bits,
             score=score_of(bits, float(check.cost)),
             outcomes=tuple(check.outcomes),
-            p_outcomes=(1.0 - p_abn, p_abn),
+            p_outcomes=tuple(float(p) for p in p_t),
             caution=check.caution,
         ))
     rows.sort(key=_sort_key)

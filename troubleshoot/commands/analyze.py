@@ -17,7 +17,6 @@ import argparse
 import json
 import math
 import sys
-import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -26,6 +25,7 @@ from troubleshoot.errors import NetworkTooLarge, TroubleshootError
 from troubleshoot.analysis.bdd import FaultTreeBdd
 from troubleshoot.analysis.importance import Importance, importance_measures
 from troubleshoot.model import Model
+from troubleshoot.progress import ProgressDisplay
 
 #: How the probability cut away by truncation is bounded (said in every output).
 DROPPED_BOUND_METHOD = (
@@ -368,46 +368,14 @@ def render_markdown(fig: FaultTreeFigures) -> str:
 # --------------------------------------------------------------------------- shell
 
 
-class _Progress:
-    """Progress messages on standard error, only once work has run a while."""
-
-    def __init__(self, stream=None, delay: float = 1.0, interval: float = 0.5):
-        self.stream = stream or sys.stderr
-        self.start = time.monotonic()
-        self.delay, self.interval = delay, interval
-        self.last = -math.inf
-        self.shown = False
-        self.tty = hasattr(self.stream, "isatty") and self.stream.isatty()
-
-    def __call__(self, message: str) -> None:
-        now = time.monotonic()
-        if now - self.start < self.delay or now - self.last < self.interval:
-            return
-        self.last = now
-        self.shown = True
-        if self.tty:
-            self.stream.write(f"\r\033[K{message}")
-        else:
-            self.stream.write(message + "\n")
-        self.stream.flush()
-
-    def done(self) -> None:
-        if self.shown and self.tty:
-            self.stream.write("\r\033[K")
-            self.stream.flush()
-
-
 def run(args) -> int:
     model, warnings = load_any_model(args.model)
     for warning in warnings:
         print(f"troubleshoot: {warning}", file=sys.stderr)
-    progress = _Progress()
-    try:
+    with ProgressDisplay(f"analysing {model.name}") as progress:
         fig = compute_figures(
             model, max_order=args.max_order, min_probability=args.min_probability, progress=progress
         )
-    finally:
-        progress.done()
     if args.report:
         try:
             Path(args.report).write_text(render_markdown(fig), encoding="utf-8")

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import sys
 
 
 def add_parser(subparsers, name):
@@ -27,14 +26,14 @@ def add_parser(subparsers, name):
 def run(args) -> int:
     from troubleshoot.study.benchmark import as_json, as_table, run_size
 
-    def progress(text):
-        print(f"bench: {text}", file=sys.stderr, flush=True)
+    from troubleshoot.progress import ProgressDisplay
 
     results = []
-    for i, n in enumerate(args.sizes, start=1):
-        progress(f"size {i} of {len(args.sizes)}")
-        results.append(run_size(n, seed=args.seed, references=not args.no_references,
-                                budget=args.budget, progress=progress))
+    with ProgressDisplay("bench", delay=0.0) as progress:
+        for i, n in enumerate(args.sizes, start=1):
+            progress.count(i - 1, len(args.sizes))
+            results.append(run_size(n, seed=args.seed, references=not args.no_references,
+                                    budget=args.budget, progress=progress.message))
     if args.json:
         print(json.dumps(as_json(results), indent=2))
     else:

@@ -14,6 +14,7 @@ import math
 import sys
 
 from troubleshoot.errors import TroubleshootError
+from troubleshoot.progress import ProgressDisplay
 
 
 class SimulationError(TroubleshootError):
@@ -71,12 +72,6 @@ def _require_matplotlib():
     return plt
 
 
-def _progress(model_name: str):
-    def report(done: int, total: int) -> None:
-        print(f"simulating {model_name}: {done}/{total} cases", file=sys.stderr, flush=True)
-    return report
-
-
 def run(args) -> int:
     from troubleshoot.model.source import load_any_model
     from troubleshoot.study.optimal import OptimalTooLarge, expected_cost, solve
@@ -117,8 +112,9 @@ def run(args) -> int:
         print("troubleshoot: optimal is exact for the repair-only protocol; every strategy runs under it "
               "(no checks after the first repair)", file=sys.stderr)
     args.protocol = "diagnose" if checks_after_repair else "repair"
-    results = simulate(model, args.cases, args.seed, specs, settings, workers, _progress(model.name),
-                       checks_after_repair=checks_after_repair)
+    with ProgressDisplay(f"simulating {model.name}", unit="cases") as progress:
+        results = simulate(model, args.cases, args.seed, specs, settings, workers, progress.count,
+                           checks_after_repair=checks_after_repair)
     summaries = {name: summarise(name, results[name]) for name in names}
     best = optimal.expected_cost if optimal is not None else None
 

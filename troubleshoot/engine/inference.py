@@ -2,14 +2,15 @@
 
 :class:`Engine` compiles one join tree per set of repairs (cached: findings
 never recompile it) and turns findings into likelihoods. A finding on a check
-or symptom multiplies P(outcome | causes) (noisy-OR with leak) onto the clique
+or symptom multiplies P(outcome | causes) (noisy-OR or noisy-MAX with leak,
+:mod:`troubleshoot.engine.observation`) onto the clique
 that holds the check's causes; a finding on an event or gate id is an exact
 observation of it. A finding carries its epoch, the number of repairs made
 before it, so it reads the gate logic as it was when the finding was made.
 
 References
 ----------
-Lauritzen & Spiegelhalter 1988 (join tree); Pearl 1988 (noisy-OR).
+Lauritzen & Spiegelhalter 1988 (join tree); Pearl 1988 (noisy-OR); Díez 1993 (noisy-MAX).
 """
 
 from __future__ import annotations
@@ -31,11 +32,11 @@ class Finding:
     Parameters
     ----------
     target : str
-        A check or symptom id (outcome 0 = its first, normal outcome; 1 = its
-        second, abnormal one), or an event or gate id observed exactly
-        (0 = ok, 1 = failed).
+        A check or symptom id (outcome = index into its ``outcomes``: 0 the
+        normal one, 1..K-1 the abnormal ones), or an event or gate id
+        observed exactly (0 = ok, 1 = failed).
     outcome : int
-        0 or 1.
+        0..K-1 for a check of K outcomes; 0 or 1 for an event or gate.
     epoch : int
         Repairs made before the finding.
     """
@@ -123,14 +124,19 @@ class Engine:
 
     def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | None:
         model = self.model
-        if finding.outcome not in (0, 1):
-            raise SessionError(f"outcome of {finding.target!r} must be 0 or 1, not {finding.outcome!r}")
+        check = model.check_by_id.get(finding.target)
+        n_outcomes = len(check.outcomes) if check is not None else 2
+        if not isinstance(finding.outcome, (int, np.integer)) or not 0 <= finding.outcome < n_outcomes:
+            names = (f"; its outcomes are {', '.join(f'{i} {o!r}' for i, o in enumerate(check.outcomes))}"
+                     if check is not None else " (0 ok, 1 failed)")
+            raise SessionError(f"outcome of {finding.target!r} must be 0..{n_outcomes - 1}, not "
+                               f"{finding.outcome!r}{names}")
         if not 0 <= finding.epoch <= net.epochs:
             raise SessionError(f"finding on {finding.target!r} is dated after {finding.epoch} repairs, "
                                f"but only {net.epochs} were made")
         if finding.target in model.check_by_id:
             fam = net.families[(finding.target, finding.epoch)]
-            lik = fam.p_abnormal() if finding.outcome == 1 else fam.p_normal()
+            lik = fam.p_outcome(finding.outcome)
             if not fam.nodes:
                 return _ConstantLikelihood(float(lik))
             return tree.evidence_on_variables(fam.nodes, lik)
@@ -185,7 +191,7 @@ class Engine:
         calibrated = tree.propagate(evidence)
         return net, tree, calibrated, log_constant
 
-    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> "Posterior":
+    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> Posterior:
         """Posterior given findings (in order) and the repairs made so far.
 
         Raises
@@ -293,18 +299,32 @@ class Posterior:
         epoch = self.epoch if epoch is None else epoch
         return self.network.families[(check_id, epoch)]
 
-    def check_family(self, check_id: str, epoch: int | None = None) -> tuple[np.ndarray, np.ndarray]:
-        """(P(c | findings), P(abnormal | c)) over the joint states c of the check's causes.
+    def cause_joint(self, check_id: str, epoch: int | None = None) -> np.ndarray:
+        """P(c | findings) over the joint states c of a check's causes, flat, length 2**m.
 
-        Both are flat arrays of length 2**m, in the same order; m is the
-        number of distinct non-constant causes at that epoch (m = 0 gives
-        arrays of length 1).
+        m is the number of distinct non-constant causes at that epoch (m = 0
+        gives length 1); C order over ``family(check_id).nodes``.
         """
         epoch = self.epoch if epoch is None else epoch
         key = (check_id, epoch)
         if key not in self._families:
             fam = self.network.families[key]
             # The clique table is already normalised, so its marginal sums to one.
-            joint = self._calibrated.joint(fam.nodes).ravel()
-            self._families[key] = (joint, fam.p_abnormal().reshape(-1))
+            self._families[key] = self._calibrated.joint(fam.nodes).ravel()
         return self._families[key]
+
+    def check_likelihood(self, check_id: str, epoch: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """(P(c | findings), P(outcome | c)): shapes (2**m,) and (2**m, K), rows in the same order."""
+        epoch = self.epoch if epoch is None else epoch
+        fam = self.network.families[(check_id, epoch)]
+        return self.cause_joint(check_id, epoch), fam.likelihood().reshape(-1, fam.n_outcomes)
+
+    def check_family(self, check_id: str, epoch: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """(P(c | findings), P(any abnormal outcome | c)) over the joint states c of the check's causes.
+
+        Both are flat arrays of length 2**m, in the same order. For a check
+        of more than two outcomes use :meth:`check_likelihood`.
+        """
+        epoch = self.epoch if epoch is None else epoch
+        fam = self.network.families[(check_id, epoch)]
+        return self.cause_joint(check_id, epoch), fam.p_abnormal().reshape(-1)

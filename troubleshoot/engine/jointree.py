@@ -355,7 +355,7 @@ class JoinTree:
         return plan
 
     # -- propagation -----------------------------------------------------
-    def propagate(self, evidence: list[Evidence]) -> "Calibrated":
+    def propagate(self, evidence: list[Evidence]) -> Calibrated:
         """Collect and distribute with the given likelihoods; raises ZeroProbability.
 
         Returns the calibrated clique tables and log P(evidence).

@@ -1,11 +1,12 @@
 """Model -> Bayesian network: binary nodes, bounded fan-in, exact.
 
 Roots are the basic events and the unlisted-cause events; gates are
-deterministic nodes; checks and symptoms are noisy-OR nodes over their causes
-with a false-alarm leak. Wide AND/OR gates become chains of nodes of at most
+deterministic nodes; checks and symptoms are noisy-OR (two outcomes) or
+noisy-MAX (K outcomes) nodes over their causes with a false-alarm leak, as
+:mod:`troubleshoot.engine.observation` says. Wide AND/OR gates become chains of nodes of at most
 :data:`MAX_FANIN` inputs; an at-least-k gate becomes a Shannon decomposition
 (x_i ? atleast(k-1, rest) : atleast(k, rest)) of three-input nodes; a wide
-noisy-OR becomes a chain Y_j = Y_(j-1) OR (c_j and it shows), all exact, so
+noisy-OR or noisy-MAX becomes a chain Y_j = max(Y_(j-1), what c_j shows), all exact, so
 no table grows as 2^width.
 
 Repairs are interventions. A finding made after the j-th repair (epoch j)
@@ -29,7 +30,10 @@ from dataclasses import dataclass, field
 import networkx as nx
 import numpy as np
 
+from troubleshoot.engine.observation import CheckFamily, check_family, max_table
 from troubleshoot.model import DERIVED, Model, unlisted_id
+
+__all__ = ["CheckFamily", "Network", "build_network", "MAX_FANIN"]
 
 MAX_FANIN = 3
 
@@ -37,68 +41,17 @@ MAX_FANIN = 3
 ROOT, GATE, AUX, CHECK, CHECK_AUX = "root", "gate", "aux", "check", "check-aux"
 
 
-@dataclass(frozen=True)
-class CheckFamily:
-    """What one check reads at one epoch, after constants are folded.
-
-    P(abnormal | c) = 1 - (1 - leak) * prod_i (1 - detections[i]) ** c_i over
-    ``nodes``; a cause that folded to a constant is absorbed into ``leak``
-    (if always present) or dropped (if never).
-    """
-
-    check: str
-    epoch: int
-    nodes: tuple[str, ...]
-    detections: tuple[float, ...]
-    leak: float
-
-    def log_p_normal(self) -> np.ndarray:
-        """log P(normal | c) for every joint state c of ``nodes``, C order, shape (2,)*m (read-only, cached)."""
-        cached = self.__dict__.get("_log_p_normal")
-        if cached is not None:
-            return cached
-        m = len(self.nodes)
-        log_normal = np.full((2,) * m, _log1m(self.leak))
-        for axis, d in enumerate(self.detections):
-            shape = [1] * m
-            shape[axis] = 2
-            log_normal = log_normal + np.array([0.0, _log1m(d)]).reshape(shape)
-        log_normal.setflags(write=False)
-        self.__dict__["_log_p_normal"] = log_normal  # frozen dataclass: cache beside the fields
-        return log_normal
-
-    def p_abnormal(self) -> np.ndarray:
-        """P(abnormal | c) for every joint state c of ``nodes``, C order, shape (2,)*m.
-
-        Computed as -expm1(log P(normal)), so a detection of 1e-12 keeps its digits.
-        """
-        cached = self.__dict__.get("_p_abnormal")
-        if cached is None:
-            cached = -np.expm1(self.log_p_normal())
-            cached.setflags(write=False)
-            self.__dict__["_p_abnormal"] = cached
-        return cached
-
-    def p_normal(self) -> np.ndarray:
-        """P(normal | c), the complement of :meth:`p_abnormal`, without cancellation."""
-        return np.exp(self.log_p_normal())
-
-
-def _log1m(p: float) -> float:
-    """log(1 - p), -inf at p = 1."""
-    return float(np.log1p(-p)) if p < 1.0 else -np.inf
-
-
 @dataclass
 class Network:
-    """A binary Bayesian network built from a Model.
+    """A Bayesian network built from a Model: binary event and gate nodes, K-state check nodes.
 
     Attributes
     ----------
     graph : networkx.DiGraph
         Node attributes: ``role``, ``parents`` (tuple, the table's axis
-        order), ``table`` (numpy array of shape (2,)*len(parents) + (2,),
-        P(node | parents), last axis the node's state), ``states`` (names).
+        order), ``table`` (numpy array with one axis per parent, of its
+        number of states, then the node's own states:
+        P(node | parents)), ``states`` (names).
     repairs : tuple of str
         The repaired roots, in order; epoch j sees the first j held working.
     families : dict
@@ -117,7 +70,7 @@ class Network:
     def epochs(self) -> int:
         return len(self.repairs)
 
-    def node_for(self, target: str, epoch: int) -> "str | bool":
+    def node_for(self, target: str, epoch: int) -> str | bool:
         """The network node (or constant) an event or gate id means at an epoch."""
         return self.gate_node[(target, epoch)]
 
@@ -199,7 +152,7 @@ class _Builder:
     def det(self, node_id, kind, operands, role=AUX, label=""):
         return self.add_node(node_id, role, operands, _deterministic_table(kind, len(operands)), label)
 
-    def logic(self, name: str, kind: str, operands: list, named: bool) -> "str | bool":
+    def logic(self, name: str, kind: str, operands: list, named: bool) -> str | bool:
         """AND/OR over operands with constants folded and fan-in bounded.
 
         ``named``: the result must be a node called ``name`` (a model gate at
@@ -225,13 +178,13 @@ class _Builder:
             ops = [head] + ops[self.max_fanin :]
         return self.det(name, kind, ops, GATE if named else AUX, self.model.label_of(name.split(DERIVED)[0]))
 
-    def constant(self, name: str, value: bool, named: bool) -> "str | bool":
+    def constant(self, name: str, value: bool, named: bool) -> str | bool:
         if not named:
             return value
         table = np.array([0.0, 1.0]) if value else np.array([1.0, 0.0])
         return self.add_node(name, GATE, (), table, self.model.label_of(name))
 
-    def atleast(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
+    def atleast(self, name: str, k: int, operands: list, named: bool) -> str | bool:
         """k-of-n, exactly, in nodes of bounded fan-in.
 
         Constants fold first. A gate near OR or AND (k or n - k at most 3)
@@ -280,7 +233,7 @@ class _Builder:
         return self.add_node(node_id, GATE if named else AUX, prev, table.reshape((2,) * bits + (2,)),
                              self.model.label_of(name.split(DERIVED)[0]))
 
-    def _atleast_shannon(self, name: str, k: int, operands: list, named: bool) -> "str | bool":
+    def _atleast_shannon(self, name: str, k: int, operands: list, named: bool) -> str | bool:
         """x_i ? atleast(k-1, rest) : atleast(k, rest), as three-input nodes."""
         memo: dict = {}
         n = len(operands)
@@ -345,7 +298,7 @@ class _Builder:
         self._depends[node_id] = result
         return result
 
-    def gate_at(self, gate_id: str, epoch: int) -> "str | bool":
+    def gate_at(self, gate_id: str, epoch: int) -> str | bool:
         key = (gate_id, epoch)
         if key in self.net.gate_node:
             return self.net.gate_node[key]
@@ -381,52 +334,31 @@ class _Builder:
         return result
 
     def family(self, check, epoch: int) -> CheckFamily:
-        nodes: list[str] = []
-        detections: list[float] = []
-        p_no_leak = 1.0 - check.false_alarm
-        for cause in check.causes:
-            node = self.gate_at(cause.target, epoch)
-            if node is True:
-                p_no_leak *= 1.0 - cause.detection
-            elif node is False:
-                continue
-            elif node in nodes:  # two causes that are one node: their misses multiply
-                i = nodes.index(node)
-                detections[i] = 1.0 - (1.0 - detections[i]) * (1.0 - cause.detection)
-            else:
-                nodes.append(node)
-                detections.append(cause.detection)
-        return CheckFamily(check.id, epoch, tuple(nodes), tuple(detections), 1.0 - p_no_leak)
+        return check_family(check, epoch, lambda target: self.gate_at(target, epoch))
 
     def check_node(self, check):
-        """The check as a noisy-OR node over its epoch-0 causes (for export)."""
+        """The check as a noisy-MAX node over its epoch-0 causes (for export).
+
+        A check with more causes than the fan-in becomes a chain: the first
+        link reads the leak and the first causes, each next link the
+        previous one and the next causes, Y_j = max(Y_(j-1), chunk j).
+        """
         fam = self.net.families[(check.id, 0)]
-        nodes, dets = list(fam.nodes), list(fam.detections)
         states = tuple(check.outcomes)
-        if len(nodes) <= self.max_fanin:
-            sub = CheckFamily(check.id, 0, tuple(nodes), tuple(dets), fam.leak)
-            table = np.stack([sub.p_normal(), sub.p_abnormal()], axis=-1)
-            self.add_node(check.id, CHECK, nodes, table, check.label, states)
-            return
-        # Chain: Y_1 reads the leak and the first causes; Y_j = Y_(j-1) OR shows(c_j...).
-        prev, step, leak = None, 0, fam.leak
-        while nodes:
+        positions = list(range(len(fam.nodes)))
+        prev, step = None, 0
+        while True:
             take = self.max_fanin if prev is None else self.max_fanin - 1
-            chunk, nodes = nodes[:take], nodes[take:]
-            chunk_d, dets = dets[:take], dets[take:]
+            chunk, positions = positions[:take], positions[take:]
             step += 1
-            last = not nodes
+            last = not positions
             name = check.id if last else f"{check.id}{DERIVED}{step}"
-            parents = ([prev] if prev else []) + chunk
-            part = CheckFamily(check.id, 0, tuple(chunk), tuple(chunk_d), leak)
-            p_abn, p_norm = part.p_abnormal(), part.p_normal()
-            leak = 0.0
-            if prev is not None:  # once the chain is abnormal it stays abnormal
-                p_abn = np.stack([p_abn, np.ones_like(p_abn)], axis=0)
-                p_norm = np.stack([p_norm, np.zeros_like(p_norm)], axis=0)
-            table = np.stack([p_norm, p_abn], axis=-1)
+            parents = ([prev] if prev else []) + [fam.nodes[i] for i in chunk]
+            table = max_table(fam, chunk, with_leak=prev is None, with_previous=prev is not None)
             self.add_node(name, CHECK if last else CHECK_AUX, parents, table,
-                          check.label if last else "", states if last else ("no", "yes"))
+                          check.label if last else "", states)
+            if last:
+                return
             prev = name
 
 
@@ -454,7 +386,8 @@ def build_network(model: Model, repairs: tuple[str, ...] = (), max_fanin: int = 
 
     References
     ----------
-    NUREG-0492 (gate semantics); Pearl 1988 and Henrion 1989 (noisy-OR with leak).
+    NUREG-0492 (gate semantics); Pearl 1988, Henrion 1989 and Díez 1993 (noisy-OR and
+    noisy-MAX with leak).
     """
     if max_fanin < 3:
         raise ValueError("max_fanin must be at least 3")

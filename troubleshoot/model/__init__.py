@@ -12,9 +12,11 @@ from troubleshoot.model.types import (
     FORMAT_VERSION,
     GATE_KINDS,
     PROBABILITY_BASES,
+    READ_VERSIONS,
     BasicEvent,
     Cause,
     Check,
+    Escalation,
     Gate,
     Model,
     Repair,
@@ -24,6 +26,6 @@ from troubleshoot.model.types import (
 )
 
 __all__ = [
-    "DERIVED", "FORMAT_VERSION", "GATE_KINDS", "PROBABILITY_BASES", "BasicEvent", "Cause", "Check",
-    "Gate", "Model", "Repair", "Verification", "exponential_probability", "unlisted_id",
+    "DERIVED", "FORMAT_VERSION", "GATE_KINDS", "PROBABILITY_BASES", "READ_VERSIONS", "BasicEvent", "Cause",
+    "Check", "Escalation", "Gate", "Model", "Repair", "Verification", "exponential_probability", "unlisted_id",
 ]

@@ -22,7 +22,9 @@ import math
 from dataclasses import dataclass, field
 from functools import cached_property
 
-FORMAT_VERSION = "1.0"
+FORMAT_VERSION = "1.1"
+#: Every format version the loader reads; 1.0 files mean exactly what they meant.
+READ_VERSIONS = ("1.0", "1.1")
 
 GATE_KINDS = ("and", "or", "atleast", "not", "inhibit")
 PROBABILITY_BASES = ("per-demand", "mission-time")
@@ -111,35 +113,72 @@ class Gate:
 
 @dataclass(frozen=True)
 class Cause:
-    """A cause a check responds to (a gate or basic event) and how often it shows."""
+    """A cause a check responds to (a gate or basic event) and how it shows.
+
+    ``detection`` is the probability that this cause, when present, shows
+    at all (some abnormal outcome). ``shows`` (format 1.1) splits it over
+    the abnormal outcomes as (outcome name, probability) pairs; when it is
+    given, ``detection`` is its sum. Without ``shows`` (a two-outcome check)
+    the whole ``detection`` goes to the one abnormal outcome.
+    """
 
     target: str
-    detection: float
+    detection: float = 0.0
+    shows: tuple[tuple[str, float], ...] = ()
+
+    def __post_init__(self):
+        if self.shows:
+            object.__setattr__(self, "detection", math.fsum(float(p) for _, p in self.shows))
 
 
 @dataclass(frozen=True)
 class Check:
-    """Something a technician can do or read: a noisy-OR over its causes.
+    """Something a technician can do or read: a noisy-OR (two outcomes) or noisy-MAX over its causes.
 
-    ``outcomes`` is (normal, abnormal): the first is what is seen when none of
-    the causes shows; P(abnormal | causes) = 1 - (1 - false_alarm) * prod over
-    present causes of (1 - detection). A symptom is a Check with cost 0 that is
-    observed at the start.
+    ``outcomes`` lists the K >= 2 outcome names, the normal one first (what
+    is seen when none of the causes shows), then the abnormal ones. Each
+    present cause independently produces an abnormal outcome or nothing
+    (:class:`Cause`), so does the false alarm (the leak), and the check
+    shows the produced outcome that dominates: the abnormal outcomes are
+    listed from weakest to strongest, so the one listed last wins
+    (noisy-MAX over that order). With two outcomes this is the noisy-OR
+    P(abnormal | causes) = 1 - (1 - false_alarm) * prod over present causes
+    of (1 - detection). :mod:`troubleshoot.engine.observation` holds the rule.
+    A symptom is a Check with cost 0 that is observed at the start.
+
+    ``false_alarm`` is the leak's total probability; ``leak`` (format 1.1)
+    splits it over the abnormal outcomes as (outcome name, probability)
+    pairs, and when given ``false_alarm`` is its sum.
     """
 
     id: str
     label: str
     cost: float
-    outcomes: tuple[str, str]
+    outcomes: tuple[str, ...]
     causes: tuple[Cause, ...]
     false_alarm: float = 0.0
     instructions: str = ""
     caution: str | None = None
     line: int | None = field(default=None, compare=False)
+    leak: tuple[tuple[str, float], ...] = ()
+
+    def __post_init__(self):
+        if self.leak:
+            object.__setattr__(self, "false_alarm", math.fsum(float(p) for _, p in self.leak))
 
     def outcome_index(self, name: str) -> int:
-        """0 for the normal outcome, 1 for the abnormal one; ValueError otherwise."""
+        """Index of an outcome name (0 for the normal outcome); ValueError otherwise."""
         return self.outcomes.index(name)
+
+    @property
+    def normal(self) -> str:
+        """The normal outcome's name."""
+        return self.outcomes[0]
+
+    @property
+    def dominance_order(self) -> tuple[str, ...]:
+        """The abnormal outcomes, weakest first (their listed order): the last one dominates."""
+        return tuple(self.outcomes[1:])
 
 
 @dataclass(frozen=True)
@@ -150,6 +189,21 @@ class Verification:
     cost: float
     instructions: str = ""
     outcomes: tuple[str, str] = ("works", "still fails")
+
+
+@dataclass(frozen=True)
+class Escalation:
+    """Handing the unit over when the cause lies beyond the model (format 1.1).
+
+    ``label`` says what escalating means in words ("call the manufacturer's
+    field engineer", "swap the whole unit"); ``cost`` is its price in the
+    model's cost unit, counted once, after which the unit is taken as put
+    right.
+    """
+
+    label: str
+    cost: float
+    instructions: str = ""
 
 
 @dataclass(frozen=True)
@@ -173,6 +227,10 @@ class Model:
         The check of the top event after a repair.
     isolation_threshold : float
         Posterior at which a suspect counts as isolated.
+    escalation : Escalation or None
+        What handing the unit over costs and means (format 1.1); None: no
+        price, so escalation is never chosen by cost (see
+        :mod:`troubleshoot.advice.policy`).
     """
 
     name: str
@@ -190,6 +248,7 @@ class Model:
     top_label: str = ""
     verification: Verification | None = None
     isolation_threshold: float = 0.95
+    escalation: Escalation | None = None
     source: str | None = field(default=None, compare=False)
 
     # Lookups, derived once; cached_property writes to __dict__, so it is

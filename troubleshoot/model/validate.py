@@ -369,24 +369,86 @@ class _Checker:
             if cause.target in seen:
                 self.error(cause_line, f"{kind} '{cid}' lists cause '{cause.target}' twice; list each cause once")
             seen.add(cause.target)
-            if not _is_probability(cause.detection):
+            if cause.shows:
+                self.check_distribution(check, kind, cause.shows, f"cause '{cause.target}'",
+                                        lambda j, i=index, at=cause_line: self.line((cid, "shows", i, j), at), cause_line)
+            elif not _is_probability(cause.detection):
                 self.error(
                     cause_line,
                     f"{kind} '{cid}' detection probability {cause.detection!r} for '{cause.target}' "
                     "is outside [0, 1]; give a probability between 0 and 1",
                 )
-        if not _is_probability(check.false_alarm):
+            elif len(check.outcomes) > 2:
+                self.error(
+                    cause_line,
+                    f"{kind} '{cid}' cause '{cause.target}' gives one detection probability, but the check has "
+                    f"{len(check.outcomes) - 1} abnormal outcomes ({', '.join(map(repr, check.outcomes[1:]))}); "
+                    "give <shows outcome=\"...\" probability=\"...\"/> for each one the cause can produce",
+                )
+        if check.leak:
+            self.check_distribution(check, kind, check.leak, "false alarm",
+                                    lambda j: self.line((cid, "leak", j), line), line)
+        elif not _is_probability(check.false_alarm):
             self.error(
                 line,
                 f"{kind} '{cid}' false-alarm probability {check.false_alarm!r} is outside [0, 1]; "
                 "give a probability between 0 and 1",
+            )
+        elif len(check.outcomes) > 2 and check.false_alarm > 0:
+            self.error(
+                line,
+                f"{kind} '{cid}' has {len(check.outcomes) - 1} abnormal outcomes; give its false alarm as "
+                "<false-alarm outcome=\"...\" probability=\"...\"/> per abnormal outcome instead of one number",
             )
         if kind == "symptom":
             if check.cost != 0:
                 self.error(line, f"symptom '{cid}' has cost {check.cost!r}; symptoms cost 0 (make it a check instead)")
         elif not _is_cost(check.cost):
             self.error(line, f"check '{cid}' cost {check.cost!r} {self.model.cost_unit} is not a finite number >= 0")
-        self.check_outcomes(check.outcomes, self.line((cid, "outcomes"), line), f"{kind} '{cid}'")
+        self.check_check_outcomes(check, kind, self.line((cid, "outcomes"), line))
+
+    def check_check_outcomes(self, check: Check, kind: str, line: int | None) -> None:
+        """K >= 2 non-empty names, each once (format 1.1); two outcomes keep the 1.0 wording."""
+        outcomes = check.outcomes
+        if len(outcomes) <= 2:
+            self.check_outcomes(outcomes, line, f"{kind} '{check.id}'")
+            return
+        if not all(isinstance(o, str) and o.strip() for o in outcomes):
+            self.error(line, f"{kind} '{check.id}' has an outcome without a name ({outcomes!r}); name every outcome")
+        for name in sorted({o for o in outcomes if outcomes.count(o) > 1}):
+            self.error(line, f"{kind} '{check.id}' names the outcome {name!r} twice (its outcomes: "
+                             f"{', '.join(map(repr, outcomes))}); give every outcome its own name")
+
+    def check_distribution(self, check: Check, kind: str, pairs, owner: str, line_of, line) -> None:
+        """One cause's (or the false alarm's) probabilities over the abnormal outcomes.
+
+        Each must name an abnormal outcome of the check, once, with a
+        probability in [0, 1]; together they may not exceed 1 (what is left
+        is "not seen").
+        """
+        cid = check.id
+        abnormal = check.outcomes[1:]
+        named: set[str] = set()
+        total = 0.0
+        for j, (name, p) in enumerate(pairs):
+            where = line_of(j)
+            if name == check.outcomes[0]:
+                self.error(where, f"{kind} '{cid}' {owner} gives the normal outcome {name!r}; list only the "
+                                  f"abnormal outcomes it produces ({', '.join(map(repr, abnormal))})")
+            elif name not in abnormal:
+                self.error(where, f"{kind} '{cid}' {owner} gives outcome {name!r}, which the check does not have; "
+                                  f"use one of {', '.join(map(repr, abnormal))}")
+            if name in named:
+                self.error(where, f"{kind} '{cid}' {owner} gives outcome {name!r} twice; give each outcome once")
+            named.add(name)
+            if not _is_probability(p):
+                self.error(where, f"{kind} '{cid}' {owner} probability {p!r} for {name!r} is outside [0, 1]; "
+                                  "give a probability between 0 and 1")
+            else:
+                total += p
+        if total > 1.0 + 1e-12:
+            self.error(line, f"{kind} '{cid}' {owner} probabilities add up to {total:.6g}, more than 1; "
+                             "lower them so that they sum to at most 1 (the rest is \"not seen\")")
 
     def check_outcomes(self, outcomes, line: int | None, owner: str) -> None:
         ok = (

@@ -28,6 +28,7 @@ from lxml import etree
 from troubleshoot.errors import ModelError, Problem
 from troubleshoot.model import (
     FORMAT_VERSION,
+    READ_VERSIONS,
     BasicEvent,
     Cause,
     Check,
@@ -144,15 +145,22 @@ def _root_problems(root: etree._Element, name: str) -> list[Problem]:
                 f"<{ROOT_TAG}> has no format-version; add format-version=\"{FORMAT_VERSION}\"",
             )
         ]
-    if version.strip() != FORMAT_VERSION:
+    if version.strip() not in READ_VERSIONS:
         return [
             Problem(
                 name,
                 root.sourceline,
-                f"format version {version!r} is not supported; this troubleshoot reads version "
-                f"{FORMAT_VERSION} (upgrade troubleshoot, or write format-version=\"{FORMAT_VERSION}\")",
+                f"format version {version!r} is not supported; this troubleshoot reads versions "
+                f"{', '.join(READ_VERSIONS)} (upgrade troubleshoot, or write format-version=\"{FORMAT_VERSION}\")",
             )
         ]
+    if version.strip() == "1.0":
+        # The elements of version 1.1 say something a 1.0 file cannot.
+        for tag in ("abnormal", "shows", "false-alarm"):
+            for element in root.iter(tag):
+                return [Problem(name, element.sourceline,
+                                f"<{tag}> belongs to format version 1.1; write format-version=\"1.1\" "
+                                f"on <{ROOT_TAG}>")]
     return []
 
 
@@ -389,29 +397,67 @@ class _Builder:
     def outcomes(self, element: etree._Element) -> tuple[str, str]:
         return (_clean_text(element.get("normal")), _clean_text(element.get("abnormal")))
 
+    def check_outcomes(self, cid: str, element: etree._Element | None) -> tuple[str, ...]:
+        """Normal first, then the abnormal outcomes weakest first (an attribute or elements)."""
+        if element is None:
+            return ("", "")
+        self.lines[(cid, "outcomes")] = element.sourceline
+        listed = self.children(element, "abnormal")
+        attribute = element.get("abnormal")
+        if attribute is not None and listed:
+            self.error(element.sourceline, f"check '{cid}' gives its abnormal outcome both as abnormal=\"...\" "
+                                           "and as <abnormal> elements; keep one form")
+        if attribute is not None or not listed:
+            return self.outcomes(element)
+        for j, item in enumerate(listed):
+            self.lines[(cid, "outcome", j + 1)] = item.sourceline
+        return (_clean_text(element.get("normal")),) + tuple(_clean_text(a.get("name")) for a in listed)
+
+    def gives(self, cid: str, elements: list, key: tuple, what: str) -> tuple[tuple[str, float], ...]:
+        """(outcome, probability) pairs of <shows> or <false-alarm> elements."""
+        out = []
+        for j, item in enumerate(elements):
+            self.lines[key + (j,)] = item.sourceline
+            out.append((_clean_text(item.get("outcome")),
+                        self.number(item.get("probability"), item.sourceline, f"'{cid}' {what}", 0.0)))
+        return tuple(out)
+
     def check(self, element: etree._Element, symptom: bool) -> Check:
         cid = self.ident(element)
         line = element.sourceline
         causes = []
         for index, cause in enumerate(self.children(element, "cause")):
             self.lines[(cid, "cause", index)] = cause.sourceline
+            shows = self.gives(cid, self.children(cause, "shows"), (cid, "shows", index),
+                               f"cause '{cause.get('ref')}' probability")
+            if shows and cause.get("detection") is not None:
+                self.error(cause.sourceline, f"cause '{cause.get('ref')}' of '{cid}' has both detection=\"...\" "
+                                             "and <shows> elements; keep one form")
+            elif not shows and cause.get("detection") is None:
+                self.error(cause.sourceline, f"cause '{cause.get('ref')}' of '{cid}' says neither how often it "
+                                             "shows: add detection=\"...\" (two outcomes) or <shows outcome=\"...\" "
+                                             "probability=\"...\"/> per abnormal outcome")
             causes.append(
                 Cause(
                     target=(cause.get("ref") or "").strip(),
                     detection=self.number(cause.get("detection"), cause.sourceline, f"'{cid}' detection", 0.0),
+                    shows=shows,
                 )
             )
-        outcomes_element = self.child(element, "outcomes")
-        if outcomes_element is not None:
-            self.lines[(cid, "outcomes")] = outcomes_element.sourceline
+        outcomes = self.check_outcomes(cid, self.child(element, "outcomes"))
+        leak = self.gives(cid, self.children(element, "false-alarm"), (cid, "leak"), "false-alarm probability")
+        if leak and element.get("false-alarm") is not None:
+            self.error(line, f"'{cid}' has both a false-alarm=\"...\" attribute and <false-alarm> elements; "
+                             "keep one form")
         caution = self.child(element, "caution")
         return Check(
             id=cid,
             label=self.child_text(element, "label"),
             cost=0.0 if symptom else self.number(element.get("cost"), line, f"check '{cid}' cost", 0.0),
-            outcomes=self.outcomes(outcomes_element) if outcomes_element is not None else ("", ""),
+            outcomes=outcomes,
             causes=tuple(causes),
             false_alarm=self.number(element.get("false-alarm"), line, f"'{cid}' false-alarm", 0.0),
+            leak=leak,
             instructions=self.child_text(element, "instructions"),
             caution=self.text(caution) if caution is not None else None,
             line=line,
@@ -499,15 +545,28 @@ def model_to_tree(model: Model) -> etree._Element:
             element = _sub(container, tag, id=check.id)
             if tag == "check":
                 element.set("cost", _number(check.cost))
-            element.set("false-alarm", _number(check.false_alarm))
+            if not check.leak:
+                element.set("false-alarm", _number(check.false_alarm))
             _sub(element, "label", check.label)
             if check.instructions:
                 _sub(element, "instructions", check.instructions)
             if check.caution is not None:
                 _sub(element, "caution", check.caution)
-            _sub(element, "outcomes", normal=check.outcomes[0], abnormal=check.outcomes[1])
+            if len(check.outcomes) == 2:
+                _sub(element, "outcomes", normal=check.outcomes[0], abnormal=check.outcomes[1])
+            else:  # format 1.1: the abnormal outcomes, weakest first
+                outcomes = _sub(element, "outcomes", normal=check.outcomes[0])
+                for name in check.outcomes[1:]:
+                    _sub(outcomes, "abnormal", name=name)
+            for name, p in check.leak:
+                _sub(element, "false-alarm", outcome=name, probability=_number(p))
             for cause in check.causes:
-                _sub(element, "cause", ref=cause.target, detection=_number(cause.detection))
+                if cause.shows:
+                    item = _sub(element, "cause", ref=cause.target)
+                    for name, p in cause.shows:
+                        _sub(item, "shows", outcome=name, probability=_number(p))
+                else:
+                    _sub(element, "cause", ref=cause.target, detection=_number(cause.detection))
     return root
 
 

@@ -10,6 +10,8 @@ from troubleshoot.session.session import (
     Session,
     SessionSettings,
     SessionView,
+    Decision,
+    Status,
     settings_for,
     top_verification,
     verification_for,
@@ -17,5 +19,5 @@ from troubleshoot.session.session import (
 
 __all__ = [
     "AMBIGUITY", "AWAITING_VERIFICATION", "CONFIRMED", "DIAGNOSING", "ISOLATED", "OBSERVATION",
-    "Session", "SessionSettings", "SessionView", "settings_for", "top_verification", "verification_for",
+    "Decision", "Session", "SessionSettings", "Status", "SessionView", "settings_for", "top_verification", "verification_for",
 ]

@@ -58,7 +58,7 @@ MARK_ACTIONS = ("acknowledge", "resume", "job")
 
 def utc_now() -> str:
     """The current time, ISO 8601 in UTC, e.g. ``2024-05-01T09:30:00.123456Z``."""
-    return _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+    return _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
 def _json_score(score: float):
@@ -171,7 +171,7 @@ def create_log_file(log_path: str | os.PathLike | None = None) -> tuple[Path, in
         raise LogError(f"{directory}: cannot create the session log folder ({exc.strerror}); "
                        "give --log PATH") from None
     for _ in range(16):
-        stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y%m%dT%H%M%S%fZ")
+        stamp = _dt.datetime.now(_dt.UTC).strftime("%Y%m%dT%H%M%S%fZ")
         path = directory / f"{stamp}-{secrets.token_hex(4)}.jsonl"
         try:
             fd = os.open(path, flags, 0o644)

@@ -59,104 +59,54 @@ from functools import cached_property
 from typing import Any, Protocol
 
 from troubleshoot.advice.diagnosis import (
-    VerificationRequest,
-    cost_of_check_then,
-    expected_repair_cost,
-    top_verification,
-    verification_for,
-    verification_of,
     Explanation,
-    RepairStep,
     Suspect,
     ambiguity_group,
     entropy_bits,
     isolated_suspect,
     most_probable_explanation,
-    repair_order,
     suspects,
 )
 from troubleshoot.advice.explain import Why, explain_check
-from troubleshoot.errors import SessionError
-from troubleshoot.engine.inference import Engine, Finding, Posterior
-from troubleshoot.model import Model
+from troubleshoot.advice.policy import (
+    DEFAULT_GROUP_MIN_P,
+    DEFAULT_MIN_BITS,
+    DEFAULT_VALUE_DEPTH,
+    DEFAULT_VALUE_LOOKAHEAD,
+    Decision,
+    OutsideModel,
+    Status,
+    cost_of_check_then,
+    decide,
+    finish_plan,
+)
+from troubleshoot.advice.policy import Settings as SessionSettings
+from troubleshoot.advice.policy import settings_for
 from troubleshoot.advice.ranking import Ranking, RankRow, rank
+from troubleshoot.advice.repair import (
+    RepairStep,
+    VerificationRequest,
+    repair_order,
+    top_verification,
+    verification_for,
+    verification_of,
+)
+from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.errors import SessionError
+from troubleshoot.model import Model
 
-DIAGNOSING = "diagnosing"
-ISOLATED = "isolated"
-AMBIGUITY = "ambiguity"
-AWAITING_VERIFICATION = "awaiting-verification"
-CONFIRMED = "confirmed"
-STATUSES = (DIAGNOSING, ISOLATED, AMBIGUITY, AWAITING_VERIFICATION, CONFIRMED)
+DIAGNOSING = Status.DIAGNOSING
+ISOLATED = Status.ISOLATED
+AMBIGUITY = Status.AMBIGUITY
+AWAITING_VERIFICATION = Status.AWAITING_VERIFICATION
+CONFIRMED = Status.CONFIRMED
+STATUSES = tuple(Status)
 
-#: Default: a check giving less than this many bits is not worth doing.
-DEFAULT_MIN_BITS = 0.01
-#: Default: suspects at or above this posterior form the ambiguity group.
-DEFAULT_GROUP_MIN_P = 0.05
-DEFAULT_VALUE_LOOKAHEAD = 3
-DEFAULT_VALUE_DEPTH = 1
+__all__ = ["DEFAULT_GROUP_MIN_P", "DEFAULT_MIN_BITS", "DEFAULT_VALUE_DEPTH", "DEFAULT_VALUE_LOOKAHEAD",
+           "SessionSettings", "settings_for", "Status", "Decision"]
 
 # Kinds of recorded observations.
 COMPLAINT, OBSERVATION, VERIFICATION = "complaint", "finding", "verification"
-
-
-@dataclass(frozen=True)
-class SessionSettings:
-    """The thresholds a session decides with.
-
-    Attributes
-    ----------
-    isolation_threshold : float
-        A suspect with P(failed | findings) at or above it is isolated.
-    min_bits : float
-        A check giving fewer bits is not worth doing (bits).
-    group_min_p : float
-        Suspects at or above this posterior form the ambiguity group.
-    value_lookahead : int
-        How many of the best-scoring checks are weighed against repairing at
-        once (one step ahead, Heckerman, Breese & Rommelse 1995): the first
-        of them expected to cost less than it saves is recommended; when none
-        is, no check is worth doing and the repair order is proposed. 0 turns
-        the comparison off (only ``min_bits`` decides).
-    value_depth : int
-        How many checks ahead the comparison looks: 1 is the myopic rule
-        (one check, then repair); 2 also tries a second check after each
-        outcome of the first, when no single check pays.
-    """
-
-    isolation_threshold: float = 0.95
-    min_bits: float = DEFAULT_MIN_BITS
-    group_min_p: float = DEFAULT_GROUP_MIN_P
-    value_lookahead: int = DEFAULT_VALUE_LOOKAHEAD
-    value_depth: int = DEFAULT_VALUE_DEPTH
-
-    def validated(self) -> "SessionSettings":
-        for name, low_open in (("isolation_threshold", True), ("group_min_p", True)):
-            value = getattr(self, name)
-            if not (isinstance(value, (int, float)) and 0.0 < value <= 1.0):
-                raise SessionError(f"{name.replace('_', ' ')} must be a probability above 0 and at most 1, "
-                                   f"not {value!r}")
-        if not (isinstance(self.min_bits, (int, float)) and 0.0 <= self.min_bits < math.inf):
-            raise SessionError(f"min bits must be a number of bits, 0 or more, not {self.min_bits!r}")
-        if not (isinstance(self.value_depth, int) and 1 <= self.value_depth <= 3):
-            raise SessionError(f"value depth must be 1, 2 or 3 checks, not {self.value_depth!r}")
-        if not (isinstance(self.value_lookahead, int) and 0 <= self.value_lookahead <= 50):
-            raise SessionError(f"value lookahead must be a whole number of checks from 0 to 50, "
-                               f"not {self.value_lookahead!r}")
-        return replace(self, isolation_threshold=float(self.isolation_threshold),
-                       min_bits=float(self.min_bits), group_min_p=float(self.group_min_p))
-
-
-def settings_for(model: Model, isolation_threshold: float | None = None, min_bits: float | None = None,
-                 group_min_p: float | None = None, value_lookahead: int | None = None,
-                 value_depth: int | None = None) -> SessionSettings:
-    """Settings with the model's isolation threshold and the defaults, overridden where given."""
-    return SessionSettings(
-        model.isolation_threshold if isolation_threshold is None else isolation_threshold,
-        DEFAULT_MIN_BITS if min_bits is None else min_bits,
-        DEFAULT_GROUP_MIN_P if group_min_p is None else group_min_p,
-        DEFAULT_VALUE_LOOKAHEAD if value_lookahead is None else value_lookahead,
-        DEFAULT_VALUE_DEPTH if value_depth is None else value_depth,
-    ).validated()
 
 
 @dataclass(frozen=True)
@@ -239,6 +189,13 @@ class SessionState:
     why : Why or None
         Why the recommended check is worth doing (only from
         :meth:`Session.explained_state`; None when no check is recommended).
+    decision : Decision or None
+        What to do next, its expected cost, the alternatives weighed and why
+        (:func:`troubleshoot.advice.policy.decide`).
+    outside_model_p : float
+        P(the cause lies outside the model | findings): every unlisted cause together.
+    outside_model_by_gate : tuple of (gate id, float)
+        The same per gate with unlisted causes.
     """
 
     status: str
@@ -261,10 +218,14 @@ class SessionState:
     epoch: int
     settings: SessionSettings
     why: Why | None = None
+    decision: Decision | None = None
+    outside_model_p: float = 0.0
+    outside_model_by_gate: tuple[tuple[str, float], ...] = ()
 
     def to_dict(self) -> dict:
         """The state as JSON-ready dicts and lists (an infinite score becomes None)."""
-        data = asdict(self)
+        data = asdict(replace(self, decision=None))
+        data["decision"] = self.decision.to_dict() if self.decision is not None else None
         for row in list(data["ranking"]) + ([data["next_check"]] if data["next_check"] else []):
             if math.isinf(row["score"]):
                 row["score"] = None
@@ -277,7 +238,7 @@ class SessionState:
 class SessionLogWriter(Protocol):
     """What a session needs from its log (see :class:`troubleshoot.session.logfile.LogWriter`)."""
 
-    def write_action(self, action: dict, view: "SessionView") -> None: ...
+    def write_action(self, action: dict, view: SessionView) -> None: ...
 
     def close(self) -> None: ...
 
@@ -308,7 +269,7 @@ class SessionView:
         done = [o for o in rec.observations if o.kind == VERIFICATION and o.finding.epoch == rec.epoch]
         if not done:
             return verification_for(self.model, rec.repairs[-1])
-        if any(o.finding.target == self.model.top for o in done) or done[-1].finding.outcome == 1:
+        if any(o.finding.target == self.model.top for o in done) or done[-1].finding.outcome != 0:
             return None
         return top_verification(self.model)
 
@@ -352,48 +313,25 @@ class SessionView:
         return ambiguity_group(self.suspects, self.settings.group_min_p)
 
     @cached_property
-    def status(self) -> str:
-        if self.confirmed:
-            return CONFIRMED
-        if self.verification_request is not None:
-            return AWAITING_VERIFICATION
-        if self.isolated is not None:
-            return ISOLATED
-        if self.recommended is None:
-            return AMBIGUITY
-        return DIAGNOSING
+    def decision(self) -> Decision:
+        """What to do next and why (:func:`troubleshoot.advice.policy.decide`)."""
+        return decide(self.engine, self.posterior, self.settings, self.candidates,
+                      verification=self.verification_request, confirmed=self.confirmed,
+                      ranking=self.ranking, ranked=self.suspects)
+
+    @property
+    def outside_model(self) -> OutsideModel:
+        """P(the cause lies outside the model), in total and per gate."""
+        return self.decision.outside_model
+
+    @cached_property
+    def status(self) -> Status:
+        return self.decision.status
 
     @cached_property
     def recommended(self) -> RankRow | None:
-        """The check to do next, or None when no check is worth doing.
-
-        A check is worth doing when it gives at least ``min_bits`` bits and,
-        among the ``value_lookahead`` best-scoring such checks, it is the
-        first expected to cost less than it saves in repairs.
-        """
-        settings = self.settings
-        rows = self.ranking.worth_doing(settings.min_bits)
-        if not rows or settings.value_lookahead == 0:
-            return rows[0] if rows else None
-        now = expected_repair_cost(self.posterior)
-        shortlist = rows[: settings.value_lookahead]
-        for row in shortlist:
-            if row.cost <= 0.0:
-                return row  # a free informative check always pays
-        # Of the shortlist, the check with the least expected cost of finishing
-        # (it, then repair in order), if that beats repairing at once; when no
-        # check pays so, a second check ahead, so a pair worth doing is not missed.
-        for depth in range(1, settings.value_depth + 1):
-            best, best_cost = None, now
-            for row in shortlist:
-                ahead = cost_of_check_then(self.engine, self.posterior, row.check, row.cost, row.p_outcomes,
-                                           self.candidates, depth, settings.value_lookahead, settings.min_bits,
-                                           bound=best_cost)
-                if ahead < best_cost:
-                    best, best_cost = row, ahead
-            if best is not None:
-                return best
-        return None
+        """The check to do next, or None when no check is worth doing (see the decision)."""
+        return self.decision.check
 
     @cached_property
     def repair_order(self) -> tuple[RepairStep, ...]:
@@ -401,13 +339,23 @@ class SessionView:
 
     @cached_property
     def why(self) -> Why | None:
-        """Why the recommended check is worth doing (None when no check is recommended)."""
-        if self.status != DIAGNOSING or self.recommended is None:
+        """Why the recommended check is worth doing (None when no check is recommended).
+
+        The two costs are the decision's: doing the check then finishing, and
+        finishing at once (repairs in order, or escalating when cheaper).
+        """
+        decision = self.decision
+        row = decision.check
+        if row is None:
             return None
-        settings = self.settings
-        return explain_check(self.engine, self.posterior, self.recommended, self.candidates,
-                             depth=settings.value_depth,
-                             breadth=max(1, settings.value_lookahead), min_bits=settings.min_bits)
+        costs = dict(decision.reasons[0].costs) if decision.reasons else {}
+        now = costs.get("finish without checking")
+        if now is None:
+            now = finish_plan(self.model, self.suspects, self.settings).best
+        first = decision.expected_cost
+        if first is None or not math.isfinite(first):
+            first = cost_of_check_then(self.engine, self.posterior, row, self.candidates, 1, self.settings)
+        return explain_check(self.engine, self.posterior, row, first, now)
 
     @cached_property
     def cost_spent(self) -> float:
@@ -480,14 +428,27 @@ class SessionView:
             cautions=self.cautions(),
             epoch=self.record.epoch,
             settings=self.settings,
+            decision=self.decision,
+            outside_model_p=self.outside_model.p,
+            outside_model_by_gate=self.outside_model.by_gate,
         )
 
 
-def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:
+def outcome_index(outcomes: tuple[str, ...], outcome: Any, what: str) -> int:
+    """The index of an outcome given as an index (int), a name, or a number 1..K (text).
+
+    A name matches exactly, then ignoring case; text that is no name but a
+    number 1..K means that outcome in the listed order (1 the normal one).
+
+    Raises
+    ------
+    SessionError
+        Naming the outcomes, numbered, when ``outcome`` is none of them.
+    """
     if isinstance(outcome, bool):
         outcome = int(outcome)
     if isinstance(outcome, int):
-        if outcome in (0, 1):
+        if 0 <= outcome < len(outcomes):
             return outcome
     elif isinstance(outcome, str):
         if outcome in outcomes:
@@ -495,8 +456,15 @@ def _outcome_index(outcomes: tuple[str, str], outcome: Any, what: str) -> int:
         folded = [o.casefold() for o in outcomes]
         if outcome.strip().casefold() in folded:
             return folded.index(outcome.strip().casefold())
-    raise SessionError(f"{what} has the outcomes {outcomes[0]!r} and {outcomes[1]!r}, not {outcome!r}; "
-                       "give one of them")
+        if outcome.strip().isdigit() and 1 <= int(outcome.strip()) <= len(outcomes):
+            return int(outcome.strip()) - 1
+    raise SessionError(f"{what} has the outcomes {numbered_outcomes(outcomes)}, not {outcome!r}; "
+                       "give one of them by name or number")
+
+
+def numbered_outcomes(outcomes: tuple[str, ...]) -> str:
+    """``1 'normal', 2 'low', 3 'high'``: the outcomes with the numbers a technician types."""
+    return ", ".join(f"{i} {name!r}" for i, name in enumerate(outcomes, start=1))
 
 
 class Session:
@@ -604,7 +572,7 @@ class Session:
         if request is not None and request.target == check_id:
             # The check that verifies the last repair: its outcome is the verification.
             return self.record_verification(outcome)
-        index = _outcome_index(check.outcomes, outcome, f"check {check_id!r}")
+        index = outcome_index(check.outcomes, outcome, f"check {check_id!r}")
         rec = self._view.record
         for o in rec.observations:
             if o.finding.target == check_id and o.finding.epoch == rec.epoch:
@@ -631,7 +599,7 @@ class Session:
         position = self._find(check_id, epoch)
         old = rec.observations[position]
         outcomes = self._outcomes_of(old)
-        index = _outcome_index(outcomes, outcome, f"{check_id!r}")
+        index = outcome_index(outcomes, outcome, f"{check_id!r}")
         if index == old.finding.outcome:
             raise SessionError(f"the finding on {check_id!r} already reads {outcomes[index]!r}; nothing to correct")
         fixed = Observation(replace(old.finding, outcome=index), old.kind)
@@ -686,7 +654,7 @@ class Session:
                 if o.finding.target == request.target and o.finding.epoch == rec.epoch:
                     raise SessionError(f"check {request.target!r} was already done since the last repair; "
                                        "its finding is the verification: correct it if needed")
-        index = _outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
+        index = outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
         new = replace(rec, observations=rec.observations + (Observation(Finding(request.target, index, rec.epoch),
                                                                          VERIFICATION),))
         return self._commit({"action": "verify", "outcome": request.outcomes[index]}, new)
@@ -815,7 +783,7 @@ class Session:
             raise SessionError(f"there is no finding on {target!r}{when} to change")
         return matches[-1]
 
-    def _outcomes_of(self, observation: Observation) -> tuple[str, str]:
+    def _outcomes_of(self, observation: Observation) -> tuple[str, ...]:
         f = observation.finding
         if observation.kind == VERIFICATION:
             return verification_for(self.model, self._view.record.repairs[f.epoch - 1]).outcomes

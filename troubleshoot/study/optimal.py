@@ -48,6 +48,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from troubleshoot.advice.diagnosis import Suspect, is_unlisted
+from troubleshoot.advice.ranking import BITS_EPSILON, entropy_bits
+from troubleshoot.engine.observation import outcome_probabilities
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.model.gates import gate_values
 from troubleshoot.model import Model
@@ -58,27 +60,16 @@ from troubleshoot.session import (
     top_verification,
     verification_for,
 )
-from troubleshoot.study.simulation import CLEARED_P, next_repair, repair_cost
+from troubleshoot.advice.repair import CLEARED_P, next_repair, repair_cost
 
 #: Largest number of root events the enumeration takes (2^16 joint states).
 MAX_ROOTS = 16
 #: Largest number of distinct sets of findings the recursion visits.
 MAX_STATES = 200_000
-#: Information below this is exactly zero up to rounding (as in the ranking).
-BITS_EPSILON = 1e-12
 
 
 class OptimalTooLarge(TroubleshootError):
     """The model is too large for the exact optimal policy."""
-
-
-def _binary_entropy(p: np.ndarray) -> np.ndarray:
-    p = np.clip(np.asarray(p, float), 0.0, 1.0)
-    out = np.zeros_like(p)
-    inside = (p > 0.0) & (p < 1.0)
-    q = p[inside]
-    out[inside] = -(q * np.log2(q) + (1.0 - q) * np.log2(1.0 - q))
-    return out
 
 
 class Enumeration:
@@ -107,7 +98,7 @@ class Enumeration:
         priors = np.array([model.prior_of(r) for r in self.roots])
         self.prior = np.prod(np.where(self.states, priors, 1.0 - priors), axis=1)
         self._values: dict[frozenset, dict[str, np.ndarray]] = {}
-        self._p_abnormal: dict[tuple, np.ndarray] = {}
+        self._table: dict[tuple, np.ndarray] = {}
 
     def values(self, repaired) -> dict[str, np.ndarray]:
         """Failed or not, per joint state, of every root and gate, the repaired roots working."""
@@ -121,21 +112,25 @@ class Enumeration:
         self._values[key] = value
         return value
 
-    def p_abnormal(self, check_id: str, repaired=()) -> np.ndarray:
-        """P(abnormal | joint state) of a check: noisy-OR with leak (Pearl 1988)."""
+    def table(self, check_id: str, repaired=()) -> np.ndarray:
+        """P(outcome | joint state) of a check, shape (states, K) (:mod:`troubleshoot.engine.observation`)."""
         key = (check_id, frozenset(repaired))
-        if key not in self._p_abnormal:
+        if key not in self._table:
             check = self.model.check_by_id[check_id]
             value = self.values(repaired)
-            p_normal = np.full(len(self.states), 1.0 - check.false_alarm)
-            for cause in check.causes:
-                p_normal = p_normal * np.where(value[cause.target], 1.0 - cause.detection, 1.0)
-            self._p_abnormal[key] = 1.0 - p_normal
-        return self._p_abnormal[key]
+            self._table[key] = outcome_probabilities(check, [value[c.target] for c in check.causes])
+        return self._table[key]
+
+    def outcomes(self, check_id: str) -> range:
+        """The outcome indices of a check."""
+        return range(len(self.model.check_by_id[check_id].outcomes))
+
+    def p_abnormal(self, check_id: str, repaired=()) -> np.ndarray:
+        """P(any abnormal outcome | joint state) of a check."""
+        return 1.0 - self.table(check_id, repaired)[:, 0]
 
     def likelihood(self, check_id: str, outcome: int, repaired=()) -> np.ndarray:
-        p = self.p_abnormal(check_id, repaired)
-        return p if outcome == 1 else 1.0 - p
+        return self.table(check_id, repaired)[:, outcome]
 
     def complaint(self) -> np.ndarray:
         """Prior weight of each joint state times [the top event occurs]."""
@@ -153,9 +148,9 @@ class Enumeration:
     def bits(self, weights: np.ndarray, check_id: str) -> float:
         """I(F; T | findings) in bits for a check done before any repair (Cover & Thomas 2006)."""
         w = weights / weights.sum()
-        p_abn = self.p_abnormal(check_id)
-        p_t = float(np.clip(w @ p_abn, 0.0, 1.0))
-        value = float(_binary_entropy(np.array([p_t]))[0] - w @ _binary_entropy(p_abn))
+        table = self.table(check_id)
+        p_t = np.clip(w @ table, 0.0, 1.0)
+        value = float(entropy_bits(p_t) - w @ entropy_bits(table))
         return value if value > BITS_EPSILON else 0.0
 
 
@@ -245,7 +240,7 @@ def _symptom_states(enumeration: Enumeration, weights: np.ndarray):
     for s in model.symptoms:
         nxt = []
         for key, w, p in out:
-            for o in (0, 1):
+            for o in enumeration.outcomes(s.id):
                 w2 = w * enumeration.likelihood(s.id, o)
                 q = float(w2.sum() / w.sum())
                 if q > 0.0:
@@ -305,7 +300,7 @@ def solve(model: Model, settings: SessionSettings | None = None, max_states: int
             if t in done or cost_of[t] >= best or enum.bits(w, t) == 0.0:
                 continue
             expected = cost_of[t]
-            for o in (0, 1):
+            for o in enum.outcomes(t):
                 w2 = w * enum.likelihood(t, o)
                 p = float(w2.sum()) / total_w
                 if p > 0.0:
@@ -370,7 +365,7 @@ def expected_cost(model: Model, strategy, settings: SessionSettings | None = Non
                 total += prob * repair_phase_cost(enum, w, settings)
                 continue
             branch = float(model.check_by_id[action].cost)
-            for o in (0, 1):
+            for o in enum.outcomes(action):
                 w2 = w * enum.likelihood(action, o)
                 p = float(w2.sum() / w.sum())
                 if p <= 0.0:

@@ -52,9 +52,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, is_unlisted, repair_order
+from troubleshoot.advice.diagnosis import is_unlisted
+from troubleshoot.advice.repair import CLEARED_P, next_repair, repair_cost  # noqa: F401 (re-exported)
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.engine.inference import Engine, Finding
+from troubleshoot.engine.observation import outcome_probabilities, sample_outcome
 from troubleshoot.model.gates import gate_values
 from troubleshoot.model import Model
 from troubleshoot.session import (
@@ -65,9 +67,6 @@ from troubleshoot.session import (
     SessionSettings,
     settings_for,
 )
-
-#: A suspect below this posterior is treated as cleared (rounding of an exact zero).
-CLEARED_P = 1e-12
 
 # Streams of a case's random numbers (the third word of the seed sequence).
 STREAM_TRUE_STATE, STREAM_OUTCOMES, STREAM_STRATEGY = 0, 1, 2
@@ -82,43 +81,6 @@ Z95 = 1.96
 def case_generator(seed: int, case: int, stream: int) -> np.random.Generator:
     """The generator of one stream of one case, from (seed, case index, stream) alone."""
     return np.random.default_rng(np.random.SeedSequence([int(seed), int(case), int(stream)]))
-
-
-def repair_cost(model: Model, root: str) -> float:
-    """Cost of repairing a root (0 when the model lists no repair)."""
-    event = model.event_by_id.get(root)
-    return float(event.repair.cost) if event is not None and event.repair is not None else 0.0
-
-
-def next_repair(model: Model, ranked: tuple[Suspect, ...], group_min_p: float) -> str | None:
-    """The root to repair next: the first repairable entry of the repair order.
-
-    Parameters
-    ----------
-    model : Model
-    ranked : tuple of Suspect
-        The suspects, most probable first (repaired ones marked).
-    group_min_p : float
-        The session's ambiguity-group threshold.
-
-    Returns
-    -------
-    str or None
-        The first repairable suspect of :func:`~troubleshoot.advice.diagnosis.repair_order`
-        over the ambiguity group; when the group holds none, over every
-        unrepaired suspect with P > :data:`CLEARED_P`; None when no
-        repairable suspect is left.
-
-    References
-    ----------
-    Kadane & Simon 1977 (order by probability over cost).
-    """
-    for min_p in (group_min_p, CLEARED_P):
-        group = tuple(s for s in ambiguity_group(ranked, min_p) if s.p > CLEARED_P)
-        for step in repair_order(model, group):
-            if step.cost is not None:
-                return step.id
-    return None
 
 
 def sample_true_state(engine: Engine, rng: np.random.Generator) -> frozenset[str]:
@@ -185,20 +147,20 @@ class Equipment:
             self._values[key] = true_values(self.model, self.failed, key)
         return self._values[key]
 
-    def p_abnormal(self, check_id: str, repaired: tuple[str, ...]) -> float:
-        """P(abnormal) of a check given the true state: noisy-OR with leak (Pearl 1988)."""
+    def p_outcomes(self, check_id: str, repaired: tuple[str, ...]) -> np.ndarray:
+        """P(outcome) of a check given the true state (:mod:`troubleshoot.engine.observation`)."""
         check = self.model.check_by_id[check_id]
         values = self.values(repaired)
-        p_normal = 1.0 - check.false_alarm
-        for cause in check.causes:
-            if values[cause.target]:
-                p_normal *= 1.0 - cause.detection
-        return 1.0 - p_normal
+        return outcome_probabilities(check, [values[c.target] for c in check.causes])
+
+    def p_abnormal(self, check_id: str, repaired: tuple[str, ...]) -> float:
+        """P(any abnormal outcome) of a check given the true state."""
+        return float(1.0 - self.p_outcomes(check_id, repaired)[0])
 
     def answer(self, check_id: str, repaired: tuple[str, ...]) -> int:
-        """The outcome (0 normal, 1 abnormal) of a check done after ``repaired``."""
+        """The outcome index (0 normal) of a check done after ``repaired``."""
         u = self.uniforms[len(repaired), self._column[check_id]]
-        return int(u < self.p_abnormal(check_id, repaired))
+        return sample_outcome(self.p_outcomes(check_id, repaired), u)
 
     def top_fails(self, repaired: tuple[str, ...]) -> bool:
         return bool(self.values(repaired)[self.model.top])

@@ -18,7 +18,7 @@ import datetime as _dt
 import json
 import sys
 from pathlib import Path
-from typing import Callable
+from collections.abc import Callable
 
 from textual.app import App
 from textual.binding import Binding
@@ -85,7 +85,7 @@ class TroubleshootApp(App[int]):
         self.busy = False
         self.messages: list[str] = []  # every message shown, newest last (the screen shows them as toasts)
         self.log_path = log_path_of(session)
-        self.started = _log_start_time(self.log_path) or _dt.datetime.now(_dt.timezone.utc)
+        self.started = _log_start_time(self.log_path) or _dt.datetime.now(_dt.UTC)
         self.summary_written: Path | None = None
         model = session.model
         self.complaint = model.top_label or model.label_of(model.top)
@@ -237,7 +237,7 @@ class TroubleshootApp(App[int]):
         if self.log_path is None or self.state is None:
             return None
         try:
-            path = write_summary(self.session, _dt.datetime.now(_dt.timezone.utc))
+            path = write_summary(self.session, _dt.datetime.now(_dt.UTC))
         except (OSError, TroubleshootError) as exc:
             self.say(f"Cannot write the summary beside {self.log_path}: {exc}", "error")
             return None
@@ -250,7 +250,7 @@ class TroubleshootApp(App[int]):
             text = path.read_text(encoding="utf-8") + f"\nThis summary is also written to `{path}`.\n"
         else:
             text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
-                                    _dt.datetime.now(_dt.timezone.utc), job=self.session.job)
+                                    _dt.datetime.now(_dt.UTC), job=self.session.job)
         self.push_screen(SummaryScreen(text))
 
     def action_quit_session(self) -> None:

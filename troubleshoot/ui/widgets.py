@@ -10,7 +10,7 @@ dark theme and on a terminal without colour.
 from __future__ import annotations
 
 import math
-from typing import Iterable
+from collections.abc import Iterable
 
 from rich.text import Text
 from textual.binding import Binding

@@ -104,7 +104,7 @@ def _parse_xml_fallback(path: Path):
     try:
         size = path.stat().st_size
     except OSError as exc:
-        raise ModelError([Problem(str(path), None, f"cannot read the file ({exc.strerror}); check the path")])
+        raise ModelError([Problem(str(path), None, f"cannot read the file ({exc.strerror}); check the path")]) from None
     if size > MAX_MEF_BYTES:
         raise ModelError(
             [Problem(str(path), None, f"file is {size} bytes, above the {MAX_MEF_BYTES} byte limit")]
@@ -116,9 +116,9 @@ def _parse_xml_fallback(path: Path):
         return etree.parse(str(path), parser).getroot()
     except etree.XMLSyntaxError as exc:
         line = exc.lineno if exc.lineno else None
-        raise ModelError([Problem(str(path), line, f"not well-formed XML: {exc.msg}; fix the XML")])
+        raise ModelError([Problem(str(path), line, f"not well-formed XML: {exc.msg}; fix the XML")]) from None
     except OSError as exc:
-        raise ModelError([Problem(str(path), None, f"cannot read the file ({exc}); check the path")])
+        raise ModelError([Problem(str(path), None, f"cannot read the file ({exc}); check the path")]) from None
 
 
 def _tag(element) -> str | None:
@@ -551,7 +551,7 @@ def read_mef(path, top: str | None = None, *, mission_time: float | None = None)
         reader.mission_time = DEFAULT_MISSION_TIME_HOURS
 
     gate_refs = {name: _references(element) for name, (element, _) in reader.gates.items()}
-    for name, refs in gate_refs.items():
+    for refs in gate_refs.values():
         for kind, ref, line in refs:
             _resolve(reader, kind, ref, line)
     reader.stop_if_errors()

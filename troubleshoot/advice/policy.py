@@ -1,0 +1,536 @@
+"""What to do next: check, repair, verify, escalate or stop, with the reasons.
+
+One pure function, :func:`decide`, holds the tool's decision rule. Given the
+model (through its engine), the posterior after the findings and repairs so
+far, the checks still available and the settings, it weighs
+
+- the best few checks by bits per cost, each followed by the best way to
+  finish (one check, or two, ahead),
+- repairing the next suspect in the repair order (and, when escalation has
+  a price, escalating after some of the repairs), and
+- escalating at once (the cause may lie outside the model),
+
+by their expected cost to finish, and returns a :class:`Decision`: the
+action, its target, its expected cost, the alternatives weighed and the
+reasons in structured form and in plain words. The session, the simulator,
+the baseline strategies and the exact optimal policy call it or its parts
+(:mod:`troubleshoot.advice.repair`); none re-derives a decision.
+
+Status, in this order of precedence:
+
+``confirmed``
+    The verification after the last repair says the unit works: done.
+``awaiting-verification``
+    A repair was made and not yet verified: verify.
+``isolated``
+    A suspect (not repaired) has P(failed | findings) >= the isolation
+    threshold: repair it (or escalate, when it is a cause outside the model
+    or escalating is cheaper).
+``ambiguity``
+    No remaining check is worth doing (none gives at least ``min_bits``
+    bits, none of the best few is expected to cost less than it saves, or
+    none is left): repair in the repair order, or escalate.
+``diagnosing``
+    Otherwise: do the recommended check.
+
+Escalation. A model of format 1.1 may price escalation (``<escalation>``
+under the top event); it is then one more alternative, weighed by cost like
+the others. Without a price, escalation is never chosen by cost. With or
+without a price, when the probability that the cause lies outside the model
+(every unlisted cause together) reaches the isolation threshold, the
+decision is to escalate: no listed repair is expected to put the unit right.
+
+References
+----------
+D. Heckerman, J. S. Breese and K. Rommelse, "Decision-theoretic
+troubleshooting", Communications of the ACM 38(3), 1995 (observation versus
+repair by expected cost; the myopic rule and its lookahead).
+J. B. Kadane and H. A. Simon, "Optimal strategies for a class of constrained
+sequential problems", Annals of Statistics 5(2), 1977 (repair order).
+"""
+
+from __future__ import annotations
+
+import enum
+import math
+from dataclasses import dataclass, replace
+
+from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, isolated_suspect, suspects
+from troubleshoot.advice.ranking import Ranking, RankRow, rank
+from troubleshoot.advice.repair import RepairPlan, VerificationRequest, repair_plan
+from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.errors import ImpossibleFindings, SessionError
+from troubleshoot.model import DERIVED, Model
+
+#: Default: a check giving less than this many bits is not worth doing.
+DEFAULT_MIN_BITS = 0.01
+#: Default: suspects at or above this posterior form the ambiguity group.
+DEFAULT_GROUP_MIN_P = 0.05
+DEFAULT_VALUE_LOOKAHEAD = 3
+DEFAULT_VALUE_DEPTH = 1
+
+
+class Status(enum.StrEnum):
+    """Where a diagnosis stands (the values are what logs and JSON carry)."""
+
+    DIAGNOSING = "diagnosing"
+    ISOLATED = "isolated"
+    AMBIGUITY = "ambiguity"
+    AWAITING_VERIFICATION = "awaiting-verification"
+    CONFIRMED = "confirmed"
+
+
+class Action(enum.StrEnum):
+    """What a decision asks for."""
+
+    CHECK = "check"
+    REPAIR = "repair"
+    VERIFY = "verify"
+    ESCALATE = "escalate"
+    DONE = "done"
+
+
+@dataclass(frozen=True)
+class Settings:
+    """The thresholds the policy decides with.
+
+    Attributes
+    ----------
+    isolation_threshold : float
+        A suspect with P(failed | findings) at or above it is isolated; the
+        cause lies outside the model (escalate) when P(outside the model)
+        reaches it.
+    min_bits : float
+        A check giving fewer bits is not worth doing (bits).
+    group_min_p : float
+        Suspects at or above this posterior form the ambiguity group.
+    value_lookahead : int
+        How many of the best-scoring checks are weighed against repairing or
+        escalating (Heckerman, Breese & Rommelse 1995): of them, the one with
+        the least expected cost to finish is recommended if it beats
+        finishing without checks. 0 turns the comparison off (only
+        ``min_bits`` decides).
+    value_depth : int
+        How many checks ahead the comparison looks: 1 is the myopic rule
+        (one check, then finish); 2 also tries a second check after each
+        outcome of the first, when no single check pays.
+    """
+
+    isolation_threshold: float = 0.95
+    min_bits: float = DEFAULT_MIN_BITS
+    group_min_p: float = DEFAULT_GROUP_MIN_P
+    value_lookahead: int = DEFAULT_VALUE_LOOKAHEAD
+    value_depth: int = DEFAULT_VALUE_DEPTH
+
+    def validated(self) -> Settings:
+        for name in ("isolation_threshold", "group_min_p"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and 0.0 < value <= 1.0):
+                raise SessionError(f"{name.replace('_', ' ')} must be a probability above 0 and at most 1, "
+                                   f"not {value!r}")
+        if not (isinstance(self.min_bits, (int, float)) and 0.0 <= self.min_bits < math.inf):
+            raise SessionError(f"min bits must be a number of bits, 0 or more, not {self.min_bits!r}")
+        if not (isinstance(self.value_depth, int) and 1 <= self.value_depth <= 3):
+            raise SessionError(f"value depth must be 1, 2 or 3 checks, not {self.value_depth!r}")
+        if not (isinstance(self.value_lookahead, int) and 0 <= self.value_lookahead <= 50):
+            raise SessionError(f"value lookahead must be a whole number of checks from 0 to 50, "
+                               f"not {self.value_lookahead!r}")
+        return replace(self, isolation_threshold=float(self.isolation_threshold),
+                       min_bits=float(self.min_bits), group_min_p=float(self.group_min_p))
+
+
+def settings_for(model: Model, isolation_threshold: float | None = None, min_bits: float | None = None,
+                 group_min_p: float | None = None, value_lookahead: int | None = None,
+                 value_depth: int | None = None) -> Settings:
+    """Settings with the model's isolation threshold and the defaults, overridden where given."""
+    return Settings(
+        model.isolation_threshold if isolation_threshold is None else isolation_threshold,
+        DEFAULT_MIN_BITS if min_bits is None else min_bits,
+        DEFAULT_GROUP_MIN_P if group_min_p is None else group_min_p,
+        DEFAULT_VALUE_LOOKAHEAD if value_lookahead is None else value_lookahead,
+        DEFAULT_VALUE_DEPTH if value_depth is None else value_depth,
+    ).validated()
+
+
+# ---------------------------------------------------------------- the figures
+
+
+@dataclass(frozen=True)
+class OutsideModel:
+    """The probability that the cause lies outside the model.
+
+    Attributes
+    ----------
+    p : float
+        P(at least one unlisted cause has occurred | findings), exactly.
+    by_gate : tuple of (gate id, float)
+        P(that gate's unlisted cause has occurred | findings), per OR gate
+        with unlisted causes, in model order.
+    """
+
+    p: float
+    by_gate: tuple[tuple[str, float], ...]
+
+
+def outside_model(engine: Engine, posterior: Posterior) -> OutsideModel:
+    """P(the cause lies outside the model) in total and per gate.
+
+    Notes
+    -----
+    The total is 1 - P(no unlisted cause | e) = 1 - P(e, none) / P(e): one
+    propagation with every unlisted-cause event observed absent.
+    """
+    model = posterior.model
+    unlisted = [r for r in model.hypotheses if r not in model.event_by_id]
+    if not unlisted:
+        return OutsideModel(0.0, ())
+    by_gate = tuple((r[: -len(DERIVED + "unlisted")], posterior.p_failed(r)) for r in unlisted)
+    extra = tuple(Finding(r, 0, 0) for r in unlisted)
+    try:
+        none = engine.propagate(tuple(posterior.findings) + extra, tuple(posterior.repairs))
+        p_none = math.exp(min(0.0, none.log_p - posterior.log_p))
+    except ImpossibleFindings:
+        p_none = 0.0
+    return OutsideModel(min(1.0, max(0.0, 1.0 - p_none)), by_gate)
+
+
+def escalation_price(model: Model) -> float | None:
+    """What escalating costs in the model's unit, or None when the model gives no price."""
+    return None if model.escalation is None else float(model.escalation.cost)
+
+
+def finish_plan(model: Model, ranked: tuple[Suspect, ...], settings: Settings) -> RepairPlan:
+    """The expected cost of finishing without more checks (repairs in order, escalation)."""
+    return repair_plan(model, ranked, settings.group_min_p, escalation_price(model))
+
+
+def cost_to_finish(engine: Engine, posterior: Posterior, candidates: tuple[str, ...], depth: int,
+                   settings: Settings) -> float:
+    """Least expected cost from here looking ``depth`` checks ahead, then repairing or escalating.
+
+    min(F(e), min over the ``value_lookahead`` best-scoring informative
+    checks t of cost(t) + sum_o P(o | e) * cost_to_finish(e + o, depth - 1));
+    at depth 0 it is F(e), the best of repairing in order and escalating
+    (:func:`finish_plan`).
+
+    References
+    ----------
+    Heckerman, Breese & Rommelse 1995 (observation versus repair; the
+    myopic rule is depth 1).
+    """
+    best = finish_plan(posterior.model, suspects(posterior), settings).best
+    if depth <= 0:
+        return best
+    for row in rank(posterior, candidates).worth_doing(settings.min_bits)[: settings.value_lookahead]:
+        best = min(best, cost_of_check_then(engine, posterior, row, candidates, depth, settings, bound=best))
+    return best
+
+
+def cost_of_check_then(engine: Engine, posterior: Posterior, row: RankRow, candidates: tuple[str, ...],
+                       depth: int, settings: Settings, bound: float = math.inf) -> float:
+    """Expected cost of doing a check now and then the best of ``depth - 1`` more checks or finishing.
+
+    Stops adding once the sum reaches ``bound`` (the caller only needs to
+    know it is not below it). One propagation per outcome at each level.
+    """
+    total = row.cost
+    rest = tuple(c for c in candidates if c != row.check)
+    findings = tuple(posterior.findings)
+    for outcome, p in enumerate(row.p_outcomes):
+        if p <= 0.0:
+            continue
+        try:
+            later = engine.propagate(findings + (Finding(row.check, outcome, posterior.epoch),), posterior.repairs)
+        except ImpossibleFindings:
+            continue
+        total += p * cost_to_finish(engine, later, rest, depth - 1, settings)
+        if total >= bound:
+            return total
+    return total
+
+
+# ---------------------------------------------------------------- the decision
+
+
+@dataclass(frozen=True)
+class Alternative:
+    """One course weighed: its action, target and expected cost to finish (model's cost unit)."""
+
+    action: str
+    target: str | None
+    expected_cost: float | None
+
+
+@dataclass(frozen=True)
+class Reason:
+    """Why the decision is what it is, as figures and in plain words.
+
+    Attributes
+    ----------
+    kind : str
+        ``confirmed``, ``verify``, ``free-check``, ``check-pays``,
+        ``bits-only``, ``isolated``, ``outside-model``, ``repair-cheaper``,
+        ``escalation-cheaper``, ``no-check-left``, ``nothing-left``.
+    text : str
+        One short sentence for a technician.
+    costs : tuple of (str, float)
+        The costs compared, each named (``"check"``, ``"check then finish"``,
+        ``"repair"``, ``"escalate"``...), in the model's cost unit.
+    probabilities : tuple of (str, float)
+        The check's outcome probabilities, or the suspect's, or P(outside
+        the model), named.
+    suspects : tuple of str
+        The suspects involved (ids), most probable first.
+    """
+
+    kind: str
+    text: str
+    costs: tuple[tuple[str, float], ...] = ()
+    probabilities: tuple[tuple[str, float], ...] = ()
+    suspects: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class Decision:
+    """What to do next and why.
+
+    Attributes
+    ----------
+    action : str
+        ``check``, ``repair``, ``verify``, ``escalate`` or ``done`` (:class:`Action`).
+    target : str or None
+        The check, the suspect to repair or the verification's target; None
+        to escalate or when done.
+    expected_cost : float or None
+        Expected cost to finish by this course, in the model's cost unit
+        (None for an escalation the model gives no price).
+    alternatives : tuple of Alternative
+        Every course weighed, the chosen one included, cheapest first.
+    reasons : tuple of Reason
+    status : Status
+    check : RankRow or None
+        The recommended check (action ``check``).
+    outside_model : OutsideModel
+    unit : str
+        The model's cost unit.
+    """
+
+    action: str
+    target: str | None
+    expected_cost: float | None
+    alternatives: tuple[Alternative, ...]
+    reasons: tuple[Reason, ...]
+    status: Status
+    check: RankRow | None
+    outside_model: OutsideModel
+    unit: str
+
+    def to_dict(self) -> dict:
+        """The ``decision`` object of ``suggest --json`` (plus the reasons)."""
+        return {
+            "action": str(self.action),
+            "target": self.target,
+            "expected_cost": _finite(self.expected_cost),
+            "alternatives": [{"action": str(a.action), "target": a.target, "expected_cost": _finite(a.expected_cost)}
+                             for a in self.alternatives],
+            "reasons": [{"kind": r.kind, "text": r.text, "costs": dict(r.costs),
+                         "probabilities": dict(r.probabilities), "suspects": list(r.suspects)}
+                        for r in self.reasons],
+        }
+
+
+def _finite(x: float | None) -> float | None:
+    return None if x is None or not math.isfinite(x) else float(x)
+
+
+def _money(x: float, unit: str) -> str:
+    return f"{x:.0f} {unit}" if abs(x) >= 10 else f"{x:.3g} {unit}"
+
+
+def decide(engine: Engine, posterior: Posterior, settings: Settings, candidates: tuple[str, ...], *,
+           verification: VerificationRequest | None = None, confirmed: bool = False,
+           ranking: Ranking | None = None, ranked: tuple[Suspect, ...] | None = None) -> Decision:
+    """The next action, with its expected cost, the alternatives weighed and the reasons.
+
+    Parameters
+    ----------
+    engine : Engine
+        The model's engine (the lookahead propagates the outcomes of a check).
+    posterior : Posterior
+        After the findings and repairs so far.
+    settings : Settings
+    candidates : tuple of str
+        The checks that may still be done (not done since the last repair, not skipped).
+    verification : VerificationRequest, optional
+        The verification the last repair still awaits.
+    confirmed : bool
+        The last repair was verified: the unit works.
+    ranking, ranked : optional
+        The ranking of ``candidates`` and the suspects, when the caller has them already.
+
+    Returns
+    -------
+    Decision
+
+    Notes
+    -----
+    The comparison: F(e), the least expected cost of finishing without
+    checks (repairs in the order of P / (repair + verification cost), and
+    escalation after k of them when it has a price, k = 0 being "escalate
+    now"), against, for each of the ``value_lookahead`` best checks by bits
+    per cost, cost(t) + sum_o P(o | e) F(e + o) (and one or two checks
+    deeper when no single check pays, ``value_depth``). The least wins;
+    ties go to finishing.
+
+    References
+    ----------
+    Heckerman, Breese & Rommelse 1995; Kadane & Simon 1977.
+    """
+    model = posterior.model
+    unit = model.cost_unit
+    outside = outside_model(engine, posterior)
+    if confirmed:
+        return Decision(Action.DONE, None, 0.0, (Alternative(Action.DONE, None, 0.0),),
+                        (Reason("confirmed", "the unit works: the repair is confirmed"),),
+                        Status.CONFIRMED, None, outside, unit)
+    if verification is not None:
+        reason = Reason("verify", f"a repair is only done when the unit works: {verification.label} "
+                                  f"({_money(verification.cost, unit)})",
+                        costs=(("verify", verification.cost),))
+        return Decision(Action.VERIFY, verification.target, verification.cost,
+                        (Alternative(Action.VERIFY, verification.target, verification.cost),), (reason,),
+                        Status.AWAITING_VERIFICATION, None, outside, unit)
+
+    ranked = suspects(posterior) if ranked is None else ranked
+    ranking = rank(posterior, candidates) if ranking is None else ranking
+    plan = finish_plan(model, ranked, settings)
+    isolated = isolated_suspect(ranked, settings.isolation_threshold)
+    price = escalation_price(model)
+    escalate = Alternative(Action.ESCALATE, None, price)
+    first = plan.sequence[0] if plan.sequence else None
+    repair = Alternative(Action.REPAIR, first, plan.repair_cost) if first is not None else None
+    group = ambiguity_group(ranked, settings.group_min_p)
+    group_ids = tuple(s.id for s in group)
+
+    # The cause lies outside the model: no listed repair is expected to help.
+    if outside.p >= settings.isolation_threshold or (isolated is not None and isolated.unlisted):
+        by_gate = tuple((f"outside the model under {g}", p) for g, p in outside.by_gate)
+        text = (f"the cause is outside the model with probability {outside.p:.2f}: no listed repair is "
+                f"expected to help; hand the unit over" + (f" ({model.escalation.label}, "
+                                                          f"{_money(price, unit)})" if price is not None else ""))
+        reason = Reason("outside-model", text, costs=(("escalate", price),) if price is not None else (),
+                        probabilities=(("outside the model", outside.p),) + by_gate,
+                        suspects=tuple(s.id for s in ranked if s.unlisted and not s.repaired))
+        alts = [escalate] + ([repair] if repair is not None else [])
+        status = Status.ISOLATED if isolated is not None else Status.AMBIGUITY
+        return Decision(Action.ESCALATE, None, price, tuple(_sorted(alts)), (reason,), status, None, outside, unit)
+
+    check_row, check_cost, bits_only = None, math.inf, False
+    if isolated is None:
+        check_row, check_cost, bits_only = _best_check(engine, posterior, ranking, candidates, settings, plan.best)
+
+    alts = ([repair] if repair is not None else []) + ([escalate] if price is not None else [])
+    if check_row is not None:
+        alts.append(Alternative(Action.CHECK, check_row.check, check_cost if math.isfinite(check_cost) else None))
+    alts = _sorted(alts)
+
+    if check_row is not None:
+        reason = _check_reason(model, check_row, check_cost, plan, repair, price, bits_only, unit, group_ids)
+        return Decision(Action.CHECK, check_row.check, check_cost if math.isfinite(check_cost) else None,
+                        tuple(alts), (reason,), Status.DIAGNOSING, check_row, outside, unit)
+
+    status = Status.ISOLATED if isolated is not None else Status.AMBIGUITY
+    if repair is None and price is None:
+        reason = Reason("nothing-left", "no repairable suspect is left and the model gives no escalation; "
+                                        "inspect beyond the model", suspects=group_ids)
+        return Decision(Action.ESCALATE, None, None, tuple(alts) or (escalate,), (reason,), status, None,
+                        outside, unit)
+    if repair is None or (price is not None and plan.escalate_cost < plan.repair_cost):
+        assert price is not None and model.escalation is not None
+        text = (f"escalating ({model.escalation.label}, {_money(price, unit)}) is expected to cost less than "
+                + (f"repairing in order ({_money(plan.repair_cost, unit)})" if repair is not None
+                   else "anything left to repair"))
+        reason = Reason("escalation-cheaper", text,
+                        costs=(("escalate", plan.escalate_cost),) + ((("repair", plan.repair_cost),)
+                                                                     if repair is not None else ()),
+                        probabilities=(("outside the model", outside.p), ("left after every repair", plan.outside_p)),
+                        suspects=group_ids)
+        return Decision(Action.ESCALATE, None, plan.escalate_cost, tuple(alts), (reason,), status, None,
+                        outside, unit)
+    assert first is not None
+    p_first = next(s.p for s in ranked if s.id == first)
+    label = model.label_of(first)
+    if isolated is not None:
+        text = f"{label} is isolated (P = {isolated.p:.2f}): repair it"
+        kind = "isolated"
+    elif not ranking.worth_doing(settings.min_bits):
+        text = f"no check left tells the suspects apart: repair {label} first (P = {p_first:.2f})"
+        kind = "no-check-left"
+    else:
+        text = (f"no check is expected to save more than it costs: repair {label} first "
+                f"(P = {p_first:.2f}, expected {_money(plan.repair_cost, unit)} to finish)")
+        kind = "repair-cheaper"
+    costs = (("repair", plan.repair_cost),) + ((("escalate", plan.escalate_cost),) if price is not None else ())
+    reason = Reason(kind, text, costs=costs, probabilities=((first, p_first),), suspects=group_ids or (first,))
+    return Decision(Action.REPAIR, first, plan.repair_cost, tuple(alts), (reason,), status, None, outside, unit)
+
+
+def _sorted(alts: list[Alternative]) -> list[Alternative]:
+    order = {Action.CHECK: 0, Action.REPAIR: 1, Action.ESCALATE: 2}
+    return sorted(alts, key=lambda a: (math.inf if a.expected_cost is None else a.expected_cost,
+                                       order.get(a.action, 3)))
+
+
+def _best_check(engine: Engine, posterior: Posterior, ranking: Ranking, candidates: tuple[str, ...],
+                settings: Settings, finish: float) -> tuple[RankRow | None, float, bool]:
+    """The check to recommend, its expected cost to finish, and whether only ``min_bits`` chose it.
+
+    A check is worth doing when it gives at least ``min_bits`` bits and,
+    among the ``value_lookahead`` best-scoring such checks, it has the least
+    expected cost to finish, below finishing at once (``finish``).
+    """
+    rows = ranking.worth_doing(settings.min_bits)
+    if not rows:
+        return None, math.inf, False
+    if settings.value_lookahead == 0:
+        return rows[0], math.inf, True
+    shortlist = rows[: settings.value_lookahead]
+    for row in shortlist:
+        if row.cost <= 0.0:
+            # A free informative check always pays.
+            return row, cost_of_check_then(engine, posterior, row, candidates, 1, settings), False
+    # Of the shortlist, the check with the least expected cost of finishing
+    # (it, then finish), if that beats finishing at once; when no check pays
+    # so, a second check ahead, so a pair worth doing is not missed.
+    for depth in range(1, settings.value_depth + 1):
+        best, best_cost = None, finish
+        for row in shortlist:
+            ahead = cost_of_check_then(engine, posterior, row, candidates, depth, settings, bound=best_cost)
+            if ahead < best_cost:
+                best, best_cost = row, ahead
+        if best is not None:
+            return best, best_cost, False
+    return None, math.inf, False
+
+
+def _check_reason(model: Model, row: RankRow, ahead: float, plan: RepairPlan, repair: Alternative | None,
+                  price: float | None, bits_only: bool, unit: str, group: tuple[str, ...]) -> Reason:
+    odds = tuple(zip(row.outcomes, row.p_outcomes))
+    finish = plan.best
+    if bits_only:
+        text = f"{_money(row.cost, unit)} for {row.bits:.2f} bits about the fault ({row.label})"
+        return Reason("bits-only", text, costs=(("check", row.cost),), probabilities=odds, suspects=group)
+    if row.cost <= 0.0:
+        return Reason("free-check", f"{row.label} costs nothing and tells the suspects apart",
+                      costs=(("check", 0.0),), probabilities=odds, suspects=group)
+    if repair is not None and finish == plan.repair_cost:
+        first = repair.target or ""
+        job = model.event_by_id[first].repair if first in model.event_by_id else None
+        against = (f"a {_money(job.cost, unit)} {job.label.lower()}" if job is not None
+                   else f"repairing {model.label_of(first)}")
+    else:
+        against = "escalating" if price is not None else "repairing"
+    text = (f"{_money(row.cost, unit)} to {row.label.rstrip('.').lower()} before {against}: expected "
+            f"{_money(ahead, unit)} to finish instead of {_money(finish, unit)}")
+    costs = (("check", row.cost), ("check then finish", ahead), ("finish without checking", finish))
+    return Reason("check-pays", text, costs=costs, probabilities=odds, suspects=group)
