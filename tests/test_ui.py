@@ -26,6 +26,7 @@ from troubleshoot.ui.screens import (
     SAFETY_NOTICE,
     ChoiceScreen,
     CheckScreen,
+    ConfirmScreen,
     FindingChoiceScreen,
     HelpScreen,
     MainScreen,
@@ -568,3 +569,158 @@ def test_ui_imports_neither_numpy_nor_the_numeric_core():
 def test_safety_notice_names_what_it_does_not_replace():
     for words in ("equipment maker's procedures", "lockout/tagout", "local codes", "licensed practice"):
         assert words in SAFETY_NOTICE
+
+
+# ---------------------------------------------------------------------- plain words, keys, confirmation
+
+
+def test_main_screen_speaks_plainly_with_the_recommendation_first(tmp_path):
+    app, log = new_app(tmp_path, "booster")
+    from textual.widgets._footer import FooterKey
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await settle(app, pilot)
+            await pilot.press("b")
+            await settle(app, pilot)
+            state = app.state
+            text = flat(screen_text(app))
+            # The recommended action is the first row, and its why-line is on screen.
+            assert state.next_check is not None and rows(app)[0] == state.next_check.check
+            assert state.why is not None and flat(state.why.text) in text
+            # No bits, scores or entropy by default.
+            assert "bit" not in screen_text(app)
+            # The full name of the row under the cursor, however long, is on screen.
+            labels = {r.check: r.label for r in state.ranking}
+            longest = max(range(len(rows(app))), key=lambda i: len(labels.get(rows(app)[i], "")))
+            assert len(labels[rows(app)[longest]]) > 40  # longer than the column at 80 columns
+            await pilot.press("home", *["down"] * longest)
+            await pilot.pause()
+            assert flat(labels[rows(app)[longest]]) in flat(screen_text(app))
+
+            # The recommended check's card: outcome names in the footer, the suspects it separates.
+            await pilot.press("home", "enter")
+            await pilot.pause()
+            card = app.screen
+            assert isinstance(card, CheckScreen) and card.card.why is not None
+            descriptions = {k.description for k in card.query(FooterKey)}
+            outcomes = tuple(app.session.model.check_by_id[card.card.target].outcomes)
+            assert all(any(d and name.startswith(d.rstrip("…")) for d in descriptions) for name in outcomes)
+            why_text = str(card.query_one("#check-why").render())
+            for shift in card.card.why.suspects:
+                assert shift.label in why_text
+            # q closes the card, as Escape does.
+            await pilot.press("q")
+            await pilot.pause()
+            assert isinstance(app.screen, MainScreen)
+
+            # A skipped check stays listed, dimmed, at the end; k brings it back.
+            first = rows(app)[0]
+            await pilot.press("home", "s")
+            await pilot.pause()
+            await pilot.press(*"no key to the room", "enter")
+            await settle(app, pilot)
+            assert app.state.skipped == ((first, "no key to the room"),) and rows(app)[-1] == first
+            assert "skipped" in screen_text(app)
+            await pilot.press("end", "k")
+            await settle(app, pilot)
+            assert app.state.skipped == () and first in [r.check for r in app.state.ranking]
+            assert app.session.actions[-1] == {"action": "unskip", "check": first}
+
+            # Ctrl+C quits as safely as q: the log is kept and the summary written.
+            await pilot.press("ctrl+c")
+            await pilot.pause()
+        return app.return_code
+
+    assert run(scenario()) == 0
+    assert summary_path(log).exists()
+    replay_ok(log)
+
+
+def test_a_repair_of_an_unlikely_part_asks_for_confirmation(tmp_path):
+    # A lower isolation threshold, so the run capacitor stands isolated after a few checks.
+    app, log = new_app(tmp_path, "rooftop", isolation_threshold=0.6)
+    model = app.session.model
+    technician = Technician(model, "run_capacitor_failed")
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await settle(app, pilot)
+            await mark_symptoms_and_begin(app, pilot, technician)
+            for _ in range(30):
+                if app.state.status != "diagnosing":
+                    break
+                check_id = rows(app)[0]
+                await pilot.press("home", "enter")
+                await pilot.pause()
+                await enter_outcome(app, pilot, technician.outcome(check_id, ()))
+            state = app.state
+            assert state.status == "isolated" and state.isolated.id == technician.fault
+            await pilot.press("r")
+            await pilot.pause()
+            choice = app.screen
+            assert isinstance(choice, ChoiceScreen)
+            # Repairs with the same words show the part they concern.
+            compressor = [text for _, text in choice.options if text.startswith("Replace the compressor (")]
+            assert len(compressor) == 2 and all("[" in t and "]" in t for t in compressor)
+            parts = {model.event_by_id[e].label for e, _ in choice.options
+                     if model.event_by_id[e].repair.label.startswith("Replace the compressor (")}
+            assert all(any(p in t for t in compressor) for p in parts)
+            # The last entry is a part with a chance below 10 %: it asks first; n goes back.
+            p_of = {s.id: s.p for s in state.suspects}
+            unlikely = choice.options[-1][0]
+            assert p_of.get(unlikely, 0.0) < 0.10
+            await pilot.press("end", "enter")
+            await pilot.pause()
+            assert isinstance(app.screen, ConfirmScreen)
+            assert state.isolated.label in flat(screen_text(app))
+            await pilot.press("n")
+            await settle(app, pilot)
+            assert isinstance(app.screen, MainScreen) and app.state.repairs == ()
+            # y records it.
+            await pilot.press("r")
+            await pilot.pause()
+            await pilot.press("end", "enter")
+            await pilot.pause()
+            await pilot.press("y")
+            await settle(app, pilot)
+            assert app.state.repairs == (unlikely,)
+            # The repaired part leaves the suspects and shows under the findings.
+            suspects_text = str(app.screen.query_one("#suspects-text").render()) if isinstance(
+                app.screen, MainScreen) else ""
+            assert model.label_of(unlikely) not in suspects_text
+            await pilot.press("escape")
+            await pilot.pause()
+            findings_text = str(app.screen.query_one("#findings-text").render())
+            assert "repaired: " + model.label_of(unlikely) in findings_text
+            assert model.label_of(unlikely) not in str(app.screen.query_one("#suspects-text").render())
+            await pilot.press("q")
+        return app.return_code
+
+    assert run(scenario()) == 0
+    replay_ok(log)
+
+
+def test_start_screen_fields_go_to_the_log_and_the_summary(tmp_path):
+    app, log = new_app(tmp_path, "rooftop", job={"site": "Roof C"})
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await settle(app, pilot)
+            assert isinstance(app.screen, StartScreen)
+            assert app.screen.query_one("#job-site").value == "Roof C"  # given on the command line
+            app.screen.query_one("#job-technician").focus()
+            await pilot.press(*"Kim Lee", "tab", *"SN-88")
+            app.screen.query_one("#symptoms").focus()
+            await pilot.press("b")
+            await settle(app, pilot)
+            assert isinstance(app.screen, MainScreen)
+            await pilot.press("q")
+        return app.return_code
+
+    assert run(scenario()) == 0
+    assert app.session.actions[0] == {"action": "job", "technician": "Kim Lee", "unit": "SN-88"}
+    text = summary_path(log).read_text(encoding="utf-8")
+    assert "**Technician:** Kim Lee" in text and "**Unit (serial or tag):** SN-88" in text
+    assert "**Site:** Roof C" in text
+    replay_ok(log)

@@ -24,7 +24,7 @@ observation against repairing now).
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Sequence
+from collections.abc import Sequence
 
 from troubleshoot.advice.diagnosis import Suspect, suspects
 from troubleshoot.advice.ranking import RankRow

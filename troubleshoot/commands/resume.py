@@ -154,5 +154,22 @@ def run(args) -> int:
     try:
         interact(session)
     finally:
+        written = _summary(session)
         session.close()
+    if written is not None:
+        print(f"summary: {written}")
     return 0
+
+
+def _summary(session: Session):
+    """Bring the Markdown summary beside the log up to date, as the terminal UI does on quitting."""
+    import datetime as _dt
+
+    from troubleshoot.session.summary import write_summary
+
+    try:
+        return write_summary(session, _dt.datetime.now(_dt.UTC))
+    except (OSError, TroubleshootError) as exc:
+        where = getattr(session.log, "path", "the log")
+        print(f"troubleshoot: warning: the summary beside {where} was not written: {exc}", file=sys.stderr)
+        return None

@@ -27,7 +27,17 @@ def add_parser(subparsers, name):
     parser.add_argument("--threshold", metavar="P", type=float, default=None,
                         help="isolation threshold: a suspect with P(failed) at or above P is isolated "
                              "(a probability, 0 < P <= 1); default: the model's")
+    job = parser.add_argument_group("the record (optional; logged in the header and shown in the summary)")
+    job.add_argument("--technician", metavar="NAME", help="who does the diagnosis")
+    job.add_argument("--unit", metavar="SERIAL", help="the unit's serial number or tag")
+    job.add_argument("--site", metavar="SITE", help="where the unit is")
+    job.add_argument("--work-order", metavar="NUMBER", dest="work_order", help="the work order")
     return parser
+
+
+def job_of(args) -> dict:
+    """The job fields given on the command line (None for those not given)."""
+    return {key: getattr(args, key, None) for key in ("technician", "unit", "site", "work_order")}
 
 
 def run(args) -> int:
@@ -39,5 +49,5 @@ def run(args) -> int:
         raise SessionError(f"--threshold must be a probability above 0 and at most 1, not {args.threshold:g}; "
                            "for example --threshold 0.9")
     path = resolve_model_path(args.model or DEFAULT_DEMO)
-    session = new_session(str(path), log_path=args.log, isolation_threshold=args.threshold)
+    session = new_session(str(path), log_path=args.log, isolation_threshold=args.threshold, job=job_of(args))
     return run_app(session)

@@ -188,10 +188,10 @@ def render_text(session: Session) -> str:
         why = session.explained_state().why
         if why is not None:
             lines.append(f"Why: {why.text}")
-            for s in why.suspects:
+            for shift in why.suspects:
                 after = ", ".join(f"if {o}: {p:.3f}" if p is not None else f"if {o}: impossible"
-                                  for o, p in s.p_if)
-                lines.append(f"  {s.id}: now {s.p_now:.3f}; {after}")
+                                  for o, p in shift.p_if)
+                lines.append(f"  {shift.id}: now {shift.p_now:.3f}; {after}")
     for caution in state.cautions:
         lines.append(f"CAUTION: {caution}")
     return "\n".join(lines) + "\n"

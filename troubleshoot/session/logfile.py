@@ -295,7 +295,7 @@ def clean_job(job: dict | None) -> dict:
     return out
 
 
-def job_of(contents: "LogContents") -> dict:
+def job_of(contents: LogContents) -> dict:
     """The job fields of a log: its header's, updated by any ``job`` line (typed after the start)."""
     job = clean_job(contents.header.get("job"))
     for _, record in contents.actions:

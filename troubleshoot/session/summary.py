@@ -82,7 +82,7 @@ def _clock(stamp) -> str:
 def parse_time(stamp) -> _dt.datetime | None:
     """A log time (ISO 8601, UTC, ``Z``) as an aware datetime; None when it is not one."""
     try:
-        return _dt.datetime.fromisoformat(str(stamp).rstrip("Z")).replace(tzinfo=_dt.timezone.utc)
+        return _dt.datetime.fromisoformat(str(stamp).rstrip("Z")).replace(tzinfo=_dt.UTC)
     except (TypeError, ValueError):
         return None
 
@@ -274,7 +274,7 @@ def summary_markdown(model, state, log_path: str | Path | None = None,
 
     if records:
         lines += ["", "## Every action, in order", "",
-                  f"| # | Time (UTC) | Action | Cost ({unit}) |", "|---|---|---|---|"]
+                  "| # | Time (UTC) | Action | Cost |", "|---|---|---|---|"]
         narrator = _Narrator(model)
         for number, record in enumerate(records, 1):
             words, cost = narrator.say(record.get("action") or {})

@@ -176,7 +176,8 @@ class TroubleshootApp(App[int]):
         command line) and go to the summary.
         """
         session = self.session
-        job = {k: v.strip() for k, v in (job or {}).items() if v and v.strip()}
+        # Only what was typed or changed here: the header already holds the command line's fields.
+        job = {k: v.strip() for k, v in (job or {}).items() if v and v.strip() and session.job.get(k) != v.strip()}
 
         def record_all() -> None:
             if job:  # the header is written already: the job typed here is logged as its own line

@@ -213,7 +213,6 @@ def why_line(state) -> str:
 def diagnosis_text(state) -> str:
     """What the diagnosis says now, in words: the status, what to do next and why."""
     word = STATUS_WORDS.get(state.status, state.status)
-    unit = state.cost_unit
     if state.status == "diagnosing":
         nxt = state.next_check
         if nxt is None:
@@ -331,7 +330,7 @@ class ChecksTable(DataTable):
         self.ids = [check_id for check_id, _, _ in rows]
         self.skipped = {check_id: reason for check_id, row, reason in rows if row is None}
         recommended = state.next_check.check if state.next_check is not None else None
-        for i, (check_id, row, reason) in enumerate(rows, 1):
+        for i, (check_id, row, _) in enumerate(rows, 1):
             if row is None:
                 check = model.check_by_id[check_id]
                 dim = "dim"
