@@ -83,6 +83,7 @@ class TroubleshootApp(App[int]):
         self.state = None
         self.show_figures = False  # bits, scores and entropy: one key away (f)
         self.busy = False
+        self.quit_pending = False
         self.messages: list[str] = []  # every message shown, newest last (the screen shows them as toasts)
         self.log_path = log_path_of(session)
         self.started = _log_start_time(self.log_path) or _dt.datetime.now(_dt.UTC)
@@ -146,6 +147,11 @@ class TroubleshootApp(App[int]):
 
     def _performed(self, what, state, error, then, done) -> None:
         self.busy = False
+        if self.quit_pending:
+            if state is not None:
+                self.state = state
+            self.action_quit_session()
+            return
         before = self.state.status if self.state is not None else None
         if state is not None:
             self.state = state
@@ -255,9 +261,13 @@ class TroubleshootApp(App[int]):
         self.push_screen(SummaryScreen(text))
 
     def action_quit_session(self) -> None:
-        """Quit: every action is already in the log; the summary is brought up to date."""
+        """Quit: every action is already in the log; the summary is brought up to date.
+
+        While an action is being worked out, the quit waits for it to be saved.
+        """
         if self.busy:
-            self.say("Still working on the last action; quit again in a moment.", "warning")
+            self.quit_pending = True
+            self.say("Quitting as soon as the current action is saved.", "warning")
             return
         self.write_summary()
         self.exit(0)

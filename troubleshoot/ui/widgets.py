@@ -217,7 +217,7 @@ def diagnosis_text(state) -> str:
         nxt = state.next_check
         if nxt is None:
             return f"{word} — no check is left; record a repair (key r)."
-        return f"{word} — do the first check. Why: {why_line(state)}"
+        return f"Do the first check. Why: {why_line(state)}"
     if state.status == "isolated":
         return f"{word} — {why_line(state)}. Key r records the repair."
     if state.status == "ambiguity":
@@ -311,39 +311,42 @@ class ChecksTable(DataTable):
         self.skipped: dict[str, str] = {}
 
     def show(self, state, model, figures: bool = False, keep_cursor: bool = False) -> None:
-        """Fill the table; the cursor goes to the first row (the recommendation) unless ``keep_cursor``."""
+        """Fill the table; the cursor goes to the first row (the recommendation) unless ``keep_cursor``.
+
+        Every column gets the width of its widest cell, set here, so a cost
+        never loses its unit however the table is redrawn.
+        """
         unit = state.cost_unit
         keep = self.cursor_row if keep_cursor else 0
-        self.clear(columns=True)
-        fixed = 42 if figures else 38
-        label_width = max(12, self.app.size.width - 2 - fixed)
-        self.add_column("#", key="rank")
-        self.add_column("Check", key="label", width=label_width)
-        self.add_column("Cost", key="cost")
-        if figures:
-            self.add_column("Info", key="bits")
-            self.add_column("Score", key="score")
-        else:
-            self.add_column("Narrows", key="narrows")
-            self.add_column("Abnormal", key="abnormal")
         rows = check_rows(state)
-        self.ids = [check_id for check_id, _, _ in rows]
-        self.skipped = {check_id: reason for check_id, row, reason in rows if row is None}
         recommended = state.next_check.check if state.next_check is not None else None
+        headers = ("#", "Check", "Cost") + (("Info", "Score") if figures else ("Narrows", "Abnormal"))
+        keys = ("rank", "label", "cost") + (("bits", "score") if figures else ("narrows", "abnormal"))
+        table: list[tuple[str, list[str], bool]] = []
         for i, (check_id, row, _) in enumerate(rows, 1):
             if row is None:
                 check = model.check_by_id[check_id]
-                dim = "dim"
-                cells = [Text(str(i), style=dim), Text(truncate("↷ skipped: " + check.label, label_width), style=dim),
-                         Text(cost_text(check.cost, unit), style=dim), Text("—", style=dim), Text("—", style=dim)]
-                self.add_row(*cells, key=check_id)
+                table.append((check_id, [str(i), "↷ skipped: " + check.label, cost_text(check.cost, unit), "—", "—"],
+                              True))
                 continue
             label = ("► " if row.check == recommended else "") + ("⚠ " if row.caution else "") + row.label
             if figures:
-                extra = (bits_text(row.bits), score_text(row.score, unit))
+                extra = [bits_text(row.bits), score_text(row.score, unit)]
             else:
-                extra = (narrowing_words(row.bits, state.entropy_bits), chance_abnormal(row))
-            self.add_row(str(i), truncate(label, label_width), cost_text(row.cost, unit), *extra, key=row.check)
+                extra = [narrowing_words(row.bits, state.entropy_bits), chance_abnormal(row)]
+            table.append((row.check, [str(i), label, cost_text(row.cost, unit), *extra], False))
+        widths = [max([len(h)] + [len(cells[c]) for _, cells, _ in table]) for c, h in enumerate(headers)]
+        # The label takes what is left: the border (2), the scrollbar (2) and one space each side of a cell.
+        rest = sum(w + 2 for c, w in enumerate(widths) if c != 1)
+        widths[1] = max(12, self.app.size.width - 4 - rest - 2)
+        self.clear(columns=True)
+        for header, key, width in zip(headers, keys, widths):
+            self.add_column(header, key=key, width=width)
+        for check_id, cells, dim in table:
+            cells[1] = truncate(cells[1], widths[1])
+            self.add_row(*(Text(c, style="dim") if dim else c for c in cells), key=check_id)
+        self.ids = [check_id for check_id, _, _ in table]
+        self.skipped = {check_id: reason for check_id, row, reason in rows if row is None}
         if rows:
             self.move_cursor(row=min(max(keep, 0), len(rows) - 1))
 
