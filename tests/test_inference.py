@@ -218,7 +218,7 @@ def test_too_large_is_refused_before_allocation():
     checks = (Check("all", "all", 1.0, ("n", "a"), tuple(Cause(e.id, 0.9) for e in events)),)
     model = Model(name="huge", top="top", gates=gates, basic_events=events, checks=checks)
     with pytest.raises(NetworkTooLarge) as err:
-        Engine(model, memory_budget=64 * 1024**2)
+        Engine(model, memory_budget=64 * 1024**2, kind="join tree")
     text = str(err.value)
     assert "width 30" in text and "MiB" in text and "e0" in text
 

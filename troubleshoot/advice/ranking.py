@@ -36,6 +36,7 @@ from collections.abc import Iterable
 import numpy as np
 
 from troubleshoot.engine.inference import Posterior
+from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.model import Check
 
 #: Information below this many bits is treated as exactly zero (floating-point
@@ -181,13 +182,18 @@ def outcome_information(posterior: Posterior, check_ids: Iterable[str]) -> dict[
     return out
 
 
-def _sort_key(row: RankRow):
-    # Round the score to 12 significant digits so checks whose scores agree
-    # analytically but differ in the last bit still fall to the cost/id tie-break.
-    # Free informative checks (infinite score) are ordered among themselves by bits.
-    if math.isinf(row.score):
-        return (-row.score, -row.bits, row.cost, row.check)
-    return (-float(f"{row.score:.12g}"), 0.0, row.cost, row.check)
+def _ordered(rows: list[RankRow]) -> list[RankRow]:
+    """Rows best first: by score, ties (within the tolerance) by cost, then id.
+
+    Free informative checks (infinite score) are ordered among themselves by
+    bits. Scores are compared with :func:`~troubleshoot.advice.ties.tie_ranks`,
+    so checks whose scores agree analytically but differ in the last bits
+    still fall to the cost/id tie-break.
+    """
+    score_rank = tie_ranks([r.score for r in rows])
+    bits_rank = tie_ranks([r.bits if math.isinf(r.score) else 0.0 for r in rows])
+    keyed = sorted(range(len(rows)), key=lambda i: (score_rank[i], bits_rank[i], rows[i].cost, rows[i].check))
+    return [rows[i] for i in keyed]
 
 
 def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
@@ -232,5 +238,4 @@ def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
             p_outcomes=tuple(float(p) for p in p_t),
             caution=check.caution,
         ))
-    rows.sort(key=_sort_key)
-    return Ranking(tuple(rows), posterior.epoch)
+    return Ranking(tuple(_ordered(rows)), posterior.epoch)

@@ -26,7 +26,7 @@ def run(args) -> int:
     for w in warnings:
         print(f"troubleshoot: {w}", file=sys.stderr)
     if args.format == "mef":
-        from troubleshoot.model.mef.read import write_mef
+        from troubleshoot.model.mef.write import write_mef
 
         if not args.output:
             import tempfile

@@ -54,6 +54,9 @@ def add_parser(subparsers, name):
                         help="how many of the best checks are weighed against repairing at once "
                              "(default 3; 0: only --min-bits decides when to stop checking)")
     parser.add_argument("--json", action="store_true", help="print the result as JSON (see the README)")
+    parser.add_argument("--engine", choices=("auto", "join tree", "decision diagram"), default="auto",
+                        help="which exact path computes the figures (default auto: the join tree, or the "
+                             "decision diagram when the join tree would not fit in memory); for testing")
     parser.set_defaults(steps=[])
     return parser
 
@@ -99,6 +102,7 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
         "model": model.name,
         "model_source": model_spec,
         "cost_unit": model.cost_unit,
+        "engine": session.engine.name,
         "status": state.status,
         "log_p_findings": state.log_p_findings,
         "entropy_bits": state.entropy_bits,
@@ -147,6 +151,7 @@ def render_text(session: Session) -> str:
     lines += [
         f"Remaining uncertainty: {state.entropy_bits:.4f} bits; log P(findings) = {state.log_p_findings:.6f}",
         f"Cost spent: {state.cost_spent:g} {unit}",
+        f"Computed exactly by the {session.engine.name}",
         f"Status: {state.status}",
         "",
         f"Checks, best first (information in bits, cost in {unit}, score in bits per {unit}):",
@@ -205,7 +210,9 @@ def run(args) -> int:
     for warning in warnings:
         print(f"troubleshoot: {warning}", file=sys.stderr)
     settings = settings_for(model, args.threshold, args.min_bits, args.group_p, args.lookahead)
-    session = Session(model, settings, model_path=str(path))
+    from troubleshoot.engine.inference import Engine
+
+    session = Session(model, settings, model_path=str(path), engine=Engine(model, kind=args.engine))
     apply_steps(session, args.steps)
     if args.json:
         sys.stdout.write(json.dumps(suggestion_json(session, args.model), indent=2, allow_nan=False) + "\n")

@@ -45,6 +45,17 @@ _BYTES_PER_ENTRY = 8 * 3
 MERGE_ENTRIES = 256
 
 
+def plan_bytes(clique_sizes) -> int:
+    """Bytes of the index plans a join tree builds beside its tables.
+
+    The marginal plan keeps, per distinct clique size s, a 2^s x s matrix of
+    floats (the state bits); merging may grow a clique up to
+    MERGE_ENTRIES entries, so small sizes are charged at that size.
+    """
+    sizes = {max(int(s), int(math.log2(MERGE_ENTRIES))) for s in clique_sizes}
+    return sum((2**s) * s * 8 for s in sizes)
+
+
 class ZeroProbability(Exception):
     """Internal: the findings have probability zero under the network."""
 
@@ -57,21 +68,87 @@ class Evidence:
     factor: np.ndarray  # already shaped to broadcast against the clique table
 
 
-def _min_fill_order(adjacency: dict[int, set[int]]) -> list[int]:
-    """Greedy elimination order: least fill-in first, ties by fewest neighbours, then index."""
-    adj = {v: set(n) for v, n in adjacency.items()}
+class _OverBudget(Exception):
+    """Internal: the elimination cliques made so far already pass the table budget."""
+
+    def __init__(self, clique: frozenset, entries: int, width_bound: int | None = None):
+        super().__init__()
+        self.clique, self.entries, self.width_bound = clique, entries, width_bound
+
+
+def _bits(x: int):
+    """The set bits of x, lowest first."""
+    while x:
+        low = x & -x
+        yield low.bit_length() - 1
+        x ^= low
+
+
+def _minor_min_width(nb: dict[int, int]) -> tuple[int, frozenset]:
+    """A lower bound on the treewidth of a graph (bit-set neighbourhoods): minor-min-width.
+
+    Repeatedly contract a vertex of least degree into its neighbour of least
+    degree; the largest least degree met bounds the treewidth from below.
+    Returns the bound and the vertex that met it with its neighbours then.
+
+    References
+    ----------
+    V. Gogate and R. Dechter, "A complete anytime algorithm for treewidth",
+    UAI 2004; H. L. Bodlaender and A. M. C. A. Koster, "Treewidth lower
+    bounds", Computer Science Review 2(1), 2008 (MMW).
+    """
+    adj = dict(nb)
+    heap = [(m.bit_count(), v) for v, m in adj.items()]
+    heapq.heapify(heap)
+    bound, where = 0, frozenset[int]()
+    while len(adj) > 1 and heap:
+        d, v = heapq.heappop(heap)
+        if v not in adj or adj[v].bit_count() != d:
+            continue
+        m = adj.pop(v)
+        if d > bound:
+            bound, where = d, frozenset([v, *_bits(m)])
+        if not m:
+            continue
+        u = min(_bits(m), key=lambda x: (adj[x].bit_count(), x))
+        merged = (adj[u] | m) & ~(1 << u) & ~(1 << v)
+        gone = ~(1 << v)
+        for w in _bits(m):
+            adj[w] &= gone
+            if w != u:
+                adj[w] |= 1 << u
+        adj[u] = merged
+        for w in _bits(merged | (1 << u)):
+            heapq.heappush(heap, (adj[w].bit_count(), w))
+    return bound, where
+
+
+def _min_fill_order(adjacency: dict[int, set[int]], max_entries: float = math.inf) -> list[int]:
+    """Greedy elimination order: least fill-in first, ties by fewest neighbours, then index.
+
+    Neighbourhoods are bit sets (Python ints), so counting a vertex's fill-in
+    is one AND and one popcount per neighbour. Stops (raises _OverBudget) as
+    soon as the elimination cliques made so far hold more than
+    ``max_entries`` table entries: a tree too large is refused without
+    finishing the order.
+    """
+    nb = {v: sum(1 << u for u in n) for v, n in adjacency.items()}
+    entries = 0
+    largest: frozenset = frozenset()
 
     def fill(v: int) -> int:
-        nbrs = list(adj[v])
+        m = nb[v]
         missing = 0
-        for i, a in enumerate(nbrs):
-            na = adj[a]
-            for b in nbrs[i + 1 :]:
-                if b not in na:
-                    missing += 1
-        return missing
+        for a in _bits(m):
+            missing += (m & ~nb[a]).bit_count() - 1  # a itself is in m, not in nb[a]
+        return missing // 2
 
-    heap = [(fill(v), len(adj[v]), v) for v in adj]
+    if max_entries < math.inf:
+        bound, where = _minor_min_width(nb)
+        if 2 ** (bound + 1) > max_entries:
+            raise _OverBudget(where, 2 ** (bound + 1), bound)
+    fills = {v: fill(v) for v in nb}
+    heap = [(fills[v], nb[v].bit_count(), v) for v in nb]
     heapq.heapify(heap)
     score = {v: (f, d) for f, d, v in heap}
     order: list[int] = []
@@ -82,23 +159,35 @@ def _min_fill_order(adjacency: dict[int, set[int]]) -> list[int]:
             continue
         order.append(v)
         done.add(v)
-        nbrs = adj.pop(v)
-        for a in nbrs:
-            adj[a].discard(v)
-        nb = list(nbrs)
-        for i, a in enumerate(nb):
-            for b in nb[i + 1 :]:
-                if b not in adj[a]:
-                    adj[a].add(b)
-                    adj[b].add(a)
-        touched = set(nb)
-        for a in nb:
-            touched.update(adj[a])
-        for a in touched:
-            s = (fill(a), len(adj[a]))
-            if s != score[a]:
-                score[a] = s
-                heapq.heappush(heap, (s[0], s[1], a))
+        nbrs = nb.pop(v)
+        size = nbrs.bit_count() + 1
+        entries += 2**size
+        if size > len(largest):
+            largest = frozenset([v, *_bits(nbrs)])
+        if entries > max_entries:
+            raise _OverBudget(largest, entries)
+        gone = ~(1 << v)
+        # The fill-in edges this elimination adds: each lowers by one the
+        # fill of every vertex outside v's neighbourhood adjacent to both
+        # ends (its neighbourhood is otherwise unchanged); v's neighbours get
+        # new neighbourhoods and are scored afresh.
+        changed = set()
+        for a in _bits(nbrs):
+            missing = nbrs & ~nb[a] & ~((2 << a) - 1)  # pairs (a, b > a) not yet adjacent
+            for b in _bits(missing):
+                for w in _bits(nb[a] & nb[b] & ~nbrs & gone):
+                    fills[w] -= 1
+                    changed.add(w)
+        for a in _bits(nbrs):
+            nb[a] = (nb[a] | nbrs) & gone & ~(1 << a)
+        for a in _bits(nbrs):
+            fills[a] = fill(a)
+            changed.add(a)
+        for a in changed:
+            s_ = (fills[a], nb[a].bit_count())
+            if s_ != score[a]:
+                score[a] = s_
+                heapq.heappush(heap, (s_[0], s_[1], a))
     return order
 
 
@@ -149,7 +238,11 @@ class JoinTree:
                 adjacency[a].update(grp)
         for a in adjacency:
             adjacency[a].discard(a)
-        order = _min_fill_order(adjacency)
+        try:
+            order = _min_fill_order(adjacency, memory_budget / _BYTES_PER_ENTRY)
+        except _OverBudget as over:
+            raise self._too_large(over.clique, over.entries, memory_budget, early=True,
+                                  width=over.width_bound) from None
         position = np.empty(n, dtype=np.int64)
         position[order] = np.arange(n)
         self._position = position
@@ -268,15 +361,22 @@ class JoinTree:
     def _check_budget(self, cliques, memory_budget):
         cliques = list(cliques)
         entries = sum(2 ** len(c) for c in cliques)
-        need = entries * _BYTES_PER_ENTRY
+        need = entries * _BYTES_PER_ENTRY + plan_bytes(len(c) for c in cliques)
         if need <= memory_budget:
             return
-        largest = max(cliques, key=len)
+        raise self._too_large(max(cliques, key=len), entries, memory_budget, early=False,
+                              need=need)
+
+    def _too_large(self, largest, entries: int, memory_budget: int, early: bool, need: int | None = None,
+                   width: int | None = None):
         names = sorted({self.variables[i].split(DERIVED)[0] for i in largest})
         shown = ", ".join(names[:12]) + (" ..." if len(names) > 12 else "")
-        raise NetworkTooLarge(
-            f"the join tree would need {need / 1024**2:,.0f} MiB (budget {memory_budget / 1024**2:,.0f} MiB): "
-            f"width {len(largest) - 1}, {entries:,} table entries; the largest clique joins {shown}. "
+        need = entries * _BYTES_PER_ENTRY if need is None else need
+        more = " or more" if early else ""
+        width = max(len(largest) - 1, width or 0)
+        return NetworkTooLarge(
+            f"the join tree would need {need / 1024**2:,.0f} MiB{more} (budget {memory_budget / 1024**2:,.0f} MiB): "
+            f"width {width}{more}, {entries:,} table entries{more}; the largest clique so far joins {shown}. "
             "Split checks with many causes, or remove repeated events shared across these gates"
         )
 
@@ -389,6 +489,53 @@ class JoinTree:
             ratio = np.divide(new, old, out=np.zeros_like(new), where=old > 0)
             pots[c] *= ratio.reshape(c_shape)
         return Calibrated(self, work, log_p)
+
+    def max_propagate(self, evidence: list[Evidence]) -> tuple[dict[int, int], float]:
+        """The most probable joint state of every variable with the evidence: max-product collect, then decode.
+
+        Returns (variable index -> state, log max P(state, evidence)). One
+        collect pass with max in place of sum, each clique renormalised as it
+        sends; the decoding walks the tree from the roots, each clique taking
+        its best state given what its parent chose. Memory: one copy of the
+        tables, whatever the depth of the tree. Raises ZeroProbability.
+
+        References
+        ----------
+        A. P. Dawid, "Applications of a general propagation algorithm for
+        probabilistic expert systems", Statistics and Computing 2, 1992
+        (max-propagation in a join tree).
+        """
+        work = self.base.copy()
+        offsets, shapes = self.offsets, self.shapes
+        pots = [work[offsets[c] : offsets[c + 1]].reshape(shapes[c]) for c in range(len(shapes))]
+        for ev in evidence:
+            pots[ev.clique] *= ev.factor
+        log_m = 0.0
+        for c, p, c_sum, _p_sum, _c_shape, p_shape in reversed(self._edges):
+            pot = pots[c]
+            z = pot.max()
+            if not z > 0.0:
+                raise ZeroProbability
+            pot /= z
+            log_m += math.log(z)
+            msg = pot.max(axis=c_sum) if c_sum else pot.copy()
+            pots[p] *= msg.reshape(p_shape)
+        for r in self.roots:
+            z = pots[r].max()
+            if not z > 0.0:
+                raise ZeroProbability
+            pots[r] /= z
+            log_m += math.log(z)
+        state: dict[int, int] = {}
+        for c in self.preorder:  # parents before children
+            members = self.cliques[c]
+            index = tuple(state[v] if v in state else slice(None) for v in members)
+            sub = pots[c][index]
+            free = [v for v in members if v not in state]
+            best = np.unravel_index(int(np.argmax(sub)), sub.shape) if free else ()
+            for v, s in zip(free, best):
+                state[v] = int(s)
+        return state, log_m
 
 
 class Calibrated:

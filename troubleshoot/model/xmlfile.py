@@ -16,6 +16,7 @@ W3C, *XML Schema Part 1: Structures*, 2004.
 
 from __future__ import annotations
 
+import math
 import os
 import tempfile
 import textwrap
@@ -172,6 +173,12 @@ _SCHEMA_HINTS = {
     "xs:double": "a number (such as 0.02 or 1e-5)",
     "xs:integer": "a whole number",
 }
+
+
+def _usable_law(rate: float | None, exposure: float | None) -> bool:
+    """A rate and an exposure the exponential law can take: finite, rate >= 0, exposure > 0."""
+    return (rate is not None and exposure is not None and math.isfinite(rate) and math.isfinite(exposure)
+            and rate >= 0 and exposure > 0)
 
 
 def _clean_text(raw: str | None) -> str:
@@ -366,7 +373,9 @@ class _Builder:
             self.lines[(eid, "failure-rate")] = rate_line
             rate = self.number(rate_element.get("per-hour"), rate_line, f"basic event '{eid}' failure rate", 0.0)
             exposure = self.number(rate_element.get("exposure-hours"), rate_line, f"basic event '{eid}' exposure", None)
-            if rate is not None and exposure is not None:
+            # Values are checked before any arithmetic: a negative rate would
+            # overflow exp(); the validator reports it with its line.
+            if _usable_law(rate, exposure):
                 probability = exponential_probability(rate, exposure)
         else:
             self.error(

@@ -97,6 +97,7 @@ def header_record(session: Session) -> dict:
         "model_name": session.model.name,
         "model_path": str(path) if path else None,
         "model_sha256": file_sha256(path) if path else None,
+        "engine": session.engine.name,
         "settings": {
             "isolation_threshold": session.settings.isolation_threshold,
             "min_bits": session.settings.min_bits,

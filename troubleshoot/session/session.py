@@ -63,6 +63,7 @@ from troubleshoot.advice.diagnosis import (
     Suspect,
     ambiguity_group,
     entropy_bits,
+    is_unlisted,
     isolated_suspect,
     most_probable_explanation,
     suspects,
@@ -93,7 +94,7 @@ from troubleshoot.advice.repair import (
 )
 from troubleshoot.engine.inference import Engine, Finding, Posterior
 from troubleshoot.errors import SessionError
-from troubleshoot.model import Model
+from troubleshoot.model import DERIVED, Model
 
 DIAGNOSING = Status.DIAGNOSING
 ISOLATED = Status.ISOLATED
@@ -631,8 +632,14 @@ class Session:
         """Record that a root event was repaired; a verification is asked for next."""
         model = self.model
         self._refuse_if_confirmed("record a repair")
-        if event_id not in model.hypotheses:
-            known = ", ".join(model.hypotheses[:8]) + (", ..." if len(model.hypotheses) > 8 else "")
+        if event_id not in model.event_by_id:
+            if is_unlisted(model, event_id):
+                gate = event_id[: -len(DERIVED + "unlisted")]
+                raise SessionError(f"cannot repair {event_id!r}: it stands for causes outside the model "
+                                   f"under gate {gate!r}, which name no component to repair; inspect "
+                                   "beyond the listed components or hand the unit over")
+            events = [e.id for e in model.basic_events]
+            known = ", ".join(events[:8]) + (", ..." if len(events) > 8 else "")
             raise SessionError(f"cannot repair {event_id!r}: it is not a basic event of model "
                                f"{model.name!r} (basic events: {known})")
         rec = self._view.record

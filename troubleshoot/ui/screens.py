@@ -431,7 +431,7 @@ class MainScreen(Screen):
         self.app.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
 
     def action_help(self) -> None:
-        self.app.push_screen(HelpScreen())
+        self.app.push_screen(HelpScreen(self.app.session.engine.name))
 
 
 class CheckScreen(ModalScreen):
@@ -449,13 +449,24 @@ class CheckScreen(ModalScreen):
         Binding("q", "back", "Back", show=False),
     ]
 
+    #: Longest outcome name the footer shows in full (three outcomes and the
+    #: other keys still fit 80 columns); the card lists every name whole.
+    FOOTER_NAME = 14
+
     def __init__(self, card: CheckCard, figures: bool = False) -> None:
         super().__init__(id="check-screen")
         self.card = card
         self.figures = figures
         self.acknowledged = card.caution is None
-        for i, name in enumerate(card.outcomes[:9]):
-            self._bindings.bind(str(i + 1), f"outcome({i})", truncate(name, 18))
+        # Keys 1..K, each named after its outcome in the footer.
+        for i, name in enumerate(card.outcomes):
+            self._bindings.bind(str(i + 1), f"outcome({i})", truncate(name, self.FOOTER_NAME))
+
+    @property
+    def keys_text(self) -> str:
+        """``key 1 or 2``, ``keys 1 to 3``: how to enter the outcome."""
+        k = len(self.card.outcomes)
+        return "key 1 or 2" if k == 2 else f"keys 1 to {k}"
 
     def compose(self) -> ComposeResult:
         card = self.card
@@ -483,16 +494,12 @@ class CheckScreen(ModalScreen):
     def on_mount(self) -> None:
         self._show_ack()
 
-    def _keys(self) -> str:
-        n = len(self.card.outcomes)
-        return "key 1 or 2" if n == 2 else f"keys 1 to {n}"
-
     def _show_ack(self) -> None:
         message = self.query_one("#check-message", Static)
         if self.card.caution is None:
-            message.update(f"This check lists no safety caution. Enter its outcome with {self._keys()}.")
+            message.update(f"This check lists no safety caution. Enter its outcome with {self.keys_text}.")
         elif self.acknowledged:
-            message.update(f"✔ Caution acknowledged. Enter the outcome with {self._keys()}.")
+            message.update(f"✔ Caution acknowledged. Enter the outcome with {self.keys_text}.")
         else:
             message.update("Read the caution, then press a to acknowledge it before entering an outcome.")
         self.refresh_bindings()
@@ -729,9 +736,17 @@ class HelpScreen(ModalScreen):
         Binding("q", "close", "Close", show=False),
     ]
 
+    def __init__(self, engine: str = "") -> None:
+        super().__init__()
+        self.engine = engine
+
     def compose(self) -> ComposeResult:
         with VerticalScroll(classes="card", id="help-card"):
-            yield Markdown(HELP_TEXT)
+            text = HELP_TEXT
+            if self.engine:
+                text += (f"\nThe probabilities are computed exactly by the {self.engine} "
+                         "(a decision diagram is used where the model is too wide for a join tree).\n")
+            yield Markdown(text)
         yield Footer()
 
     def action_close(self) -> None:
