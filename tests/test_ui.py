@@ -663,6 +663,9 @@ def test_a_repair_of_an_unlikely_part_asks_for_confirmation(tmp_path):
                 await enter_outcome(app, pilot, technician.outcome(check_id, ()))
             state = app.state
             assert state.status == "isolated" and state.isolated.id == technician.fault
+            # The why-line says what to do in words: the part, its chance, the repair.
+            shown = flat(screen_text(app))
+            assert f"{state.isolated.label} stands at {state.isolated.p * 100:.1f} %: repair it" in shown
             await pilot.press("r")
             await pilot.pause()
             choice = app.screen
@@ -731,3 +734,15 @@ def test_start_screen_fields_go_to_the_log_and_the_summary(tmp_path):
     assert "**Technician:** Kim Lee" in text and "**Unit (serial or tag):** SN-88" in text
     assert "**Site:** Roof C" in text
     replay_ok(log)
+
+
+def test_every_key_is_in_the_help():
+    from troubleshoot.ui.screens import HELP_TEXT
+
+    names = {"question_mark": "?", "escape": "esc", "minus": "-", "ctrl+c": "Ctrl+C", "ctrl+q": "Ctrl+Q",
+             "ctrl+t": "Ctrl+T"}
+    for owner in (TroubleshootApp, StartScreen, MainScreen, CheckScreen):
+        for binding in owner.BINDINGS:
+            key = names.get(binding.key, binding.key)
+            assert f"`{key}`" in HELP_TEXT or f"| {key} |" in HELP_TEXT, (owner.__name__, binding.key)
+    assert "`1`, `2`" in HELP_TEXT  # the outcome keys, named on the card

@@ -163,51 +163,39 @@ def repair_order_lines(state, limit: int | None = None) -> list[str]:
     return lines
 
 
-def first_repair_words(state) -> str:
-    """The first entry of the repair order in words: repair, part, cost."""
-    unit = state.cost_unit
-    for step in state.repair_order:
-        if step.cost is not None:
-            return f"{step.repair_label} ({step.label}, {cost_text(step.cost, unit)})"
-    return ""
-
-
-def outside_model(state):
-    """The most probable unrepaired suspect when it is a cause outside the model, else None."""
-    top = next((s for s in state.suspects if not s.repaired), None)
-    return top if top is not None and top.unlisted else None
-
-
 def why_line(state) -> str:
-    """One line saying what to do next and why, in the technician's words."""
+    """One line saying what to do next and why, in the technician's words, from the policy's decision."""
     unit = state.cost_unit
+    decision = state.decision
     if state.status == "diagnosing":
         if state.why is not None:
             return state.why.text
         nxt = state.next_check
         return f"next: {nxt.label} ({cost_text(nxt.cost, unit)})" if nxt is not None else ""
-    if state.status == "isolated":
-        s = state.isolated
-        step = next((r for r in state.repair_order if r.id == s.id), None)
-        if step is not None and step.cost is not None:
-            return (f"{s.label} stands at {percent(s.p)}: repair it — {step.repair_label} "
-                    f"({cost_text(step.cost, unit)})")
-        return f"{s.label} stands at {percent(s.p)}; the model lists no repair for it"
-    if state.status == "ambiguity":
-        out = outside_model(state)
-        if out is not None:
-            return (f"the cause is probably outside this model ({percent(out.p)}, {out.label}): "
-                    "call the field engineer or hand the unit over")
-        first = first_repair_words(state)
-        if first:
-            return f"no check is worth its time now: repair {first}"
-        return "no check is worth its time now and the model lists no repair: hand the unit over"
     if state.status == "awaiting-verification":
         v = state.verification
         return f"check that the repair worked: {v.label} ({cost_text(v.cost, unit)})"
     if state.status == "confirmed":
         return "the unit works: the repair is confirmed"
-    return ""
+    if decision is not None and decision.action == "escalate":
+        reason = decision.reasons[0] if decision.reasons else None
+        if reason is None or reason.kind == "outside-model":
+            return (f"the cause is probably outside this model ({percent(state.outside_model_p)}): "
+                    "no listed repair is expected to help; hand the unit over")
+        return reason.text
+    target = decision.target if decision is not None and decision.action == "repair" else None
+    step = next((r for r in state.repair_order if r.id == target), None) if target else None
+    if step is None:
+        step = next((r for r in state.repair_order if r.cost is not None), None)
+    if step is None:
+        return "no check is worth its time now and the model lists no repair: hand the unit over"
+    job = f"{step.repair_label} ({cost_text(step.cost, unit)})"
+    if state.status == "isolated" and state.isolated is not None and state.isolated.id == step.id:
+        return f"{step.label} stands at {percent(step.p)}: repair it — {job}"
+    finish = ""
+    if decision is not None and decision.expected_cost is not None:
+        finish = f"; expected {cost_text(round(decision.expected_cost), unit)} to finish"
+    return f"no check is worth its time now: repair {step.label} ({percent(step.p)}) first — {job}{finish}"
 
 
 def diagnosis_text(state) -> str:
