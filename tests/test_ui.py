@@ -223,8 +223,8 @@ def test_whole_session_to_confirmed_repair(tmp_path):
             await pilot.press(str(technician.outcome(screen.card.target, ()) + 1))
             await settle(app, pilot)
             # The acknowledgement is logged, then the finding.
-            assert [a["action"] for a in app.session.actions[actions_before:]] == ["acknowledge", "finding"]
-            assert app.session.actions[actions_before]["check"] == screen.card.target
+            assert [a.kind for a in app.session.actions[actions_before:]] == ["acknowledge", "finding"]
+            assert app.session.actions[actions_before].check == screen.card.target
 
             await diagnose_to_the_end(app, pilot, technician)
             assert isinstance(app.screen, SummaryScreen)
@@ -285,7 +285,7 @@ def test_second_demo_checks_repair_and_verification(tmp_path):
         return app.return_code
 
     assert run(scenario()) == 0
-    assert len([a for a in app.session.actions if a["action"] == "finding"]) == len(model.symptoms) + 2
+    assert len([a for a in app.session.actions if a.kind == "finding"]) == len(model.symptoms) + 2
     replay_ok(log)
 
 
@@ -370,7 +370,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
         return app.return_code
 
     assert run(scenario()) == 0
-    kinds = [a["action"] for a in session.actions]
+    kinds = [a.kind for a in session.actions]
     for kind in ("skip", "undo", "finding", "retract", "correct", "note"):
         assert kind in kinds
     assert summary_path(log).exists()  # quitting brings the summary up to date
@@ -632,7 +632,7 @@ def test_main_screen_speaks_plainly_with_the_recommendation_first(tmp_path):
             await pilot.press("end", "k")
             await settle(app, pilot)
             assert app.state.skipped == () and first in [r.check for r in app.state.ranking]
-            assert app.session.actions[-1] == {"action": "unskip", "check": first}
+            assert app.session.actions[-1].to_record() == {"action": "unskip", "check": first}
 
             # Ctrl+C quits as safely as q: the log is kept and the summary written.
             await pilot.press("ctrl+c")
@@ -729,7 +729,7 @@ def test_start_screen_fields_go_to_the_log_and_the_summary(tmp_path):
         return app.return_code
 
     assert run(scenario()) == 0
-    assert app.session.actions[0] == {"action": "job", "technician": "Kim Lee", "unit": "SN-88"}
+    assert app.session.actions[0].to_record() == {"action": "job", "technician": "Kim Lee", "unit": "SN-88"}
     text = summary_path(log).read_text(encoding="utf-8")
     assert "**Technician:** Kim Lee" in text and "**Unit (serial or tag):** SN-88" in text
     assert "**Site:** Roof C" in text

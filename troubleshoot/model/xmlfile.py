@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import math
 import os
-import tempfile
 import textwrap
 from functools import lru_cache
 from importlib import resources
@@ -611,16 +610,13 @@ def save_model(model: Model, path: str | os.PathLike) -> None:
     except ValueError as exc:  # lxml refuses control characters
         raise ModelError([Problem(name, None, f"the model holds text XML cannot carry ({exc}); remove control characters")]) from None
     data = b'<?xml version="1.0" encoding="UTF-8"?>\n' + etree.tostring(root, encoding="UTF-8", pretty_print=True)
-    target = Path(path)
-    directory = target.parent if str(target.parent) else Path(".")
-    temporary = None
+    from troubleshoot.errors import OutputError
+    from troubleshoot.files import write_output
+
     try:
-        handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=directory)
-        with os.fdopen(handle, "wb") as stream:
-            stream.write(data)
-        os.chmod(temporary, 0o644)  # mkstemp makes it private; a model file is an ordinary file
-        os.replace(temporary, target)
-    except OSError as exc:
-        if temporary is not None and os.path.exists(temporary):
-            os.unlink(temporary)
-        raise ModelError([Problem(name, None, f"cannot write the file ({exc.strerror}); check the folder and permissions")]) from None
+        write_output(path, data, "model file")
+    except OutputError as exc:
+        message = str(exc)
+        if message.startswith(name + ": "):
+            message = message[len(name) + 2:]
+        raise ModelError([Problem(name, None, message)]) from None

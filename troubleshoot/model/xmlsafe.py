@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import os
 import re
-from pathlib import Path
 
 from lxml import etree
 
@@ -83,30 +82,17 @@ def parse_xml_file(path: str | os.PathLike, max_bytes: int = DEFAULT_MAX_BYTES) 
     every entity attack starts with one. UTF-8, UTF-16 and UTF-32 files are
     read, with or without a byte-order mark.
     """
+    from troubleshoot.errors import InputError
+    from troubleshoot.files import read_input
+
     name = str(path)
-    file_path = Path(path)
     try:
-        size = file_path.stat().st_size
-    except FileNotFoundError:
-        raise _error(name, None, "file not found; check the path") from None
-    except OSError as exc:
-        raise _error(name, None, f"cannot read the file ({exc.strerror}); check the path and permissions") from None
-    if file_path.is_dir():
-        raise _error(name, None, "this is a folder, not a file; give the path of an XML file")
-    if size > max_bytes:
-        raise _error(
-            name,
-            None,
-            f"file is {_megabytes(size)}, larger than the {_megabytes(max_bytes)} limit; "
-            "a model file is normally well under 1 MB - check that this is the right file",
-        )
-    try:
-        with open(file_path, "rb") as handle:
-            data = handle.read(max_bytes + 1)
-    except OSError as exc:
-        raise _error(name, None, f"cannot read the file ({exc.strerror}); check the path and permissions") from None
-    if len(data) > max_bytes:  # grew while we looked
-        raise _error(name, None, f"file is larger than the {_megabytes(max_bytes)} limit")
+        data = read_input(path, max_bytes, "XML file")
+    except InputError as exc:
+        message = str(exc)
+        if message.startswith(name + ": "):
+            message = message[len(name) + 2:]
+        raise _error(name, None, message) from None
     return parse_xml_bytes(data, name)
 
 

@@ -24,15 +24,9 @@ from __future__ import annotations
 import datetime as _dt
 from pathlib import Path
 
-#: The words each session status is reported with while a session is still open.
-STATUS_SENTENCES = {
-    "diagnosing": "diagnosis not finished: no fault isolated yet",
-    "isolated": "fault isolated, not yet repaired",
-    "ambiguity": "only an ambiguity group is left, not yet repaired",
-    "awaiting-verification": "repair recorded, not yet verified",
-    "confirmed": "repair confirmed: the unit works",
-    "escalated": "handed over: the cause is beyond the model",
-}
+from troubleshoot.session.render import STATUS_SENTENCES
+
+__all__ = ["STATUS_SENTENCES", "ending", "summary_markdown", "summary_path", "write_summary"]
 
 #: The job fields a session may carry in its log header, and their labels.
 JOB_FIELDS = (("technician", "Technician"), ("unit", "Unit (serial or tag)"), ("site", "Site"),
@@ -52,10 +46,6 @@ def summary_path(log_path: str | Path) -> Path:
 
 def _number(value: float) -> str:
     return f"{value:g}"
-
-
-def _percent(p: float) -> str:
-    return f"{p * 100:.1f} %"
 
 
 def _duration(seconds: float) -> str:
@@ -166,8 +156,10 @@ class _Narrator:
             given = "; ".join(f"{label.lower()} {action[key]}" for key, label in JOB_FIELDS if action.get(key))
             return f"Job details given: {given}", ""
         elif kind == "resume":
-            why = action.get("reason") or action.get("note")
-            return "Session resumed from its log" + (f" ({why})" if why else ""), ""
+            words = "Session resumed from its log (after a crash or a closed terminal)"
+            if action.get("model_changed"):
+                words += f"; under a changed model: {action.get('model_path')}"
+            return words, ""
         elif kind == "escalate":
             what = action.get("text") or action.get("label") or action.get("target") or "beyond the model"
             words = f"Escalated: {what}"
@@ -192,7 +184,7 @@ def ending(model, state, records=()) -> tuple[str, str]:
     if state.status == "confirmed":
         repaired = model.label_of(state.repairs[-1]) if state.repairs else "the repair"
         return "Confirmed", f"the unit works after the repair of {repaired}"
-    if state.status == "escalated" or (kinds and kinds[-1] == "escalate"):
+    if kinds and kinds[-1] == "escalate":
         return "Escalated", "handed over: the cause is beyond what this model covers"
     if state.status == "ambiguity" and state.ambiguity_group:
         group = "; ".join(f"{s.label} ({_percent(s.p)})" for s in state.ambiguity_group)
@@ -322,7 +314,8 @@ def write_summary(session, ended: _dt.datetime) -> Path | None:
 
     Reads the log for the start time, the job fields and every action with
     its time. Raises :class:`~troubleshoot.errors.LogError` when the log
-    cannot be read and OSError when the summary cannot be written.
+    cannot be read and :class:`~troubleshoot.errors.OutputError` when the
+    summary cannot be written.
     """
     from troubleshoot.session.logfile import job_of, read_log
 
@@ -330,10 +323,10 @@ def write_summary(session, ended: _dt.datetime) -> Path | None:
     path = getattr(log, "path", None)
     if path is None:
         return None
+    from troubleshoot.files import write_output
+
     contents = read_log(path)
     header = contents.header
     text = summary_markdown(session.model, session.state, path, parse_time(header.get("time")), ended,
                             records=[record for _, record in contents.actions], job=job_of(contents))
-    out = summary_path(path)
-    out.write_text(text, encoding="utf-8")
-    return out
+    return write_output(summary_path(path), text.encode("utf-8"), "session summary")

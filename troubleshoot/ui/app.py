@@ -187,8 +187,7 @@ class TroubleshootApp(App[int]):
 
         def record_all() -> None:
             if job:  # the header is written already: the job typed here is logged as its own line
-                session.job = {**session.job, **job}
-                session.mark({"action": "job", **job})
+                session.record_job(job)
             recorded = 0
             try:
                 for symptom_id, outcome in observations:

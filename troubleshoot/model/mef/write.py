@@ -14,7 +14,6 @@ Open-PSA Model Exchange Format, version 2.0d, The Open-PSA Initiative, 2008.
 from __future__ import annotations
 
 import re
-from pathlib import Path
 from xml.sax.saxutils import escape, quoteattr
 
 from troubleshoot.model import DERIVED, BasicEvent, Model
@@ -155,7 +154,9 @@ def write_mef(model: Model, path) -> None:
             lines.append("    </define-basic-event>")
     lines.append("  </model-data>")
     lines.append("</opsa-mef>")
-    Path(path).write_text("\n".join(lines) + "\n", encoding="utf-8")
+    from troubleshoot.files import write_output
+
+    write_output(path, ("\n".join(lines) + "\n").encode("utf-8"), "MEF file")
 
 
 def _law(event: BasicEvent, model: Model) -> str:
