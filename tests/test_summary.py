@@ -48,8 +48,7 @@ def test_summary_lists_correction_undo_crash_resume_and_the_confirmed_repair(tmp
     commands = [f"repair {filters.id}", f"verify {model.verification.outcomes[0]}", "quit"]
     monkeypatch.setattr("sys.stdin", io.StringIO("\n".join(commands) + "\n"))
     assert main(["resume", str(log), "--plain"]) == 0
-    out = capsys.readouterr().out
-    assert f"summary: {summary_path(log)}" in out
+    assert f"summary: {summary_path(log)}" in capsys.readouterr().err
 
     text = summary_path(log).read_text(encoding="utf-8")
     records = [r for _, r in read_log(log).actions]

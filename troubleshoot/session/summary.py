@@ -48,6 +48,10 @@ def _number(value: float) -> str:
     return f"{value:g}"
 
 
+def _percent(p: float) -> str:
+    return f"{p * 100:.1f} %"
+
+
 def _duration(seconds: float) -> str:
     minutes = int(round(seconds / 60.0))
     hours, minutes = divmod(minutes, 60)
