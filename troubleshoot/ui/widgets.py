@@ -205,7 +205,8 @@ def diagnosis_text(state) -> str:
         nxt = state.next_check
         if nxt is None:
             return f"{word} — no check is left; record a repair (key r)."
-        return f"Do the first check. Why: {why_line(state)}"
+        # A non-breaking space keeps each percentage whole when the line wraps.
+        return f"Do the first check. Why: {why_line(state)}".replace(" %", "\u00a0%")
     if state.status == "isolated":
         return f"{word} — {why_line(state)}. Key r records the repair."
     if state.status == "ambiguity":
