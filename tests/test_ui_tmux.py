@@ -63,7 +63,8 @@ def test_start_in_tmux_shows_the_top_check_and_quits_with_status_0(tmp_path):
         _wait_for(lambda: "Begin" in screen(), "the start screen")
         assert "lockout/tagout" in screen()
         _tmux(socket, "send-keys", "-t", "ui", "b")
-        # The table cuts a long label to its column: look for its first 20 characters.
+        # The table cuts a long label to its column: look for its first 20 characters, on the
+        # main screen (a symptom's label is on the start screen too).
         _wait_for(lambda: "Checks" in screen() and top_label[:20] in screen(),
                   f"the main screen with the top-ranked check {top_label!r}")
         _tmux(socket, "send-keys", "-t", "ui", "q")

@@ -42,7 +42,8 @@ def add_parser(subparsers, name):
     )
     parser.add_argument("model", metavar="MODEL", help="a model file, or a demo name (rooftop, booster)")
     parser.add_argument("--finding", metavar="CHECK=OUTCOME", action=_Ordered, dest="finding",
-                        help="a check or symptom and the outcome seen (repeatable, order kept)")
+                        help="a check or symptom and the outcome seen, by name or by its number "
+                        "1..K in the check's list (1 the normal one); repeatable, order kept")
     parser.add_argument("--repaired", metavar="EVENT", action=_Ordered, dest="repaired",
                         help="a basic event repaired (repeatable; later findings see it working)")
     parser.add_argument("--threshold", metavar="P", type=float,

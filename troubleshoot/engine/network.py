@@ -141,6 +141,7 @@ class _Builder:
         self.g = self.net.graph
         self.max_fanin = max_fanin
         self._depends: dict[str, frozenset] = {}
+        self._tables: dict[tuple[str, int], np.ndarray] = {}  # one read-only table per (kind, arity)
 
     # -- nodes -----------------------------------------------------------
     def add_node(self, node_id, role, parents, table, label="", states=("ok", "failed")):
@@ -151,7 +152,12 @@ class _Builder:
         return node_id
 
     def det(self, node_id, kind, operands, role=AUX, label=""):
-        return self.add_node(node_id, role, operands, _deterministic_table(kind, len(operands)), label)
+        key = (kind, len(operands))
+        table = self._tables.get(key)
+        if table is None:
+            table = self._tables[key] = _deterministic_table(*key)
+            table.setflags(write=False)
+        return self.add_node(node_id, role, operands, table, label)
 
     def logic(self, name: str, kind: str, operands: list, named: bool) -> str | bool:
         """AND/OR over operands with constants folded and fan-in bounded.
@@ -287,12 +293,25 @@ class _Builder:
         if isinstance(result, bool):
             return self.constant(name, result, True)
         if isinstance(result, str) and result.startswith(f"{name}{DERIVED}k"):
-            nx.relabel_nodes(self.g, {result: name}, copy=False)
-            self._relabel_parents(result, name)
+            self._rename(result, name)
             self.g.nodes[name]["role"] = GATE
             self.g.nodes[name]["label"] = self.model.label_of(name)
             return name
         return self.det(name, "copy", [result], GATE, self.model.label_of(name))
+
+    def _rename(self, old: str, new: str):
+        """Rename a node in place, as networkx.relabel_nodes(copy=False) does, in time of its degree.
+
+        (relabel_nodes scans the whole graph per call: quadratic over a
+        large tree's voting gates.)
+        """
+        g = self.g
+        preds, succs = list(g.predecessors(old)), list(g.successors(old))
+        g.add_node(new, **g.nodes[old])
+        g.add_edges_from((p, new) for p in preds)
+        g.add_edges_from((new, c) for c in succs)
+        g.remove_node(old)
+        self._relabel_parents(old, new)
 
     def _relabel_parents(self, old: str, new: str):
         for child in self.g.successors(new):

@@ -311,13 +311,14 @@ def describe(action: Action | dict) -> str:
 
 
 LINE_HELP = """commands (one per line):
-  CHECK=OUTCOME            record a finding (e.g. pressure_switches=a switch is open; or by number, 1 = the first)
+  CHECK=OUTCOME            record a finding, the outcome by name or by its number 1..K, 1 the
+                           normal one (e.g. pressure_switches=a switch is open, suction_pressure=2)
   correct CHECK=OUTCOME    change a finding already recorded
   retract CHECK            withdraw a finding
   skip CHECK REASON...     leave a check out (it cannot be done now)
   unskip CHECK             bring a skipped check back
   repair EVENT             record a repair
-  verify OUTCOME           record the check after the repair (e.g. verify works)
+  verify OUTCOME           record the check after the repair (e.g. verify works, verify 1)
   ack CHECK                acknowledge the safety caution of a check before doing it
   note TEXT...             add a note to the log
   undo                     take back the last action

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 
-from troubleshoot.session.session import AMBIGUITY, CONFIRMED, ISOLATED, Status
+from troubleshoot.session.session import AMBIGUITY, CONFIRMED, ISOLATED, Status, numbered_outcomes
 
 #: The words each session status is reported with.
 STATUS_SENTENCES = {
@@ -100,8 +100,7 @@ def render_state(model, state, explanation=None, engine_name: str | None = None)
     lines += _repair_order_lines(state, unit, "  ")
     if state.verification:
         v = state.verification
-        lines.append(f"Verify the repair: {v.label} ({v.cost:g} {unit}; outcomes "
-                     + " or ".join(repr(o) for o in v.outcomes) + ")")
+        lines.append(f"Verify the repair: {v.label} ({v.cost:g} {unit}; outcomes {numbered_outcomes(v.outcomes)})")
     if state.next_check:
         lines.append(f"Next check: {state.next_check.check} ({state.next_check.label})")
     for caution in state.cautions:
@@ -128,11 +127,12 @@ def render_brief(state) -> str:
              f"cost spent {state.cost_spent:g} {unit}"]
     if state.next_check:
         r = state.next_check
-        odds = ", ".join(f"{o} {p:.2f}" for o, p in zip(r.outcomes, r.p_outcomes))
+        # Numbered as a technician types them: 1 the normal outcome, then the abnormal ones.
+        odds = ", ".join(f"{i} {o} {p:.2f}" for i, (o, p) in enumerate(zip(r.outcomes, r.p_outcomes), start=1))
         lines.append(f"next check: {r.check} ({r.label}); {r.bits:.3f} bits, {r.cost:g} {unit}; {odds}")
     if state.verification:
         v = state.verification
-        lines.append(f"verify the repair: {v.label}: " + " or ".join(repr(o) for o in v.outcomes))
+        lines.append(f"verify the repair: {v.label}: {numbered_outcomes(v.outcomes)}")
     if state.isolated:
         lines.append(f"isolated: {state.isolated.id} ({state.isolated.label}), P = {state.isolated.p:.3f}")
     if state.status in (ISOLATED, AMBIGUITY) and state.repair_order:
