@@ -57,6 +57,8 @@ def test_labels_break_lines_and_never_show_a_backslash(capsys, demo):
         assert lines[0] == event.label and lines[1] == f"p = {event.probability:.3g}"
     for gate in model.gates:
         assert drawn_lines(labels[gate.id]) == [gate.label, gate.kind.upper()]
+    for check in model.checks + model.symptoms:
+        assert drawn_lines(labels[check.id]) == [check.label, " | ".join(check.outcomes)]
     assert not any("\\" in line for label in labels.values() for line in drawn_lines(label))
 
 
