@@ -367,3 +367,27 @@ def test_export_carries_every_outcome(tmp_path, capsys):
     assert main(["export", "rooftop", "--format", "xmlbif", "-o", str(out)]) == 0
     var = [v for v in etree.parse(str(out)).iter("VARIABLE") if v.findtext("NAME") == "compressor_current"][0]
     assert [o.text for o in var.iter("OUTCOME")] == ["near rated", "low", "high"]
+
+
+def test_synthetic_three_outcome_variant_keeps_the_tree_and_every_total():
+    from troubleshoot.study.synthetic import synthetic_model
+
+    two = synthetic_model(300, seed=4)
+    three = synthetic_model(300, seed=4, three_outcome_share=1 / 3)
+    assert (two.gates, two.basic_events) == (three.gates, three.basic_events)
+    assert [c.id for c in two.checks] == [c.id for c in three.checks]
+    graded = [c for c in three.checks if len(c.outcomes) == 3]
+    assert 0.2 < len(graded) / len(three.checks) < 0.45
+    for old, new in zip(two.checks, three.checks):
+        assert new.false_alarm == pytest.approx(old.false_alarm, abs=1e-15)
+        for a, b in zip(old.causes, new.causes):
+            assert (a.target, b.detection) == (b.target, pytest.approx(a.detection, abs=1e-15))
+
+
+def test_bench_prints_the_three_outcome_step_beside_the_two_outcome_one(capsys):
+    from troubleshoot.cli import main
+
+    assert main(["bench", "--sizes", "100", "--no-references", "--three-outcomes", "0.33"]) == 0
+    assert "33% of the checks with three outcomes: step" in capsys.readouterr().out
+    assert main(["bench", "--three-outcomes", "1.5"]) == 2
+    assert "give a number from 0 to 1" in capsys.readouterr().err

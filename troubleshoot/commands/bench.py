@@ -1,4 +1,4 @@
-"""``troubleshoot bench [--json] [--sizes N ...] [--no-references]``: speed and memory figures."""
+"""``troubleshoot bench [--json] [--sizes N ...] [--no-references] [--three-outcomes SHARE]``: speed and memory figures."""
 
 from __future__ import annotations
 
@@ -34,12 +34,20 @@ def add_parser(subparsers, name):
     p.add_argument("--budget", type=float, default=REFERENCE_BUDGET_S, metavar="SECONDS",
                    help="time a reference library may take per job (default: %(default)s s)")
     p.add_argument("--seed", type=int, default=1, help="seed of the synthetic trees (default: 1)")
+    p.add_argument("--three-outcomes", type=float, default=0.0, metavar="SHARE",
+                   help="also time the step on the same trees with this share of the checks read as "
+                        "low / normal / high (e.g. 0.33), against the two-outcome trees")
     return p
 
 
 def run(args) -> int:
+    from troubleshoot.errors import InputError
     from troubleshoot.progress import ProgressDisplay
     from troubleshoot.study.benchmark import as_json, as_table, run_size
+
+    if not 0.0 <= args.three_outcomes <= 1.0:
+        raise InputError(f"--three-outcomes {args.three_outcomes:g} is not a share; give a number from 0 to 1, "
+                         "such as 0.33")
 
     results = []
     gave_up: set = set()
@@ -47,7 +55,8 @@ def run(args) -> int:
         for i, n in enumerate(args.sizes):
             progress.count(i, len(args.sizes))
             results.append(run_size(n, seed=args.seed, references=not args.no_references,
-                                    budget=args.budget, progress=progress.message, gave_up=gave_up))
+                                    budget=args.budget, progress=progress.message, gave_up=gave_up,
+                                    three_outcomes=args.three_outcomes))
         progress.count(len(args.sizes), len(args.sizes))
     if args.json:
         print(json.dumps(as_json(results), indent=2))

@@ -423,11 +423,11 @@ class _Builder:
 
     def gives(self, cid: str, elements: list, key: tuple, what: str) -> tuple[tuple[str, float], ...]:
         """(outcome, probability) pairs of <shows> or <false-alarm> elements."""
-        out = []
+        out: list[tuple[str, float]] = []
         for j, item in enumerate(elements):
             self.lines[key + (j,)] = item.sourceline
-            out.append((_clean_text(item.get("outcome")),
-                        self.number(item.get("probability"), item.sourceline, f"'{cid}' {what}", 0.0)))
+            p = self.number(item.get("probability"), item.sourceline, f"'{cid}' {what}", 0.0)
+            out.append((_clean_text(item.get("outcome")), 0.0 if p is None else p))
         return tuple(out)
 
     def check(self, element: etree._Element, symptom: bool) -> Check:

@@ -72,6 +72,13 @@ class SizeResult:
     pyagrum_infer_s: float | None
     touched_entries: int
     depth: int
+    #: With ``three_outcomes``: the step on the same tree with that share of
+    #: its checks given three outcomes, timed alternately with the two-outcome
+    #: step in the same run, and the ratio of the two medians.
+    three_outcome_share: float | None = None
+    step_two_outcomes_ms: float | None = None
+    step_three_outcomes_ms: float | None = None
+    three_outcome_step_ratio: float | None = None
 
 
 def _median_time(fn: Callable[[], object], repeats: int) -> float:
@@ -183,10 +190,40 @@ def _session_step_time(model, engine: Engine, findings: list[Finding], repeats: 
     return _median_time(step, max(3, repeats // 3))
 
 
+def three_outcome_steps(basic_events: int, seed: int, share: float, repeats: int,
+                        progress: Callable[[str], None] = lambda s: None) -> tuple[float, float]:
+    """Median seconds of a step (propagate + rank every check) on the two-outcome tree and on
+    the same tree with ``share`` of its checks given three outcomes, timed alternately.
+
+    The findings are those drawn for the two-outcome tree; an abnormal
+    outcome (index 1) reads "low" on a converted check, which is possible
+    wherever "abnormal" was.
+    """
+    from troubleshoot.advice.ranking import rank
+
+    two = synthetic_model(basic_events, seed=seed)
+    three = synthetic_model(basic_events, seed=seed, three_outcome_share=share)
+    progress(f"{basic_events} basic events: two against three outcomes")
+    engines = [Engine(two), Engine(three)]
+    findings = _findings(two, engines[0], seed)
+    done = {f.target for f in findings}
+    candidates = [c.id for c in two.checks if c.id not in done]
+    times: list[list[float]] = [[], []]
+    for engine in engines:
+        rank(engine.propagate(findings), candidates)  # warm the compiled plans
+    for _ in range(repeats):
+        for which, engine in enumerate(engines):  # alternate, so both see the same machine load
+            engine.forget()
+            t0 = time.perf_counter()
+            rank(engine.propagate(findings), candidates)
+            times[which].append(time.perf_counter() - t0)
+    return statistics.median(times[0]), statistics.median(times[1])
+
+
 def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats: int = 15,
              budget: float = REFERENCE_BUDGET_S, progress: Callable[[str], None] = lambda s: None,
-             gave_up: set | None = None) -> SizeResult:
-    """Measure one size.
+             gave_up: set | None = None, three_outcomes: float = 0.0) -> SizeResult:
+    """Measure one size; with ``three_outcomes`` > 0 also the step with that share of three-outcome checks.
 
     ``gave_up`` holds (library, job) pairs that did not finish at a smaller
     size of the same run: they are not tried again (they would not finish
@@ -262,6 +299,12 @@ def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats:
     def ratio(ref_s: float | None, ours: float) -> float | None:
         return None if ref_s is None or ours <= 0 else ref_s / ours
 
+    graded: dict = {}
+    if three_outcomes > 0:
+        two_s, three_s = three_outcome_steps(basic_events, seed, three_outcomes, repeats, progress)
+        graded = dict(three_outcome_share=three_outcomes, step_two_outcomes_ms=two_s * 1000,
+                      step_three_outcomes_ms=three_s * 1000, three_outcome_step_ratio=ratio(three_s, two_s))
+
     return SizeResult(
         basic_events=basic_events, gates=len(model.gates), checks=len(model.checks),
         compile_s=compile_s, propagate_ms=propagate_s * 1000, step_ms=step_s * 1000,
@@ -272,7 +315,7 @@ def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats:
         pgmpy_s=pgmpy_s, pyagrum_s=pyagrum_s, pgmpy_step_s=pgmpy_step_s,
         floor_ms=floor_s * 1000, floor_ratio=propagate_s / floor_s if floor_s > 0 else math.inf,
         pyagrum_infer_ratio=ratio(pyagrum_infer_s, propagate_s), pyagrum_infer_s=pyagrum_infer_s,
-        touched_entries=tree.touched_entries, depth=tree.depth,
+        touched_entries=tree.touched_entries, depth=tree.depth, **graded,
     )
 
 
@@ -301,6 +344,11 @@ def as_table(results: list[SizeResult], budget: float = REFERENCE_BUDGET_S) -> s
             f"{fmt_ratio(r.pgmpy_ratio):>12} {fmt_ratio(r.pyagrum_ratio):>12} "
             f"{fmt_ratio(r.pyagrum_infer_ratio):>13} {fmt_ratio(r.pgmpy_step_ratio):>12}"
         )
+    for r in results:
+        if r.three_outcome_step_ratio is not None:
+            lines.append(f"{r.basic_events:,} basic events, {r.three_outcome_share:.0%} of the checks with three "
+                         f"outcomes: step {r.step_three_outcomes_ms:.1f} ms against {r.step_two_outcomes_ms:.1f} ms "
+                         f"with two outcomes ({r.three_outcome_step_ratio:.2f}x, timed alternately)")
     lines.append("propagate: median of one propagation with every marginal; step: propagate + rank every check; "
                  "session: a whole action as the UI does it (step, then weighing the best 3 checks "
                  "against repairing now).")
