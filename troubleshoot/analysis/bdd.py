@@ -249,6 +249,11 @@ class Diagram(NodeStore):
             return TRUE
         if k > len(operands):
             return FALSE
+        if k in (1, len(operands)):  # an OR or an AND: n applies, not k times n
+            f = TRUE if k > 1 else FALSE
+            for g in operands:
+                f = self.and_(f, g) if k > 1 else self.or_(f, g)
+            return f
         at_least_j = [TRUE] + [FALSE] * k
         for i, f in enumerate(operands, start=1):
             for j in range(min(i, k), 0, -1):

@@ -375,6 +375,11 @@ class CompiledModel:
         if k > len(ins):
             return 0
         s = self.store
+        if k in (1, len(ins)):  # an OR or an AND: n applies, not k times n
+            f = 1 if k > 1 else 0
+            for g in ins:
+                f = s.and_(f, g) if k > 1 else s.or_(f, g)
+            return f
         at_least = [1] + [0] * k
         for i, f in enumerate(ins, start=1):
             for j in range(min(i, k), 0, -1):

@@ -255,7 +255,8 @@ _SYNTAX_REWRITES: list[tuple[re.Pattern[str], str]] = [
 
 def plain_syntax_message(exc: etree.XMLSyntaxError) -> str:
     """One plain sentence for an XML syntax error, saying what to fix."""
-    raw = (exc.msg or str(exc)).strip()
+    # libxml2 may append the offending source text on further lines: one line is kept.
+    raw = ((exc.msg or str(exc)).strip().splitlines() or [""])[0].strip()
     raw = re.sub(r",? line \d+, column \d+$", "", raw)
     for pattern, replacement in _SYNTAX_REWRITES:
         match = pattern.search(raw)
