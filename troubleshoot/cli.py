@@ -122,9 +122,9 @@ def _where(exc: BaseException) -> str:
     frames = traceback.extract_tb(exc.__traceback__)
     package = Path(__file__).resolve().parent
     ours = [f for f in frames if package in Path(f.filename).resolve().parents]
-    frame = (ours or frames or [None])[-1]
-    if frame is None:
+    if not (ours or frames):
         return "an unknown place"
+    frame = (ours or frames)[-1]
     return f"{Path(frame.filename).name}:{frame.lineno} in {frame.name}"
 
 

@@ -288,10 +288,11 @@ def describe(action: Action | dict) -> str:
         try:
             action = action_from_record(action)
         except ActionError:
-            return str(action.get("action", "?"))
-    if isinstance(action, (RecordFinding, CorrectFinding)):
-        prefix = "" if isinstance(action, RecordFinding) else "correct "
-        return f"{prefix or 'finding '}{action.check}={_outcome_text(action.outcome)}"
+            return str(action.get("action", "?")) if isinstance(action, dict) else "?"
+    if isinstance(action, RecordFinding):
+        return f"finding {action.check}={_outcome_text(action.outcome)}"
+    if isinstance(action, CorrectFinding):
+        return f"correct {action.check}={_outcome_text(action.outcome)}"
     if isinstance(action, (RetractFinding, SkipCheck, UnskipCheck)):
         return f"{action.kind} {action.check}"
     if isinstance(action, RecordRepair):

@@ -51,7 +51,7 @@ from typing import Any
 from troubleshoot.errors import LogError, SessionError, TroubleshootError
 from troubleshoot.files import open_input, read_fd
 from troubleshoot.model import Model
-from troubleshoot.session.actions import Action, ActionError, Resume, action_from_record, describe
+from troubleshoot.session.actions import Action, ActionError, Resume, action_from_record
 from troubleshoot.session.session import STATUSES, Session, SessionView, settings_for
 
 try:  # advisory lock so two processes never append to one log
@@ -135,11 +135,6 @@ def header_record(session: Session, version: int = LOG_FORMAT_VERSION) -> dict:
         "job": dict(getattr(session, "job", None) or {}),
         **snapshot(session.view),
     }
-
-
-def describe_action(action: Action | dict) -> str:
-    """An action in words (see :func:`troubleshoot.session.actions.describe`)."""
-    return describe(action)
 
 
 def encode_line(record: dict, seq: int, prev: str | None, version: int = LOG_FORMAT_VERSION) -> tuple[bytes, str | None]:
@@ -360,10 +355,6 @@ class LogLine:
     record: dict
     action: Action
 
-    # (number, record) unpacking, as the first readers of LogContents.actions used it
-    def __iter__(self):
-        return iter((self.number, self.record))
-
 
 @dataclass
 class LogContents:
@@ -542,7 +533,7 @@ def parse_log(data: bytes, path: str | os.PathLike) -> LogContents:
             if problem:
                 raise _damaged(path, 1, problem)
         else:
-            contents.actions.append(_action_line(path, number, record, position, version))
+            contents.actions.append(_action_line(path, number, record, position))
         offset += len(raw) + (1 if complete else 0)
         contents.needs_newline = not complete
         contents.last_seq = position
@@ -561,27 +552,27 @@ def _check_chain(path: Path, number: int, raw: bytes, record: dict, position: in
     digest = hashlib.sha256(raw[:-_HASH_TAIL_LENGTH]).hexdigest()
     if digest != record["hash"]:
         raise _damaged(path, number, "the line does not match its hash (a character was changed)")
-    seq = record.get("seq")
-    if not _is_count(seq):
-        raise _damaged(path, number, f"field 'seq' must be a whole number, not {seq!r}")
-    if seq != position:
-        raise _damaged(path, number, f"the sequence number is {seq}, where {position} follows line {number - 1} "
-                                     "(a line was deleted, duplicated or moved)")
+    _check_seq(path, number, record, position)
     if record.get("prev") != prev:
         raise _damaged(path, number, "the line does not follow the line before it (its 'prev' hash differs: "
                                      "a line was deleted, duplicated, moved or edited before it)")
     return digest
 
 
-def _action_line(path: Path, number: int, record: dict, position: int, version: int) -> LogLine:
-    if record.get("kind") != "action":
-        raise _damaged(path, number, "not an action line (its 'kind' is not \"action\")")
+def _check_seq(path: Path, number: int, record: dict, position: int) -> None:
+    """The line's ``seq`` is its position: 0 for the header, then 1, 2, ..."""
     seq = record.get("seq")
     if not _is_count(seq):
         raise _damaged(path, number, f"field 'seq' must be a whole number, not {seq!r}")
     if seq != position:
-        raise _damaged(path, number, f"the sequence number is {seq} where {position} was expected (a line was "
-                                     "deleted, duplicated or moved)")
+        raise _damaged(path, number, f"the sequence number is {seq}, where {position} follows line {number - 1} "
+                                     "(a line was deleted, duplicated or moved)")
+
+
+def _action_line(path: Path, number: int, record: dict, position: int) -> LogLine:
+    if record.get("kind") != "action":
+        raise _damaged(path, number, "not an action line (its 'kind' is not \"action\")")
+    _check_seq(path, number, record, position)
     if not _is_time(record.get("time")):
         raise _damaged(path, number, f"field 'time' must be an ISO 8601 time, not {record.get('time')!r}")
     try:

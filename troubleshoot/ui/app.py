@@ -206,6 +206,23 @@ class TroubleshootApp(App[int]):
             return
         self.perform("recording the symptoms", record_all, then=opened)
 
+    def acknowledge_caution(self, target: str) -> bool:
+        """Log that the technician acknowledged the caution of a check (or of the verification).
+
+        Done at once, not in a worker: it changes no finding and needs no
+        propagation, and the outcome typed right after it must not find the
+        session busy.
+        """
+        if self.busy:
+            self.say("Still working on the last action; acknowledge again in a moment.", "warning")
+            return False
+        try:
+            self.session.acknowledge_caution(target)
+        except TroubleshootError as exc:
+            self.say(f"Refused (acknowledging the caution): {' '.join(exc.lines())}", "error")
+            return False
+        return True
+
     def open_verification(self) -> None:
         """Open the verification the last repair asks for (its named check, or the top event)."""
         state = self.state
@@ -220,21 +237,11 @@ class TroubleshootApp(App[int]):
             if not result or result[0] != "outcome":
                 return
             index = result[2]
-            self.log_acknowledgement(result[1])
             message = None if index == 0 else "The fault persists: the diagnosis goes on with the next check."
             self.perform("recording the verification", lambda: self.session.record_verification(index),
                          done=message)
 
         self.push_screen(CheckScreen(card), verified)
-
-    def log_acknowledgement(self, card) -> None:
-        """Log that the card's safety caution was acknowledged (once per card, before its outcome)."""
-        if card.caution is None:
-            return
-        try:
-            self.session.acknowledge_caution(card.target)
-        except TroubleshootError as exc:
-            self.say("The acknowledgement was not logged: " + " ".join(exc.lines()), "error")
 
     # ------------------------------------------------------------------ the end
 

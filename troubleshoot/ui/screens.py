@@ -282,7 +282,6 @@ class MainScreen(Screen):
         verb, card = result[0], result[1]
         if verb == "outcome":
             index = result[2]
-            self.app.log_acknowledgement(card)
             self.app.perform(f"recording {card.outcomes[index]!r}",
                              lambda: self.app.session.record_finding(card.target, index))
         elif verb == "skip":
@@ -512,6 +511,9 @@ class CheckScreen(ModalScreen):
         return True
 
     def action_acknowledge(self) -> None:
+        if not self.acknowledged and self.card.caution:
+            if not self.app.acknowledge_caution(self.card.target):  # logged, for the supervisor's record
+                return
         self.acknowledged = True
         self._show_ack()
 
