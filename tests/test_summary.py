@@ -51,7 +51,7 @@ def test_summary_lists_correction_undo_crash_resume_and_the_confirmed_repair(tmp
     assert f"summary: {summary_path(log)}" in capsys.readouterr().err
 
     text = summary_path(log).read_text(encoding="utf-8")
-    records = [r for _, r in read_log(log).actions]
+    records = [line.record for line in read_log(log).actions]
     kinds = [r["action"]["action"] for r in records]
     assert kinds == ["finding", "correct", "finding", "undo", "acknowledge", "skip", "resume", "repair", "verify"]
     # Every action in the order of the log, each with its time.

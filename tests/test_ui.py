@@ -227,7 +227,7 @@ def test_whole_session_to_confirmed_repair(tmp_path):
             assert app.session.actions[actions_before].check == screen.card.target
 
             await diagnose_to_the_end(app, pilot, technician)
-            assert isinstance(app.screen, SummaryScreen)
+            assert isinstance(app.screen, SummaryScreen), app.messages
             assert fault in app.session.repairs
             shown = screen_text(app)
             assert "Diagnosis summary" in shown

@@ -338,9 +338,9 @@ def clean_job(job: dict | None) -> dict:
 def job_of(contents: LogContents) -> dict:
     """The job fields of a log: its header's, updated by any ``job`` line (typed after the start)."""
     job = clean_job(contents.header.get("job"))
-    for _, record in contents.actions:
-        if record["action"].get("action") == "job":
-            job.update(clean_job(record["action"]))
+    for line in contents.actions:
+        if line.record["action"].get("action") == "job":
+            job.update(clean_job(line.record["action"]))
     return job
 
 

@@ -332,5 +332,5 @@ def write_summary(session, ended: _dt.datetime) -> Path | None:
     contents = read_log(path)
     header = contents.header
     text = summary_markdown(session.model, session.state, path, parse_time(header.get("time")), ended,
-                            records=[record for _, record in contents.actions], job=job_of(contents))
+                            records=[line.record for line in contents.actions], job=job_of(contents))
     return write_output(summary_path(path), text.encode("utf-8"), "session summary")

@@ -165,7 +165,7 @@ class TroubleshootApp(App[int]):
         if done:
             self.say(done)
         if then is not None:
-            then()
+            self.call_after_refresh(then)  # after a dialog dismissed just before is gone
         if self.state is not None and self.state.status == "confirmed" and before != "confirmed":
             self.show_summary()
 
@@ -254,6 +254,10 @@ class TroubleshootApp(App[int]):
         except (OSError, TroubleshootError) as exc:
             self.say(f"Cannot write the summary beside {self.log_path}: {exc}", "error")
             return None
+        except Exception as exc:  # never lose the end of a session to a fault in the summary
+            self.say(f"Cannot write the summary beside {self.log_path}: unexpected "
+                     f"{exc.__class__.__name__}: {exc}", "error")
+            return None
         self.summary_written = path
         return path
 
@@ -264,7 +268,9 @@ class TroubleshootApp(App[int]):
         else:
             text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
                                     _dt.datetime.now(_dt.UTC), job=self.session.job)
-        self.push_screen(SummaryScreen(text))
+        # After the next refresh: a dialog dismissed just before (the verification) is gone by then,
+        # so its pop never takes this screen off instead.
+        self.call_after_refresh(self.push_screen, SummaryScreen(text))
 
     def action_quit_session(self) -> None:
         """Quit: every action is already in the log; the summary is brought up to date.
