@@ -8,6 +8,7 @@ as results. No screen computes a probability.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, cast
 
 from rich.text import Text
 from textual.app import ComposeResult
@@ -33,6 +34,9 @@ from troubleshoot.ui.widgets import (
 
 #: Below this chance a repair asks for confirmation while another suspect stands isolated.
 LOW_REPAIR_P = 0.10
+
+if TYPE_CHECKING:  # the app imports this module to build its screens
+    from troubleshoot.ui.app import TroubleshootApp
 
 #: Shown once at the start of every sitting (the start screen, or a notice when a session is resumed).
 SAFETY_NOTICE = (
@@ -77,6 +81,11 @@ class StartScreen(Screen):
         Binding("q", "app.quit_session", "Quit"),
     ]
 
+    @property
+    def tsapp(self) -> TroubleshootApp:
+        """The running application, typed as ours: its session, its state and its actions."""
+        return cast("TroubleshootApp", self.app)
+
     def __init__(self, model) -> None:
         super().__init__(id="start")
         self.model = model
@@ -92,7 +101,7 @@ class StartScreen(Screen):
             table.border_title = "Symptoms: mark each one y seen, n not seen, - not looked at"
             yield table
             with Horizontal(id="job"):
-                job = getattr(self.app.session, "job", None) or {}
+                job = getattr(self.tsapp.session, "job", None) or {}
                 for key, placeholder in JOB_INPUTS:
                     yield Input(value=job.get(key, ""), placeholder=placeholder, id=f"job-{key}",
                                 classes="job-field")
@@ -143,7 +152,7 @@ class StartScreen(Screen):
         self.query_one("#symptoms", DataTable).focus()
 
     def action_begin(self) -> None:
-        self.app.begin_diagnosis(self.observations(), self.job())
+        self.tsapp.begin_diagnosis(self.observations(), self.job())
 
 
 class MainScreen(Screen):
@@ -165,6 +174,11 @@ class MainScreen(Screen):
         Binding("question_mark", "help", "Help", key_display="?"),
         Binding("q", "app.quit_session", "Quit"),
     ]
+
+    @property
+    def tsapp(self) -> TroubleshootApp:
+        """The running application, typed as ours: its session, its state and its actions."""
+        return cast("TroubleshootApp", self.app)
 
     def __init__(self) -> None:
         super().__init__(id="main")
@@ -207,13 +221,13 @@ class MainScreen(Screen):
         self.refresh_bindings()
 
     def show_busy(self) -> None:
-        self.query_one("#status", StatusBar).show(self.app.complaint, self.app.state, self.app.busy,
-                                                  self.app.show_figures)
-        self.query_one("#checks", ChecksTable).set_class(self.app.busy, "-busy")
+        self.query_one("#status", StatusBar).show(self.tsapp.complaint, self.tsapp.state, self.tsapp.busy,
+                                                  self.tsapp.show_figures)
+        self.query_one("#checks", ChecksTable).set_class(self.tsapp.busy, "-busy")
 
     def _show_detail(self) -> None:
         """The whole name of the check under the cursor, and its outcomes (or why it was skipped)."""
-        state = self.app.state
+        state = self.tsapp.state
         detail = self.query_one("#check-detail", Static)
         table = self.query_one("#checks", ChecksTable)
         check_id = table.highlighted_check()
@@ -223,7 +237,7 @@ class MainScreen(Screen):
         if check_id is None:
             detail.update("No check is left to rank.")
             return
-        model = self.app.session.model
+        model = self.tsapp.session.model
         if check_id in table.skipped:
             check = model.check_by_id[check_id]
             detail.update(Text(f"{check.label}\n↷ skipped: {table.skipped[check_id]} — key k brings it back"))
@@ -246,21 +260,21 @@ class MainScreen(Screen):
         self.action_open_check()
 
     def check_action(self, action: str, parameters) -> bool | None:
-        state = self.app.state
+        state = self.tsapp.state
         # The verify key is shown only while a repair awaits its verification.
         if action == "verify":
             return state is not None and state.status == "awaiting-verification"
         return True
 
     def _highlighted_row(self):
-        state = self.app.state
+        state = self.tsapp.state
         table = self.query_one("#checks", ChecksTable)
         check_id = table.highlighted_check()
         if state is None or check_id is None:
-            self.app.say("No check is left to open.")
+            self.tsapp.say("No check is left to open.")
             return None
         if check_id in table.skipped:
-            self.app.say("This check is skipped: key k brings it back first.")
+            self.tsapp.say("This check is skipped: key k brings it back first.")
             return None
         return next(r for r in state.ranking if r.check == check_id)
 
@@ -268,13 +282,13 @@ class MainScreen(Screen):
         row = self._highlighted_row()
         if row is None:
             return
-        state = self.app.state
-        model = self.app.session.model
+        state = self.tsapp.state
+        model = self.tsapp.session.model
         check = model.check_by_id[row.check]
         why = state.why if state.why is not None and state.why.check == row.check else None
         card = CheckCard(row.check, row.label, row.cost, model.cost_unit, tuple(row.outcomes),
                          check.instructions, row.caution, tuple(row.p_outcomes), row.bits, why=why)
-        self.app.push_screen(CheckScreen(card, self.app.show_figures), self._check_done)
+        self.tsapp.push_screen(CheckScreen(card, self.tsapp.show_figures), self._check_done)
 
     def _check_done(self, result) -> None:
         if not result:
@@ -282,8 +296,8 @@ class MainScreen(Screen):
         verb, card = result[0], result[1]
         if verb == "outcome":
             index = result[2]
-            self.app.perform(f"recording {card.outcomes[index]!r}",
-                             lambda: self.app.session.record_finding(card.target, index))
+            self.tsapp.perform(f"recording {card.outcomes[index]!r}",
+                             lambda: self.tsapp.session.record_finding(card.target, index))
         elif verb == "skip":
             self._ask_skip_reason(card.target, card.label)
 
@@ -296,28 +310,28 @@ class MainScreen(Screen):
         table = self.query_one("#checks", ChecksTable)
         check_id = table.highlighted_check()
         if check_id is None or check_id not in table.skipped:
-            self.app.say("Move to a skipped check (listed dimmed at the end) to bring it back.")
+            self.tsapp.say("Move to a skipped check (listed dimmed at the end) to bring it back.")
             return
-        label = self.app.session.model.label_of(check_id)
-        self.app.perform("bringing the check back", lambda: self.app.session.unskip_check(check_id),
+        label = self.tsapp.session.model.label_of(check_id)
+        self.tsapp.perform("bringing the check back", lambda: self.tsapp.session.unskip_check(check_id),
                          done=f"Brought back: {label}")
 
     def action_figures(self) -> None:
-        self.app.show_figures = not self.app.show_figures
+        self.tsapp.show_figures = not self.tsapp.show_figures
         self.show_state(keep_cursor=True)
 
     def _ask_skip_reason(self, check_id: str, label: str) -> None:
         def skip(reason: str | None) -> None:
             if reason is not None:
-                self.app.perform("skipping the check", lambda: self.app.session.skip_check(check_id, reason))
+                self.tsapp.perform("skipping the check", lambda: self.tsapp.session.skip_check(check_id, reason))
 
-        self.app.push_screen(PromptScreen(f"Skip: {label}", "Why can this check not be done now?"), skip)
+        self.tsapp.push_screen(PromptScreen(f"Skip: {label}", "Why can this check not be done now?"), skip)
 
     def action_undo(self) -> None:
-        self.app.perform("undoing the last action", self.app.session.undo, done="Undone: the last action.")
+        self.tsapp.perform("undoing the last action", self.tsapp.session.undo, done="Undone: the last action.")
 
     def action_retract(self) -> None:
-        state = self.app.state
+        state = self.tsapp.state
         if state is None:
             return
         options = []
@@ -327,7 +341,7 @@ class MainScreen(Screen):
             when = f" (after {view.epoch} repair(s))" if view.epoch else ""
             options.append(((view.target, view.epoch), f"{view.label} — {view.outcome}{when}"))
         if not options:
-            self.app.say("No finding to retract or correct yet: the complaint starts the session.")
+            self.tsapp.say("No finding to retract or correct yet: the complaint starts the session.")
             return
 
         def chosen(result) -> None:
@@ -335,28 +349,28 @@ class MainScreen(Screen):
                 return
             verb, (target, epoch) = result
             if verb == "retract":
-                self.app.perform("retracting the finding",
-                                 lambda: self.app.session.retract_finding(target, epoch))
+                self.tsapp.perform("retracting the finding",
+                                 lambda: self.tsapp.session.retract_finding(target, epoch))
                 return
             view = next(v for v in state.findings if v.target == target and v.epoch == epoch)
             outcomes = self._outcomes_of(view)
             others = [(i, name) for i, name in enumerate(outcomes) if i != view.outcome_index]
             if len(others) == 1:
-                self.app.perform("correcting the finding",
-                                 lambda: self.app.session.correct_finding(target, others[0][0], epoch))
+                self.tsapp.perform("correcting the finding",
+                                 lambda: self.tsapp.session.correct_finding(target, others[0][0], epoch))
                 return
 
             def corrected(result) -> None:
                 if result:
-                    self.app.perform("correcting the finding",
-                                     lambda: self.app.session.correct_finding(target, result[1], epoch))
+                    self.tsapp.perform("correcting the finding",
+                                     lambda: self.tsapp.session.correct_finding(target, result[1], epoch))
 
-            self.app.push_screen(ChoiceScreen(f"Correct: {view.label} — it read", others, "Record"), corrected)
+            self.tsapp.push_screen(ChoiceScreen(f"Correct: {view.label} — it read", others, "Record"), corrected)
 
-        self.app.push_screen(FindingChoiceScreen(options), chosen)
+        self.tsapp.push_screen(FindingChoiceScreen(options), chosen)
 
     def _outcomes_of(self, view) -> tuple[str, ...]:
-        model = self.app.session.model
+        model = self.tsapp.session.model
         if view.target in model.check_by_id:
             return tuple(model.check_by_id[view.target].outcomes)
         if model.verification is not None:
@@ -364,10 +378,10 @@ class MainScreen(Screen):
         return ("works", "still fails")
 
     def action_repair(self) -> None:
-        state = self.app.state
+        state = self.tsapp.state
         if state is None:
             return
-        model = self.app.session.model
+        model = self.tsapp.session.model
         unit = model.cost_unit
         p_of = {s.id: s.p for s in state.suspects}
         entries = []  # (event id, repair label, part label, cost, p)
@@ -382,7 +396,7 @@ class MainScreen(Screen):
                 continue
             entries.append((event.id, event.repair.label, event.label, event.repair.cost, p_of.get(event.id, 0.0)))
         if not entries:
-            self.app.say("The model lists no repair left to record.")
+            self.tsapp.say("The model lists no repair left to record.")
             return
         counts: dict[str, int] = {}
         for _, repair_label, _, _, _ in entries:
@@ -394,8 +408,8 @@ class MainScreen(Screen):
             options.append((event_id, f"{what} — {cost_text(cost, unit)} · chance {percent(p)}"))
 
         def record(event_id: str) -> None:
-            self.app.perform("recording the repair", lambda: self.app.session.record_repair(event_id),
-                             then=self.app.open_verification)
+            self.tsapp.perform("recording the repair", lambda: self.tsapp.session.record_repair(event_id),
+                             then=self.tsapp.open_verification)
 
         def chosen(result) -> None:
             if not result:
@@ -411,26 +425,26 @@ class MainScreen(Screen):
                     if yes:
                         record(event_id)
 
-                self.app.push_screen(ConfirmScreen("Repair a part that is probably not at fault?", question),
+                self.tsapp.push_screen(ConfirmScreen("Repair a part that is probably not at fault?", question),
                                      confirmed)
                 return
             record(event_id)
 
-        self.app.push_screen(ChoiceScreen("Record a repair (repair order first)", options, "Record"), chosen)
+        self.tsapp.push_screen(ChoiceScreen("Record a repair (repair order first)", options, "Record"), chosen)
 
     def action_verify(self) -> None:
-        self.app.open_verification()
+        self.tsapp.open_verification()
 
     def action_note(self) -> None:
         def noted(text: str | None) -> None:
             if text is not None:
-                self.app.perform("adding the note", lambda: self.app.session.add_note(text),
+                self.tsapp.perform("adding the note", lambda: self.tsapp.session.add_note(text),
                                  done="Note added to the log.")
 
-        self.app.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
+        self.tsapp.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
 
     def action_help(self) -> None:
-        self.app.push_screen(HelpScreen(self.app.session.engine.name))
+        self.tsapp.push_screen(HelpScreen(self.tsapp.session.engine.name))
 
 
 class CheckScreen(ModalScreen):
@@ -451,6 +465,11 @@ class CheckScreen(ModalScreen):
     #: Footer columns the outcome keys share (80 less the other keys of this
     #: screen); each name is cut to its share, the card lists every name whole.
     FOOTER_OUTCOME_COLUMNS = 45
+
+    @property
+    def tsapp(self) -> TroubleshootApp:
+        """The running application, typed as ours: its session, its state and its actions."""
+        return cast("TroubleshootApp", self.app)
 
     def __init__(self, card: CheckCard, figures: bool = False) -> None:
         super().__init__(id="check-screen")
@@ -514,7 +533,7 @@ class CheckScreen(ModalScreen):
 
     def action_acknowledge(self) -> None:
         if not self.acknowledged and self.card.caution:
-            if not self.app.acknowledge_caution(self.card.target):  # logged, for the supervisor's record
+            if not self.tsapp.acknowledge_caution(self.card.target):  # logged, for the supervisor's record
                 return
         self.acknowledged = True
         self._show_ack()
@@ -524,7 +543,7 @@ class CheckScreen(ModalScreen):
             self.query_one("#check-message", Static).update(
                 Text("✘ Refused: acknowledge the safety caution first (press a), then enter the outcome.",
                      style="bold"))
-            self.app.bell()
+            self.tsapp.bell()
             return
         self.dismiss(("outcome", self.card, index))
 
