@@ -12,7 +12,7 @@ order, against repairing in order at once (Heckerman, Breese & Rommelse
 1995). A line in plain words says the same for the screen.
 
 Pure: reads an :class:`~troubleshoot.engine.inference.Engine` and a
-:class:`~troubleshoot.engine.inference.Posterior`, no I/O, no clock.
+:class:`~troubleshoot.engine.inference.AnyPosterior`, no I/O, no clock.
 
 References
 ----------
@@ -28,7 +28,7 @@ from collections.abc import Sequence
 
 from troubleshoot.advice.diagnosis import Suspect, suspects
 from troubleshoot.advice.ranking import RankRow
-from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.engine.inference import AnyPosterior, Engine, Finding
 from troubleshoot.errors import ImpossibleFindings
 
 #: At least this many suspects are listed (when the model has that many not repaired).
@@ -96,10 +96,10 @@ class Why:
                 "cost_check_first": self.cost_check_first, "cost_repair_now": self.cost_repair_now}
 
 
-def outcome_posteriors(engine: Engine, posterior: Posterior, check_id: str,
-                       n_outcomes: int) -> list[Posterior | None]:
+def outcome_posteriors(engine: Engine, posterior: AnyPosterior, check_id: str,
+                       n_outcomes: int) -> list[AnyPosterior | None]:
     """The posterior after each outcome of a check done now (None where the outcome is impossible)."""
-    out: list[Posterior | None] = []
+    out: list[AnyPosterior | None] = []
     findings = tuple(posterior.findings)
     for outcome in range(n_outcomes):
         try:
@@ -110,7 +110,7 @@ def outcome_posteriors(engine: Engine, posterior: Posterior, check_id: str,
     return out
 
 
-def suspect_shifts(engine: Engine, posterior: Posterior, row: RankRow,
+def suspect_shifts(engine: Engine, posterior: AnyPosterior, row: RankRow,
                    now: Sequence[Suspect] | None = None) -> tuple[SuspectShift, ...]:
     """Every unrepaired suspect with its probability now and after each outcome of ``row``'s check.
 
@@ -172,14 +172,14 @@ def check_reason(row: RankRow, shifts: Sequence[SuspectShift], cost_check_first:
     return f"{cost} to {target}{tail}"
 
 
-def explain_check(engine: Engine, posterior: Posterior, row: RankRow, cost_check_first: float,
+def explain_check(engine: Engine, posterior: AnyPosterior, row: RankRow, cost_check_first: float,
                   cost_repair_now: float) -> Why:
     """Why ``row``'s check is recommended: the suspects it separates and the costs weighed.
 
     Parameters
     ----------
     engine : Engine
-    posterior : Posterior
+    posterior : AnyPosterior
         The findings and repairs so far.
     row : RankRow
         The recommended check's ranking row.

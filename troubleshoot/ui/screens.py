@@ -14,6 +14,7 @@ from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.coordinate import Coordinate
 from textual.screen import ModalScreen, Screen
 from textual.widgets import DataTable, Footer, Input, Markdown, OptionList, Static
 from textual.widgets.option_list import Option
@@ -35,7 +36,8 @@ from troubleshoot.ui.widgets import (
 #: Below this chance a repair asks for confirmation while another suspect stands isolated.
 LOW_REPAIR_P = 0.10
 
-if TYPE_CHECKING:  # the app imports this module to build its screens
+if TYPE_CHECKING:  # the app imports this module to build its screens; the UI never imports the core
+    from troubleshoot.advice.explain import Why
     from troubleshoot.ui.app import TroubleshootApp
 
 #: Shown once at the start of every sitting (the start screen, or a notice when a session is resumed).
@@ -67,7 +69,7 @@ class CheckCard:
     p_outcomes: tuple[float, ...] | None = None
     bits: float | None = None
     verification: bool = False
-    why: object | None = None  # the session's Why, when this is the recommended check
+    why: Why | None = None  # the session's Why, when this is the recommended check
 
 
 class StartScreen(Screen):
@@ -97,7 +99,7 @@ class StartScreen(Screen):
             yield Static(Text(f"troubleshoot — {model.name}", style="bold"), id="start-title")
             yield Static(Text(f"Complaint: {model.top_label or model.label_of(model.top)}"), id="complaint")
             yield Static(Text(SAFETY_NOTICE), id="safety")
-            table = DataTable(id="symptoms", cursor_type="row", zebra_stripes=True)
+            table: DataTable[str] = DataTable(id="symptoms", cursor_type="row", zebra_stripes=True)
             table.border_title = "Symptoms: mark each one y seen, n not seen, - not looked at"
             yield table
             with Horizontal(id="job"):
@@ -128,9 +130,11 @@ class StartScreen(Screen):
         table = self.query_one("#symptoms", DataTable)
         if table.row_count == 0:
             return
-        row_key, _ = table.coordinate_to_cell_key((table.cursor_row, 0))
-        self.marks[row_key.value] = mark
-        table.update_cell(row_key, "mark", self._mark_text(row_key.value))
+        row_key, _ = table.coordinate_to_cell_key(Coordinate(table.cursor_row, 0))
+        symptom_id = row_key.value
+        assert symptom_id is not None, "every row is added with its symptom id as key"
+        self.marks[symptom_id] = mark
+        table.update_cell(row_key, "mark", self._mark_text(symptom_id))
         if table.cursor_row < table.row_count - 1:
             table.move_cursor(row=table.cursor_row + 1)
 
@@ -207,7 +211,7 @@ class MainScreen(Screen):
 
     def show_state(self, keep_cursor: bool = False) -> None:
         """Render the app's latest session state (nothing is computed here)."""
-        app = self.app
+        app = self.tsapp
         state = app.state
         self.query_one("#status", StatusBar).show(app.complaint, state, app.busy, app.show_figures)
         if state is None:
@@ -285,7 +289,7 @@ class MainScreen(Screen):
         state = self.tsapp.state
         model = self.tsapp.session.model
         check = model.check_by_id[row.check]
-        why = state.why if state.why is not None and state.why.check == row.check else None
+        why = state.why if state is not None and state.why is not None and state.why.check == row.check else None
         card = CheckCard(row.check, row.label, row.cost, model.cost_unit, tuple(row.outcomes),
                          check.instructions, row.caution, tuple(row.p_outcomes), row.bits, why=why)
         self.tsapp.push_screen(CheckScreen(card, self.tsapp.show_figures), self._check_done)
@@ -562,6 +566,7 @@ class CheckScreen(ModalScreen):
 def why_card_text(card: CheckCard) -> str:
     """Why this check: the reason, then each suspect it separates, its chance now and after each outcome."""
     why = card.why
+    assert why is not None, "only the recommended check's card says why"
     lines = [f"Why: {why.text}", "Suspects it separates (chance now → after each outcome):"]
     for s in why.suspects:
         after = " · ".join(f"{name}: {percent(p) if p is not None else 'impossible'}" for name, p in s.p_if)
@@ -643,7 +648,7 @@ class ChoiceScreen(ModalScreen):
     """A list to choose one entry from; Enter takes it, Escape goes back."""
 
     BINDINGS = [Binding("escape", "cancel", "Back", key_display="esc")]
-    LIST = RecordList
+    LIST: type[OptionList] = RecordList
 
     def __init__(self, title: str, options: list[tuple[object, str]], verb: str = "take") -> None:
         super().__init__(classes="choice-screen")
