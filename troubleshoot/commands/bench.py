@@ -20,6 +20,9 @@ def add_parser(subparsers, name):
     p.add_argument("--budget", type=float, default=REFERENCE_BUDGET_S, metavar="SECONDS",
                    help="time a reference library may take per job (default: %(default)s s)")
     p.add_argument("--seed", type=int, default=1, help="seed of the synthetic trees (default: 1)")
+    p.add_argument("--hard-sizes", type=int, nargs="*", default=None, metavar="N",
+                   help="basic events of the hard trees (shared supports, wide join trees) timed per engine "
+                        "(default: 300 1000 2000; give none to skip)")
     return p
 
 
@@ -34,8 +37,20 @@ def run(args) -> int:
             progress.count(i - 1, len(args.sizes))
             results.append(run_size(n, seed=args.seed, references=not args.no_references,
                                     budget=args.budget, progress=progress.message))
+    from troubleshoot.study.hardbench import HARD_SIZES, hard_json, hard_table, run_hard
+
+    hard_sizes = HARD_SIZES if args.hard_sizes is None else args.hard_sizes
+    hard = []
+    with ProgressDisplay("bench: hard trees", delay=0.0) as progress:
+        for n in hard_sizes:
+            hard.append(run_hard(n, seed=args.seed, progress=progress.message))
     if args.json:
-        print(json.dumps(as_json(results), indent=2))
+        doc = as_json(results)
+        doc["hard_trees"] = hard_json(hard)
+        print(json.dumps(doc, indent=2))
     else:
         print(as_table(results, args.budget))
+        if hard:
+            print()
+            print(hard_table(hard))
     return 0
