@@ -12,13 +12,20 @@ Semantics it encodes (the contract the engine must meet):
   unlisted causes also reads its unlisted-cause root;
 - a finding made after the j-th repair (epoch j) sees the equipment with the
   first j repaired roots working, all other roots as they were;
-- a check's abnormal outcome has probability
-  1 - (1 - false_alarm) * prod over causes present (1 - detection);
+- a check (faulttrees/FORMAT.md, "checks with more than two outcomes"):
+  each present cause independently produces one abnormal outcome with the
+  probability it gives for it, or nothing; the false alarm does the same
+  whatever the causes; the check shows, of the outcomes produced, the one
+  listed last, and the normal outcome when none is produced. With two
+  outcomes that is P(abnormal) = 1 - (1 - false_alarm) * prod over causes
+  present (1 - detection). Enumerated here over every combination of what
+  each source produces, never through cumulative probabilities;
 - a finding on an event or gate id is an exact observation (0 ok, 1 failed).
 """
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import numpy as np
@@ -74,12 +81,35 @@ def likelihood(model: Model, values_by_epoch: list[dict], finding) -> np.ndarray
     """P(finding | root state) for each state row."""
     value = values_by_epoch[finding.epoch]
     if finding.target in model.check_by_id:
-        check = model.check_by_id[finding.target]
-        p_normal = np.full(len(next(iter(value.values()))), 1.0 - check.false_alarm)
-        for cause in check.causes:
-            p_normal = p_normal * np.where(value[cause.target], 1.0 - cause.detection, 1.0)
-        return p_normal if finding.outcome == 0 else 1.0 - p_normal
+        return outcome_table(model.check_by_id[finding.target], value)[:, finding.outcome]
     return (value[finding.target] == bool(finding.outcome)).astype(float)
+
+
+def _produces(check, pairs, total) -> list[tuple[int, float]]:
+    """(outcome index, probability) of what one source produces; index 0 is "nothing"."""
+    if pairs:
+        out = [(check.outcomes.index(name), p) for name, p in pairs]
+    else:  # a two-outcome check with one number
+        out = [(1, total)]
+    return [(0, 1.0 - sum(p for _, p in out))] + out
+
+
+def outcome_table(check, value: dict) -> np.ndarray:
+    """P(outcome | root state), shape (rows, K), by enumerating what every source produces."""
+    rows = len(next(iter(value.values())))
+    sources = [(_produces(check, check.leak, check.false_alarm), np.ones(rows, bool))]
+    sources += [(_produces(check, c.shows, c.detection), value[c.target]) for c in check.causes]
+    table = np.zeros((rows, len(check.outcomes)))
+    for combo in itertools.product(*(options for options, _ in sources)):
+        p = np.ones(rows)
+        shown = np.zeros(rows, dtype=int)
+        for (index, q), (_, present) in zip(combo, sources):
+            # An absent cause produces nothing, surely.
+            p = p * np.where(present, q, 1.0 if index == 0 else 0.0)
+            # Outcomes are listed normal first, then weakest to strongest: the largest index shows.
+            shown = np.maximum(shown, np.where(present, index, 0))
+        np.add.at(table, (np.arange(rows), shown), p)
+    return table
 
 
 def posterior(model: Model, findings, repairs=()):
@@ -128,17 +158,27 @@ def check_information_bits(model: Model, findings, repairs, check_id: str) -> fl
 
     post = posterior(model, findings, repairs)
     joint = post["joint"]
-    f = SimpleNamespace(target=check_id, outcome=1, epoch=len(repairs))
-    p_abn = likelihood(model, post["values"], f)
-    h_t_given_f = float(np.sum(joint * _h2(p_abn)))
-    p_t = float(np.sum(joint * p_abn))
-    return float(_h2(np.array([p_t]))[0]) - h_t_given_f
+    table = np.stack([likelihood(model, post["values"], SimpleNamespace(target=check_id, outcome=o,
+                                                                         epoch=len(repairs)))
+                      for o in range(len(model.check_by_id[check_id].outcomes))], axis=1)
+    # I(F;T) = H(T) - H(T|F) (Cover & Thomas 2006), over every outcome.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        h_rows = -np.where(table > 0, table * np.log2(np.where(table > 0, table, 1.0)), 0.0).sum(axis=1)
+    h_t_given_f = float(joint @ h_rows)
+    return entropy_bits(joint @ table) - h_t_given_f
 
 
-def _h2(p: np.ndarray) -> np.ndarray:
-    p = np.clip(p, 0.0, 1.0)
-    out = np.zeros_like(p, dtype=float)
-    m = (p > 0) & (p < 1)
-    q = p[m]
-    out[m] = -(q * np.log2(q) + (1 - q) * np.log2(1 - q))
-    return out
+def noise_free_outcome(check, present) -> int:
+    """The outcome index a check reads when every present cause shows its most likely reading.
+
+    ``present(target)`` says whether a cause is present. Each present cause
+    gives its most likely abnormal outcome (the later listed on a tie); of
+    those, the check reads the one listed last (faulttrees/FORMAT.md); none,
+    the normal outcome (index 0).
+    """
+    shown = 0
+    for cause in check.causes:
+        if present(cause.target):
+            gives = [(p, check.outcomes.index(name)) for name, p in cause.shows] or [(cause.detection, 1)]
+            shown = max(shown, max(gives)[1])
+    return shown

@@ -20,6 +20,7 @@ from pathlib import Path
 import pytest
 from rich.console import Console
 
+import bruteforce as bf
 from troubleshoot.session.summary import summary_markdown, summary_path
 from troubleshoot.ui.app import TroubleshootApp
 from troubleshoot.ui.screens import (
@@ -110,8 +111,7 @@ class Technician:
         present = failed_nodes(self.model, failed)
         if check_id == self.model.top:
             return 1 if self.model.top in present else 0
-        check = self.model.check_by_id[check_id]
-        return 1 if any(c.target in present for c in check.causes) else 0
+        return bf.noise_free_outcome(self.model.check_by_id[check_id], lambda t: t in present)
 
 
 def new_app(tmp_path, demo="rooftop", name="session.jsonl", **kwargs):
@@ -258,9 +258,16 @@ def test_second_demo_checks_repair_and_verification(tmp_path):
             await pilot.pause()
             await pilot.press("enter")
             await settle(app, pilot)
-            screen = app.screen
-            assert isinstance(screen, CheckScreen) and screen.card.verification
-            await enter_outcome(app, pilot, technician.outcome(screen.card.target, app.state.repairs))
+            # The repair's own check, then (when it reads normal) the unit itself.
+            for _ in range(2):
+                if app.state.status != "awaiting-verification":
+                    break
+                if not isinstance(app.screen, CheckScreen):
+                    await pilot.press("v")
+                    await settle(app, pilot)
+                screen = app.screen
+                assert isinstance(screen, CheckScreen) and screen.card.verification
+                await enter_outcome(app, pilot, technician.outcome(screen.card.target, app.state.repairs))
             assert app.state.status != "awaiting-verification"
             await pilot.press("q")  # the main screen and the summary screen both quit on q
         return app.return_code

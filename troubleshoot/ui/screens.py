@@ -27,6 +27,7 @@ from troubleshoot.ui.widgets import (
     cost_text,
     outcome_odds_line,
     percent,
+    truncate,
 )
 
 #: Shown once at the start of every sitting (the start screen, or a notice when a session is resumed).
@@ -51,7 +52,7 @@ class CheckCard:
     outcomes: tuple[str, ...]
     instructions: str = ""
     caution: str | None = None
-    p_outcomes: tuple[float, float] | None = None
+    p_outcomes: tuple[float, ...] | None = None
     bits: float | None = None
     verification: bool = False
 
@@ -324,16 +325,27 @@ class CheckScreen(ModalScreen):
 
     BINDINGS = [
         Binding("a", "acknowledge", "Ack caution"),
-        Binding("1", "outcome(0)", "1st outcome"),
-        Binding("2", "outcome(1)", "2nd outcome"),
         Binding("s", "skip", "Skip"),
         Binding("escape", "back", "Back", key_display="esc"),
     ]
+
+    #: Longest outcome name the footer shows in full (three outcomes and the
+    #: other keys still fit 80 columns); the card lists every name whole.
+    FOOTER_NAME = 14
 
     def __init__(self, card: CheckCard) -> None:
         super().__init__(id="check-screen")
         self.card = card
         self.acknowledged = card.caution is None
+        # Keys 1..K, each named after its outcome in the footer.
+        for i, name in enumerate(card.outcomes):
+            self._bindings.bind(str(i + 1), f"outcome({i})", truncate(name, self.FOOTER_NAME))
+
+    @property
+    def keys_text(self) -> str:
+        """``key 1 or 2``, ``keys 1 to 3``: how to enter the outcome."""
+        k = len(self.card.outcomes)
+        return "key 1 or 2" if k == 2 else f"keys 1 to {k}"
 
     def compose(self) -> ComposeResult:
         card = self.card
@@ -362,9 +374,9 @@ class CheckScreen(ModalScreen):
     def _show_ack(self) -> None:
         message = self.query_one("#check-message", Static)
         if self.card.caution is None:
-            message.update("This check lists no safety caution. Enter its outcome with key 1 or 2.")
+            message.update(f"This check lists no safety caution. Enter its outcome with {self.keys_text}.")
         elif self.acknowledged:
-            message.update("✔ Caution acknowledged. Enter the outcome with key 1 or 2.")
+            message.update(f"✔ Caution acknowledged. Enter the outcome with {self.keys_text}.")
         else:
             message.update("Read the caution, then press a to acknowledge it before entering an outcome.")
         self.refresh_bindings()

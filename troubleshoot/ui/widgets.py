@@ -63,10 +63,9 @@ def score_text(score: float, unit: str) -> str:
     return f"{score:.3f} bit/{unit}"
 
 
-def odds_text(p_outcomes: tuple[float, float]) -> str:
-    """Both outcome probabilities in percent, normal first, e.g. ``42/58 %``."""
-    normal, abnormal = p_outcomes
-    return f"{normal * 100:.0f}/{abnormal * 100:.0f} %"
+def odds_text(p_outcomes: tuple[float, ...]) -> str:
+    """Every outcome's probability in percent, normal first, e.g. ``42/58 %`` or ``60/25/15 %``."""
+    return "/".join(f"{p * 100:.0f}" for p in p_outcomes) + " %"
 
 
 def bar(p: float, width: int = 8) -> str:
