@@ -256,6 +256,28 @@ class DiagramStore:
         self._mul[key] = result
         return result
 
+    def difference(self, a: int, b: int) -> int:
+        """Pointwise max(a - b, 0) of two diagrams (a difference of cumulative probabilities)."""
+        if b == 0:
+            return a
+        if a == b:
+            return 0
+        key = (a, -1 - b)  # its own keys in the product cache's table
+        found = self._mul.get(key)
+        if found is not None:
+            return found
+        var, n = self.var, self.n_levels
+        va, vb = var[a], var[b]
+        if va == n and vb == n:
+            result = self.leaf(max(self.value[a] - self.value[b], 0.0))
+        else:
+            level = min(va, vb)
+            a0, a1 = self._cofactors(a, level)
+            b0, b1 = self._cofactors(b, level)
+            result = self.node(level, self.difference(a0, b0), self.difference(a1, b1))
+        self._mul[key] = result
+        return result
+
     def restrict(self, f: int, working: frozenset, memo: dict) -> int:
         """``f`` with the roots at levels ``working`` held working (a repair)."""
         if self.var[f] == self.n_levels:
@@ -499,13 +521,38 @@ class CompiledModel:
 
         return build(0, 0)
 
+    def likelihood_by_product(self, causes: tuple[int, ...], fam: CheckFamily, outcome: int) -> int:
+        """P(outcome | c) of a check with many causes, without its 2^m table.
+
+        Noisy-MAX is multiplicative in cumulative form (Díez 1993):
+        P(level <= l | c) = Q_leak(l) prod_i Q_i(l)^(c_i), one diagram
+        ite(c_i, Q_i(l), 1) per cause multiplied together; the outcome's
+        level is the difference of two such products.
+        """
+        s = self.store
+        level = fam.order.index(outcome)
+
+        def cdf(l: int) -> int:
+            if l < 0:
+                return 0
+            if l >= fam.n_outcomes - 1:
+                return 1
+            f = s.leaf(math.exp(fam.leak_log_cdf[l]))
+            for c, q in zip(causes, fam.log_cdfs):
+                f = s.times(f, s.ite(c, s.leaf(math.exp(q[l])), 1))
+            return f
+
+        return s.difference(cdf(level), cdf(level - 1))
+
     def finding_diagram(self, target: str, outcome: int, epoch: int, repairs: tuple[str, ...]) -> int:
         """P(finding | root states) as a diagram."""
         s = self.store
         with _deep(4 * len(self.order) + 2000):
             if target in self.model.check_by_id:
                 causes, fam = self.family(target, repairs, epoch)
-                return self.likelihood(causes, fam.p_outcome(outcome))
+                if len(causes) <= MAX_CAUSE_STATES_BITS:
+                    return self.likelihood(causes, fam.p_outcome(outcome))
+                return self.likelihood_by_product(causes, fam, outcome)
             f = self.function_at(target, repairs, epoch)
             return f if outcome == 1 else s.not_(f)
 
