@@ -8,8 +8,9 @@ findings. Small models only (n up to about 16).
 
 Semantics it encodes (the contract the engine must meet):
 - roots are independent with their priors;
-- a gate is a deterministic function of its operands; an OR gate with
-  unlisted causes also reads its unlisted-cause root;
+- a gate is a deterministic function of its operands, looked up in a truth
+  table per gate kind written from faulttrees/FORMAT.md ("occurs when");
+  an OR gate with unlisted causes also reads its unlisted-cause root;
 - a finding made after the j-th repair (epoch j) sees the equipment with the
   first j repaired roots working, all other roots as they were;
 - a check (faulttrees/FORMAT.md, "checks with more than two outcomes"):
@@ -25,6 +26,7 @@ Semantics it encodes (the contract the engine must meet):
 
 from __future__ import annotations
 
+import functools
 import itertools
 import math
 
@@ -44,36 +46,88 @@ def root_states(model: Model) -> tuple[list[str], np.ndarray, np.ndarray]:
     return roots, states, weight
 
 
+# ---------------------------------------------------------------- gates
+# One truth table per gate kind, written from faulttrees/FORMAT.md, section
+# "Gates", column "occurs when" (never from the product's code). Each rule
+# takes the tuple of its operands' values (True = occurs) in the order
+# `gate_operands` lists them and says whether the gate occurs.
+
+#: <and-gate>: "all inputs occur".
+def _and_rule(values, gate):
+    return all(values)
+
+
+#: <or-gate>: "any input occurs"; with unlisted-causes="p" the gate also occurs
+#: "through causes outside the model", the unlisted-cause root, listed last.
+def _or_rule(values, gate):
+    return any(values)
+
+
+#: <atleast-gate k="2">: "at least k of the inputs occur".
+def _atleast_rule(values, gate):
+    return sum(values) >= gate.k
+
+
+#: <not-gate>: "the input does not occur" (exactly one input).
+def _not_rule(values, gate):
+    (value,) = values
+    return not value
+
+
+#: <inhibit-gate>: "the input occurs while the condition event holds"
+#: (one input, then the condition, listed last).
+def _inhibit_rule(values, gate):
+    value, condition = values
+    return value and condition
+
+
+GATE_RULES = {"and": _and_rule, "or": _or_rule, "atleast": _atleast_rule, "not": _not_rule,
+              "inhibit": _inhibit_rule}
+
+
+def gate_operands(gate) -> tuple[str, ...]:
+    """What a gate reads, from FORMAT.md: its inputs, the INHIBIT condition, the OR unlisted-cause root."""
+    operands = tuple(gate.inputs)
+    if gate.kind == "inhibit":
+        operands += (gate.condition,)
+    if gate.kind == "or" and gate.unlisted is not None:
+        operands += (unlisted_id(gate.id),)
+    return operands
+
+
+@functools.cache
+def truth_table(gate) -> np.ndarray:
+    """The gate's value for every combination of its operands, row b = sum_i value_i * 2^i."""
+    m = len(gate_operands(gate))
+    rule = GATE_RULES[gate.kind]
+    return np.array([bool(rule(tuple(bool(code >> i & 1) for i in range(m)), gate)) for code in range(2**m)])
+
+
 def evaluate(model: Model, states: np.ndarray, roots: list[str], repaired: set[str]) -> dict:
-    """Value of every root and gate for each state row, given repaired roots."""
+    """Value of every root and gate for each state row, given repaired roots.
+
+    A repaired root is working. Each gate is looked up in its truth table
+    (:func:`truth_table`) once all its operands have values; the gates are
+    swept until none is left, so no order and no recursion is needed.
+    """
     value: dict[str, np.ndarray] = {}
     for i, r in enumerate(roots):
         value[r] = np.zeros(len(states), bool) if r in repaired else states[:, i]
-
-    def of(node: str) -> np.ndarray:
-        if node in value:
-            return value[node]
-        gate = model.gate_by_id[node]
-        ins = [of(x) for x in gate.inputs]
-        if gate.kind == "and":
-            v = np.logical_and.reduce(ins)
-        elif gate.kind == "or":
-            v = np.logical_or.reduce(ins)
-            if gate.unlisted is not None:
-                v = v | of(unlisted_id(gate.id))
-        elif gate.kind == "atleast":
-            v = np.sum(ins, axis=0) >= gate.k
-        elif gate.kind == "not":
-            v = ~ins[0]
-        elif gate.kind == "inhibit":
-            v = ins[0] & of(gate.condition)
-        else:
-            raise ValueError(gate.kind)
-        value[node] = v
-        return v
-
-    for g in model.gates:
-        of(g.id)
+    pending = list(model.gates)
+    while pending:
+        waiting = []
+        for gate in pending:
+            operands = gate_operands(gate)
+            if not all(x in value for x in operands):
+                waiting.append(gate)
+                continue
+            code = np.zeros(len(states), dtype=np.int64)
+            for i, x in enumerate(operands):
+                code |= value[x].astype(np.int64) << i
+            value[gate.id] = truth_table(gate)[code]
+        if len(waiting) == len(pending):
+            raise ValueError("the gates form a cycle")
+        pending = waiting
     return value
 
 

@@ -9,6 +9,7 @@ or pruning (Bellman 1957).
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from types import SimpleNamespace
 
 import numpy as np
@@ -46,6 +47,15 @@ def small_model() -> Model:
     )
     return Model(name="fan", top="top", gates=gates, basic_events=events, checks=checks,
                  verification=Verification("run the fan", 4.0))
+
+
+def graded_model() -> Model:
+    """The fan with its voltage read as present / low / absent (format 1.1, noisy-MAX)."""
+    model = small_model()
+    volts = Check("volts", "voltage at the motor", 3.0, ("present", "low", "absent"),
+                  (Cause("power", shows=(("absent", 0.9), ("low", 0.05))), Cause("e3", shows=(("low", 0.6),))),
+                  leak=(("low", 0.03), ("absent", 0.01)))
+    return replace(model, checks=(volts,) + model.checks[1:])
 
 
 # ------------------------------------------------------------ brute-force references
@@ -95,7 +105,7 @@ def _reference_optimum(model, settings, findings=None, done=frozenset()) -> floa
         if check.id in done:
             continue
         value = check.cost
-        for o in (0, 1):
+        for o in range(len(check.outcomes)):
             p = _outcome_weights(model, findings, check.id, o) / p_e
             if p > 0:
                 f = findings + [SimpleNamespace(target=check.id, outcome=o, epoch=0)]
@@ -121,7 +131,7 @@ def reference_strategy_cost(model, strategy, settings) -> float:
                 total += prob * _reference_repair_cost(model, findings, settings)
                 continue
             branch = model.check_by_id[action].cost
-            for o in (0, 1):
+            for o in range(len(model.check_by_id[action].outcomes)):
                 p = _outcome_weights(model, findings, action, o) / p_e
                 if p > 0:
                     session.record_finding(action, o)
@@ -150,8 +160,9 @@ def test_repair_phase_cost_matches_bruteforce():
         assert repair_phase_cost(enum, w, settings) == pytest.approx(ref, abs=TOLERANCE)
 
 
-def test_optimal_equals_exhaustive_search_over_policies():
-    model = small_model()
+@pytest.mark.parametrize("make", [small_model, graded_model])
+def test_optimal_equals_exhaustive_search_over_policies(make):
+    model = make()
     settings = settings_for(model)
     solution = solve(model, settings)
     # Reference: plain recursion over every policy (Bellman 1957) on bruteforce probabilities.
@@ -161,9 +172,10 @@ def test_optimal_equals_exhaustive_search_over_policies():
     assert policy_cost == pytest.approx(solution.expected_cost, abs=TOLERANCE)
 
 
+@pytest.mark.parametrize("make", [small_model, graded_model])
 @pytest.mark.parametrize("name", [n for n in STRATEGY_NAMES if n != "optimal"])
-def test_strategy_exact_cost_matches_bruteforce_and_is_no_better_than_optimal(name):
-    model = small_model()
+def test_strategy_exact_cost_matches_bruteforce_and_is_no_better_than_optimal(name, make):
+    model = make()
     settings = settings_for(model)
     strategy = make_strategy(name)
     exact = expected_cost(model, strategy, settings)

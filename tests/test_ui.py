@@ -214,7 +214,8 @@ def test_whole_session_to_confirmed_repair(tmp_path):
             assert "acknowledged" in screen.message
             await pilot.press(str(technician.outcome(screen.card.target, ()) + 1))
             await settle(app, pilot)
-            assert len(app.session.actions) == actions_before + 1
+            assert len(app.session.actions) == actions_before + 2  # the acknowledgement is logged too
+            assert [a.kind for a in app.session.actions[-2:]] == ["acknowledge", "finding"]
 
             await diagnose_to_the_end(app, pilot, technician)
             assert isinstance(app.screen, SummaryScreen)
@@ -273,7 +274,7 @@ def test_second_demo_checks_repair_and_verification(tmp_path):
         return app.return_code
 
     assert run(scenario()) == 0
-    assert len([a for a in app.session.actions if a["action"] == "finding"]) == len(model.symptoms) + 2
+    assert len([a for a in app.session.actions if a.kind == "finding"]) == len(model.symptoms) + 2
     replay_ok(log)
 
 
@@ -358,7 +359,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
         return app.return_code
 
     assert run(scenario()) == 0
-    kinds = [a["action"] for a in session.actions]
+    kinds = [a.kind for a in session.actions]
     for kind in ("skip", "undo", "finding", "retract", "correct", "note"):
         assert kind in kinds
     assert summary_path(log).exists()  # quitting brings the summary up to date

@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from troubleshoot.engine.inference import Engine, Posterior
+from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.model import DERIVED, Model
 
 
@@ -45,7 +46,10 @@ def is_unlisted(model: Model, root_id: str) -> bool:
 
 
 def suspects(posterior: Posterior) -> tuple[Suspect, ...]:
-    """Every hypothesis ranked by P(failed | findings), most probable first (ties by id).
+    """Every hypothesis ranked by P(failed | findings), most probable first.
+
+    Probabilities within the tie tolerance (:mod:`troubleshoot.advice.ties`)
+    are equal, and the id orders them, whatever the model's event order.
 
     A repaired root keeps the probability that it *was* failed before the
     repair (the findings before the repair still speak of it) and is marked
@@ -56,8 +60,8 @@ def suspects(posterior: Posterior) -> tuple[Suspect, ...]:
     ps = posterior.root_marginals()
     out = [Suspect(r, model.label_of(r), float(p), r in repaired, is_unlisted(model, r))
            for r, p in zip(model.hypotheses, ps)]
-    out.sort(key=lambda s: (-s.p, s.id))
-    return tuple(out)
+    ranks = tie_ranks([s.p for s in out])
+    return tuple(s for _, s in sorted(zip(ranks, out), key=lambda pair: (pair[0], pair[1].id)))
 
 
 def _expected_log(weights: np.ndarray, probabilities: np.ndarray) -> float:

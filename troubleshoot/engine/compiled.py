@@ -66,7 +66,8 @@ import numpy as np
 
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.engine.observation import CheckFamily, check_family
-from troubleshoot.model import Model, unlisted_id
+from troubleshoot.model import Model
+from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective
 
 #: The name this path reports (``suggest --json`` key ``engine``).
 ENGINE_NAME = "decision diagram"
@@ -112,10 +113,7 @@ def root_order(model: Model) -> tuple[str, ...]:
         if gate is None:
             order.append(node)
             continue
-        children = list(gate.operands)
-        if gate.unlisted is not None:
-            children.append(unlisted_id(gate.id))
-        stack.extend(reversed(children))
+        stack.extend(reversed(connective(gate).operands))
     order += [r for r in model.hypotheses if r not in seen]
     return tuple(order)
 
@@ -409,35 +407,26 @@ class CompiledModel:
         found = self._gates.get(node_id)
         if found is not None:
             return found
-        # Post-order without Python recursion over the gate graph.
+        # Children first, without Python recursion; what a gate computes is
+        # read from model/gates.py, the one statement of gate semantics.
         gates = self.model.gate_by_id
-        stack = [(node_id, False)]
-        while stack:
-            gid, expanded = stack.pop()
-            if gid in self._gates or gid in self.level:
-                continue
-            gate = gates[gid]
-            if not expanded:
-                stack.append((gid, True))
-                stack.extend((x, False) for x in gate.operands if x in gates and x not in self._gates)
-                continue
-            ins = [self.function(x) for x in gate.inputs]
-            if gate.kind in ("and", "inhibit"):
+        for gid in bottom_up(self.model, [node_id], skip=self._gates.__contains__):
+            conn = connective(gates[gid])
+            ins = [self.function(x) for x in conn.operands]
+            if conn.op == AND:
                 f = 1
-                for g in ins + ([self.function(gate.condition)] if gate.condition else []):
+                for g in ins:
                     f = s.and_(f, g)
-            elif gate.kind == "or":
+            elif conn.op == OR:
                 f = 0
                 for g in ins:
                     f = s.or_(f, g)
-                if gate.unlisted is not None:
-                    f = s.or_(f, s.variable(self.level[unlisted_id(gate.id)]))
-            elif gate.kind == "atleast":
-                f = self._at_least(int(gate.k or 0), ins)
-            elif gate.kind == "not":
+            elif conn.op == ATLEAST:
+                f = self._at_least(conn.threshold(), ins)
+            elif conn.op == NOT:
                 f = s.not_(ins[0])
-            else:
-                raise ValueError(f"unknown gate kind {gate.kind!r}")
+            else:  # pragma: no cover - connective() knows no other
+                raise ValueError(f"unknown connective {conn.op!r}")
             self._gates[gid] = f
         return self._gates[node_id]
 
@@ -448,6 +437,11 @@ class CompiledModel:
         if k > len(ins):
             return 0
         s = self.store
+        if k in (1, len(ins)):  # an OR or an AND: n applies, not k times n
+            f = 1 if k > 1 else 0
+            for g in ins:
+                f = s.and_(f, g) if k > 1 else s.or_(f, g)
+            return f
         at_least = [1] + [0] * k
         for i, f in enumerate(ins, start=1):
             for j in range(min(i, k), 0, -1):
@@ -532,14 +526,14 @@ class CompiledModel:
         s = self.store
         level = fam.order.index(outcome)
 
-        def cdf(l: int) -> int:
-            if l < 0:
+        def cdf(at: int) -> int:
+            if at < 0:
                 return 0
-            if l >= fam.n_outcomes - 1:
+            if at >= fam.n_outcomes - 1:
                 return 1
-            f = s.leaf(math.exp(fam.leak_log_cdf[l]))
+            f = s.leaf(math.exp(fam.leak_log_cdf[at]))
             for c, q in zip(causes, fam.log_cdfs):
-                f = s.times(f, s.ite(c, s.leaf(math.exp(q[l])), 1))
+                f = s.times(f, s.ite(c, s.leaf(math.exp(q[at])), 1))
             return f
 
         return s.difference(cdf(level), cdf(level - 1))

@@ -34,7 +34,7 @@ from troubleshoot.engine.compiled import (
     ZeroEvidence,
 )
 from troubleshoot.engine.observation import table_from_log_cdf
-from troubleshoot.engine.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability
+from troubleshoot.engine.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability, gc_paused
 from troubleshoot.model import Model
 from troubleshoot.engine.network import CheckFamily, Network, build_network
 
@@ -148,11 +148,12 @@ class Engine:
         for r in repairs:
             if r not in self.model.hypotheses:
                 raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
-        if repairs not in self._networks:
-            self._networks[repairs] = build_network(self.model, repairs, with_checks=False)
-        net = self._networks[repairs]
-        variables, families = net.relevant(key[1])
-        tree = JoinTree(net, self.memory_budget, families=families, variables=variables)
+        with gc_paused():
+            if repairs not in self._networks:
+                self._networks[repairs] = build_network(self.model, repairs, with_checks=False)
+            net = self._networks[repairs]
+            variables, families = net.relevant(key[1])
+            tree = JoinTree(net, self.memory_budget, families=families, variables=variables)
         self._trees[key] = (net, tree)
         while len(self._trees) > self.cache_size:
             self._trees.pop(next(iter(self._trees)))
@@ -327,6 +328,65 @@ class Engine:
 
 
 @dataclass(frozen=True)
+class FamilyBatch:
+    """Checks whose cause families have the same shape, stacked.
+
+    Attributes
+    ----------
+    checks : tuple of str
+        Check ids, one per row.
+    joint : ndarray, shape (n, S)
+        P(c | findings) over the S joint states of each check's causes.
+    likelihood : ndarray, shape (n, S, K)
+        P(outcome | c) for each of the K outcomes (the first is the normal one).
+    """
+
+    checks: tuple[str, ...]
+    joint: np.ndarray
+    likelihood: np.ndarray
+
+
+def outcome_table(family: CheckFamily) -> np.ndarray:
+    """P(outcome | c) of one check family, shape (2**m, K): states of the causes (C order) by outcomes."""
+    return family.likelihood().reshape(-1, family.n_outcomes)
+
+
+@dataclass(frozen=True)
+class _BatchGroup:
+    checks: tuple[str, ...]
+    plan: tuple
+    likelihood: np.ndarray
+
+
+@dataclass(frozen=True)
+class _BatchPlans:
+    groups: dict  # (states, outcomes) -> _BatchGroup
+    where: dict  # check id -> ((states, outcomes), row)
+
+
+def _batch_plans(net: Network, tree: JoinTree, epoch: int) -> _BatchPlans:
+    """Every check family of one epoch the tree carries, grouped by shape; built once per tree and epoch."""
+    cached = tree._batch_plans.get(("families", epoch))
+    if cached is not None:
+        return cached
+    members: dict[tuple[int, ...], list] = {}
+    for (check_id, e), fam in tree.families.items():
+        if e == epoch:
+            table = outcome_table(fam)
+            members.setdefault(table.shape, []).append((check_id, fam, table))
+    groups, where = {}, {}
+    for key, items in members.items():
+        checks = tuple(c for c, _, _ in items)
+        plan = tree.joints_plan(tuple(f.nodes for _, f, _ in items))
+        groups[key] = _BatchGroup(checks, plan, np.stack([t for _, _, t in items]))
+        for row, c in enumerate(checks):
+            where[c] = (key, row)
+    plans = _BatchPlans(groups, where)
+    tree._batch_plans[("families", epoch)] = plans
+    return plans
+
+
+@dataclass(frozen=True)
 class _ConstantLikelihood:
     value: float
 
@@ -393,6 +453,49 @@ class Posterior:
         """What a check reads at an epoch (nodes, detections, leak)."""
         epoch = self.epoch if epoch is None else epoch
         return self.network.families[(check_id, epoch)]
+
+    def family_batches(self, check_ids, epoch: int | None = None) -> list[FamilyBatch]:
+        """The cause joint and outcome table of many checks at once, grouped by shape.
+
+        Parameters
+        ----------
+        check_ids : iterable of str
+            Checks or symptoms of the model.
+        epoch : int, optional
+            Default: now.
+
+        Returns
+        -------
+        list of FamilyBatch
+            One per (number of joint cause states, number of outcomes), in
+            first-seen order; every check appears in exactly one.
+
+        Notes
+        -----
+        Each group's joints come out of the calibrated tables in one gather
+        and one ``bincount`` per source (cliques, separators) over index
+        plans the join tree keeps, whatever the number of checks.
+        """
+        epoch = self.epoch if epoch is None else epoch
+        plans = _batch_plans(self.network, self.tree, epoch)
+        wanted: dict[tuple[int, int], list[int]] = {}
+        for check_id in check_ids:
+            found = plans.where.get(check_id)
+            if found is None:
+                raise SessionError(f"{check_id!r} is not a check or symptom of model {self.model.name!r} "
+                                   f"read after {epoch} repair(s)")
+            key, row = found
+            wanted.setdefault(key, []).append(row)
+        out = []
+        for key, rows in wanted.items():
+            group = plans.groups[key]
+            joint = self._calibrated.joints(group.plan, len(group.checks))
+            if rows != list(range(len(group.checks))):
+                pick = np.array(rows, dtype=np.int64)
+                out.append(FamilyBatch(tuple(group.checks[r] for r in rows), joint[pick], group.likelihood[pick]))
+            else:
+                out.append(FamilyBatch(group.checks, joint, group.likelihood))
+        return out
 
     def cause_joint(self, check_id: str, epoch: int | None = None) -> np.ndarray:
         """P(c | findings) over the joint states c of a check's causes, flat, length 2**m.
@@ -528,6 +631,15 @@ class CompiledPosterior:
                 fams.append(fam)
         for check_id, joint, fam in zip(ids, self.passes.joints_many(causes_list), fams):
             self._families[(check_id, epoch)] = (joint, fam.likelihood().reshape(-1, fam.n_outcomes))
+
+    def family_batches(self, check_ids, epoch: int | None = None) -> list[FamilyBatch]:
+        """As :meth:`Posterior.family_batches`: the checks' (joint, table) stacked by shape."""
+        groups: dict[tuple[int, ...], list] = {}
+        for check_id in check_ids:
+            joint, table = self.check_likelihood(check_id, epoch)
+            groups.setdefault(table.shape, []).append((check_id, joint, table))
+        return [FamilyBatch(tuple(c for c, _, _ in items), np.stack([j for _, j, _ in items]),
+                            np.stack([t for _, _, t in items])) for items in groups.values()]
 
     def cause_joint(self, check_id: str, epoch: int | None = None) -> np.ndarray:
         """P(c | findings) over the rows of :meth:`check_likelihood`."""

@@ -16,8 +16,8 @@ W3C, *XML Schema Part 1: Structures*, 2004.
 
 from __future__ import annotations
 
+import math
 import os
-import tempfile
 import textwrap
 from functools import lru_cache
 from importlib import resources
@@ -172,6 +172,12 @@ _SCHEMA_HINTS = {
     "xs:double": "a number (such as 0.02 or 1e-5)",
     "xs:integer": "a whole number",
 }
+
+
+def _usable_law(rate: float | None, exposure: float | None) -> bool:
+    """A rate and an exposure the exponential law can take: finite, rate >= 0, exposure > 0."""
+    return (rate is not None and exposure is not None and math.isfinite(rate) and math.isfinite(exposure)
+            and rate >= 0 and exposure > 0)
 
 
 def _clean_text(raw: str | None) -> str:
@@ -366,7 +372,9 @@ class _Builder:
             self.lines[(eid, "failure-rate")] = rate_line
             rate = self.number(rate_element.get("per-hour"), rate_line, f"basic event '{eid}' failure rate", 0.0)
             exposure = self.number(rate_element.get("exposure-hours"), rate_line, f"basic event '{eid}' exposure", None)
-            if rate is not None and exposure is not None:
+            # Values are checked before any arithmetic: a negative rate would
+            # overflow exp(); the validator reports it with its line.
+            if _usable_law(rate, exposure):
                 probability = exponential_probability(rate, exposure)
         else:
             self.error(
@@ -415,11 +423,11 @@ class _Builder:
 
     def gives(self, cid: str, elements: list, key: tuple, what: str) -> tuple[tuple[str, float], ...]:
         """(outcome, probability) pairs of <shows> or <false-alarm> elements."""
-        out = []
+        out: list[tuple[str, float]] = []
         for j, item in enumerate(elements):
             self.lines[key + (j,)] = item.sourceline
-            out.append((_clean_text(item.get("outcome")),
-                        self.number(item.get("probability"), item.sourceline, f"'{cid}' {what}", 0.0)))
+            p = self.number(item.get("probability"), item.sourceline, f"'{cid}' {what}", 0.0)
+            out.append((_clean_text(item.get("outcome")), 0.0 if p is None else p))
         return tuple(out)
 
     def check(self, element: etree._Element, symptom: bool) -> Check:
@@ -602,16 +610,13 @@ def save_model(model: Model, path: str | os.PathLike) -> None:
     except ValueError as exc:  # lxml refuses control characters
         raise ModelError([Problem(name, None, f"the model holds text XML cannot carry ({exc}); remove control characters")]) from None
     data = b'<?xml version="1.0" encoding="UTF-8"?>\n' + etree.tostring(root, encoding="UTF-8", pretty_print=True)
-    target = Path(path)
-    directory = target.parent if str(target.parent) else Path(".")
-    temporary = None
+    from troubleshoot.errors import OutputError
+    from troubleshoot.files import write_output
+
     try:
-        handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=directory)
-        with os.fdopen(handle, "wb") as stream:
-            stream.write(data)
-        os.chmod(temporary, 0o644)  # mkstemp makes it private; a model file is an ordinary file
-        os.replace(temporary, target)
-    except OSError as exc:
-        if temporary is not None and os.path.exists(temporary):
-            os.unlink(temporary)
-        raise ModelError([Problem(name, None, f"cannot write the file ({exc.strerror}); check the folder and permissions")]) from None
+        write_output(path, data, "model file")
+    except OutputError as exc:
+        message = str(exc)
+        if message.startswith(name + ": "):
+            message = message[len(name) + 2:]
+        raise ModelError([Problem(name, None, message)]) from None

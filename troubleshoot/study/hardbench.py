@@ -102,7 +102,7 @@ def _run_engine(model, kind: str, findings: list[Finding], out: EngineFigures) -
         posts.append(time.process_time() - start)
         rank(post, [c for c in checks if c not in {f.target for f in findings[:i]}])
         steps.append(time.process_time() - start)
-        mpes.append(_cpu(lambda: most_probable_explanation(engine, post)))
+        mpes.append(_cpu(lambda post=post: most_probable_explanation(engine, post)))
     out.posteriors_s = float(np.median(posts))
     out.step_s = float(np.median(steps))
     out.explanation_s = float(np.median(mpes))

@@ -39,6 +39,7 @@ from typing import Protocol
 
 import numpy as np
 
+from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.session import AMBIGUITY, DIAGNOSING, SessionView
 
@@ -124,7 +125,8 @@ class MostInformative(_Deterministic):
         rows = _worth_doing(view)
         if view.status != DIAGNOSING or not rows:
             return None
-        return min(rows, key=lambda r: (-r.bits, r.cost, r.check)).check
+        ranks = tie_ranks([r.bits for r in rows])
+        return min(zip(ranks, rows), key=lambda pair: (pair[0], pair[1].cost, pair[1].check))[1].check
 
 
 class Cheapest(_Deterministic):
@@ -136,7 +138,8 @@ class Cheapest(_Deterministic):
         rows = _worth_doing(view)
         if view.status != DIAGNOSING or not rows:
             return None
-        return min(rows, key=lambda r: (r.cost, -r.bits, r.check)).check
+        ranks = tie_ranks([r.bits for r in rows])
+        return min(zip(ranks, rows), key=lambda pair: (pair[1].cost, pair[0], pair[1].check))[1].check
 
 
 class Likeliest(_Deterministic):

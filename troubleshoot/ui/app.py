@@ -189,6 +189,23 @@ class TroubleshootApp(App[int]):
             return
         self.perform("recording the symptoms", record_all, then=opened)
 
+    def acknowledge_caution(self, target: str) -> bool:
+        """Log that the technician acknowledged the caution of a check (or of the verification).
+
+        Done at once, not in a worker: it changes no finding and needs no
+        propagation, and the outcome typed right after it must not find the
+        session busy.
+        """
+        if self.busy:
+            self.say("Still working on the last action; acknowledge again in a moment.", "warning")
+            return False
+        try:
+            self.session.acknowledge_caution(target)
+        except TroubleshootError as exc:
+            self.say(f"Refused (acknowledging the caution): {' '.join(exc.lines())}", "error")
+            return False
+        return True
+
     def open_verification(self) -> None:
         """Open the verification the last repair asks for (its named check, or the top event)."""
         state = self.state

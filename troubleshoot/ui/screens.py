@@ -389,6 +389,9 @@ class CheckScreen(ModalScreen):
         return True
 
     def action_acknowledge(self) -> None:
+        if not self.acknowledged and self.card.caution:
+            if not self.app.acknowledge_caution(self.card.target):  # logged, for the supervisor's record
+                return
         self.acknowledged = True
         self._show_ack()
 
