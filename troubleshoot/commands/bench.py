@@ -34,15 +34,12 @@ def add_parser(subparsers, name):
     p.add_argument("--budget", type=float, default=REFERENCE_BUDGET_S, metavar="SECONDS",
                    help="time a reference library may take per job (default: %(default)s s)")
     p.add_argument("--seed", type=int, default=1, help="seed of the synthetic trees (default: 1)")
-<<<<<<< HEAD
-    p.add_argument("--hard-sizes", type=int, nargs="*", default=None, metavar="N",
-                   help="basic events of the hard trees (shared supports, wide join trees) timed per engine "
-                        "(default: 300 1000 2000; give none to skip)")
-=======
     p.add_argument("--three-outcomes", type=float, default=0.0, metavar="SHARE",
                    help="also time the step on the same trees with this share of the checks read as "
                         "low / normal / high (e.g. 0.33), against the two-outcome trees")
->>>>>>> main
+    p.add_argument("--hard-sizes", type=int, nargs="*", default=None, metavar="N",
+                   help="basic events of the hard trees (shared supports, wide join trees) timed per engine "
+                        "(default: 300 1000 2000; give none to skip)")
     return p
 
 
@@ -61,8 +58,9 @@ def run(args) -> int:
         for i, n in enumerate(args.sizes):
             progress.count(i, len(args.sizes))
             results.append(run_size(n, seed=args.seed, references=not args.no_references,
-<<<<<<< HEAD
-                                    budget=args.budget, progress=progress.message))
+                                    budget=args.budget, progress=progress.message, gave_up=gave_up,
+                                    three_outcomes=args.three_outcomes))
+        progress.count(len(args.sizes), len(args.sizes))
     from troubleshoot.study.hardbench import HARD_SIZES, hard_json, hard_table, run_hard
 
     hard_sizes = HARD_SIZES if args.hard_sizes is None else args.hard_sizes
@@ -70,11 +68,6 @@ def run(args) -> int:
     with ProgressDisplay("bench: hard trees", delay=0.0) as progress:
         for n in hard_sizes:
             hard.append(run_hard(n, seed=args.seed, progress=progress.message))
-=======
-                                    budget=args.budget, progress=progress.message, gave_up=gave_up,
-                                    three_outcomes=args.three_outcomes))
-        progress.count(len(args.sizes), len(args.sizes))
->>>>>>> main
     if args.json:
         doc = as_json(results)
         doc["hard_trees"] = hard_json(hard)
