@@ -28,7 +28,7 @@ def _random_findings(model: Model, rng: random.Random, repairs: tuple[str, ...])
     findings = [Finding(model.top, 1, 0)]
     for epoch in range(len(repairs) + 1):
         for check in rng.sample(list(model.checks), min(2, len(model.checks))):
-            findings.append(Finding(check.id, rng.randint(0, 1), epoch))
+            findings.append(Finding(check.id, rng.randrange(len(check.outcomes)), epoch))
         if epoch:
             findings.append(Finding(model.top, rng.randint(0, 1), epoch))
     return findings
@@ -244,7 +244,7 @@ def _reference_models():
 
 def _random_check_findings(model, rng, count):
     checks = list(model.checks + model.symptoms)
-    return [Finding(c.id, rng.randint(0, 1)) for c in rng.sample(checks, min(count, len(checks)))]
+    return [Finding(c.id, rng.randrange(len(c.outcomes))) for c in rng.sample(checks, min(count, len(checks)))]
 
 
 def _consistent_findings(engine, model, rng):

@@ -13,6 +13,7 @@ from hypothesis import strategies as st
 
 import bruteforce as bf
 from randommodels import random_model
+from test_inference import _random_findings
 from troubleshoot.advice.ranking import rank
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.engine.network import build_network
@@ -21,16 +22,6 @@ from troubleshoot.errors import ImpossibleFindings, SessionError
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model
 
 TOL = 1e-9  # exact paths (DESIGN.md, Numbers)
-
-
-def _findings(model: Model, rng: random.Random, repairs: tuple[str, ...]) -> list[Finding]:
-    findings = [Finding(model.top, 1, 0)]
-    for epoch in range(len(repairs) + 1):
-        for check in rng.sample(list(model.checks), min(2, len(model.checks))):
-            findings.append(Finding(check.id, rng.randrange(len(check.outcomes)), epoch))
-        if epoch:
-            findings.append(Finding(model.top, rng.randint(0, 1), epoch))
-    return findings
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -42,7 +33,7 @@ def test_k_outcome_posteriors_log_p_and_bits_equal_brute_force(seed, n_events, n
     model = random_model(seed, n_events=n_events, n_gates=n_gates, n_checks=4, max_outcomes=4)
     rng = random.Random(seed)
     repairs = tuple(rng.sample([e.id for e in model.basic_events], min(n_repairs, n_events)))
-    findings = _findings(model, rng, repairs)
+    findings = _random_findings(model, rng, repairs)
     ref = bf.posterior(model, findings, repairs)
     engine = Engine(model)
     if ref["log_p"] == -math.inf:

@@ -556,3 +556,38 @@ def test_ui_imports_neither_numpy_nor_the_numeric_core():
 def test_safety_notice_names_what_it_does_not_replace():
     for words in ("equipment maker's procedures", "lockout/tagout", "local codes", "licensed practice"):
         assert words in SAFETY_NOTICE
+
+
+@pytest.mark.parametrize("demo, check_id", [("rooftop", "suction_pressure"), ("booster", "pt_vs_gauge"),
+                                           ("booster", "p1_hydraulic")])
+def test_three_outcome_check_keys_are_named_in_the_footer_and_card(tmp_path, demo, check_id):
+    # Issue 12: keys 1..K, each outcome's name in the footer (cut to fit 80 columns) and whole on the card.
+    app, _ = new_app(tmp_path, demo)
+    from textual.widgets._footer import FooterKey
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await settle(app, pilot)
+            await pilot.press("b")
+            await settle(app, pilot)
+            await pilot.press("home")
+            index = next(i for i, r in enumerate(app.state.ranking) if r.check == check_id)
+            await pilot.press(*["down"] * index, "enter")
+            await pilot.pause()
+            screen = app.screen
+            assert isinstance(screen, CheckScreen)
+            outcomes = app.session.model.check_by_id[check_id].outcomes
+            footer = {k.key: k.description for k in screen.query(FooterKey)}
+            for number, name in enumerate(outcomes, start=1):
+                shown = footer[str(number)]
+                assert shown == name or (shown.endswith("…") and name.startswith(shown[:-1])), (shown, name)
+            for key in screen.query(FooterKey):
+                assert _inside(key.region, *SIZE), f"footer key {key.description!r} does not fit in 80 columns"
+            card = str(screen.query_one("#check-outcomes").render())
+            assert all(f"key {i}: {name}" in card for i, name in enumerate(outcomes, start=1))
+            await enter_outcome(app, pilot, 2)
+            assert [(f.target, f.outcome) for f in app.state.findings][-1] == (check_id, outcomes[2])
+            await pilot.press("q")
+        return app.return_code
+
+    assert run(scenario()) == 0

@@ -24,7 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from troubleshoot.engine.inference import Engine, Posterior
-from troubleshoot.advice.ties import tie_ranks
+from troubleshoot.advice.ties import ordered_by
 from troubleshoot.model import DERIVED, Model
 
 
@@ -60,8 +60,7 @@ def suspects(posterior: Posterior) -> tuple[Suspect, ...]:
     ps = posterior.root_marginals()
     out = [Suspect(r, model.label_of(r), float(p), r in repaired, is_unlisted(model, r))
            for r, p in zip(model.hypotheses, ps)]
-    ranks = tie_ranks([s.p for s in out])
-    return tuple(s for _, s in sorted(zip(ranks, out), key=lambda pair: (pair[0], pair[1].id)))
+    return tuple(ordered_by(out, lambda s: s.p, lambda s: s.id))
 
 
 def _expected_log(weights: np.ndarray, probabilities: np.ndarray) -> float:

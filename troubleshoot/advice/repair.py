@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.advice.ties import tie_ranks
+from troubleshoot.advice.ties import ordered_by
 from troubleshoot.model import Model
 
 #: A suspect below this posterior is treated as cleared (rounding of an exact zero).
@@ -198,8 +198,7 @@ def repair_order(model: Model, group) -> tuple[RepairStep, ...]:
         repairable.append(RepairStep(s.id, s.label, s.p, cost, ratio, repair.label, None, verify))
     order = kadane_simon_order([r.id for r in repairable], np.array([r.p for r in repairable]),
                                np.array([r.cost + r.verification_cost for r in repairable]))
-    p_rank = tie_ranks([r.p for r in other])
-    other = [r for _, r in sorted(zip(p_rank, other), key=lambda pair: (pair[0], pair[1].id))]
+    other = ordered_by(other, lambda r: r.p, lambda r: r.id)
     return tuple([repairable[i] for i in order] + other)
 
 

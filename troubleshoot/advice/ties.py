@@ -10,7 +10,8 @@ rank in which values closer than the tolerance share one, so a sort by
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
+from typing import TypeVar
 
 import numpy as np
 
@@ -18,6 +19,9 @@ import numpy as np
 TIE_RTOL = 1e-12
 #: ...or by at most this in absolute terms (probabilities and bits below it are noise).
 TIE_ATOL = 1e-15
+
+
+T = TypeVar("T")
 
 
 def tied(a: float, b: float) -> bool:
@@ -70,3 +74,16 @@ def tie_ranks(values: Sequence[float] | np.ndarray, descending: bool = True) -> 
         ranks[i] = rank
         previous = key[i]
     return ranks
+
+
+def ordered_by(items: Sequence[T], figure: Callable[[T], float], ident: Callable[[T], str]) -> list[T]:
+    """``items`` by ``figure``, largest first, ties (within the tolerance) by ``ident``.
+
+    Examples
+    --------
+    >>> ordered_by([("b", 0.2), ("a", 0.2 + 1e-17), ("c", 0.5)], lambda x: x[1], lambda x: x[0])
+    [('c', 0.5), ('a', 0.2), ('b', 0.2)]
+    """
+    ranks = tie_ranks([figure(item) for item in items])
+    keyed = sorted(range(len(items)), key=lambda i: (int(ranks[i]), ident(items[i])))
+    return [items[i] for i in keyed]

@@ -50,7 +50,7 @@ import numpy as np
 from troubleshoot.advice.diagnosis import Suspect, is_unlisted
 from troubleshoot.advice.ranking import BITS_EPSILON, entropy_bits
 from troubleshoot.engine.observation import outcome_probabilities
-from troubleshoot.advice.ties import tie_ranks
+from troubleshoot.advice.ties import ordered_by
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.model.gates import gate_values
 from troubleshoot.model import Model
@@ -143,8 +143,7 @@ class Enumeration:
         model = self.model
         out = [Suspect(r, model.label_of(r), float(p), r in repaired, is_unlisted(model, r))
                for r, p in zip(self.roots, q)]
-        ranks = tie_ranks([s.p for s in out])
-        return tuple(s for _, s in sorted(zip(ranks, out), key=lambda pair: (pair[0], pair[1].id)))
+        return tuple(ordered_by(out, lambda s: s.p, lambda s: s.id))
 
     def bits(self, weights: np.ndarray, check_id: str) -> float:
         """I(F; T | findings) in bits for a check done before any repair (Cover & Thomas 2006)."""

@@ -329,17 +329,19 @@ class CheckScreen(ModalScreen):
         Binding("escape", "back", "Back", key_display="esc"),
     ]
 
-    #: Longest outcome name the footer shows in full (three outcomes and the
-    #: other keys still fit 80 columns); the card lists every name whole.
-    FOOTER_NAME = 14
+    #: Footer columns the outcome keys share (80 less the other keys of this
+    #: screen); each name is cut to its share, the card lists every name whole.
+    FOOTER_OUTCOME_COLUMNS = 45
 
     def __init__(self, card: CheckCard) -> None:
         super().__init__(id="check-screen")
         self.card = card
         self.acknowledged = card.caution is None
-        # Keys 1..K, each named after its outcome in the footer.
+        # Keys 1..K, each named after its outcome in the footer (a key takes
+        # its name plus four columns: the key, spaces and padding).
+        width = max(4, self.FOOTER_OUTCOME_COLUMNS // len(card.outcomes) - 4)
         for i, name in enumerate(card.outcomes):
-            self._bindings.bind(str(i + 1), f"outcome({i})", truncate(name, self.FOOTER_NAME))
+            self._bindings.bind(str(i + 1), f"outcome({i})", truncate(name, width))
 
     @property
     def keys_text(self) -> str:

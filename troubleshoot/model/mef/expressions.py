@@ -284,7 +284,7 @@ class Expressions:
 
     def _compute(self, node, values: dict, in_progress: dict[str, None]) -> float | None:
         """The value of ``node`` from the values of what it needs (all present now)."""
-        tag = tag_of(node)
+        tag = tag_of(node) or ""
         line = node.sourceline
         if tag == "parameter":
             name = node.get("name")
