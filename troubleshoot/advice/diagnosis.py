@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.engine.inference import Engine, Posterior
+from troubleshoot.engine.inference import AnyPosterior, Engine
 from troubleshoot.advice.ties import ordered_by
 from troubleshoot.model import DERIVED, Model
 
@@ -45,7 +45,7 @@ def is_unlisted(model: Model, root_id: str) -> bool:
     return root_id not in model.event_by_id and root_id.endswith(DERIVED + "unlisted")
 
 
-def suspects(posterior: Posterior) -> tuple[Suspect, ...]:
+def suspects(posterior: AnyPosterior) -> tuple[Suspect, ...]:
     """Every hypothesis ranked by P(failed | findings), most probable first.
 
     Probabilities within the tie tolerance (:mod:`troubleshoot.advice.ties`)
@@ -71,7 +71,7 @@ def _expected_log(weights: np.ndarray, probabilities: np.ndarray) -> float:
     return float(np.sum(weights[use] * np.log(probabilities[use])))
 
 
-def entropy_bits(posterior: Posterior) -> float:
+def entropy_bits(posterior: AnyPosterior) -> float:
     """Remaining uncertainty H(F | findings) over the root events, in bits, exactly.
 
     Notes
@@ -131,7 +131,7 @@ class Explanation:
     propagations: int
 
 
-def most_probable_explanation(engine: Engine, posterior: Posterior) -> Explanation:
+def most_probable_explanation(engine: Engine, posterior: AnyPosterior) -> Explanation:
     """The joint state of every root with the highest posterior, found exactly in one pass.
 
     Parameters

@@ -35,7 +35,7 @@ from collections.abc import Iterable
 
 import numpy as np
 
-from troubleshoot.engine.inference import Posterior
+from troubleshoot.engine.inference import AnyPosterior
 from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.model import Check
 
@@ -180,7 +180,7 @@ def batch_information(joint: np.ndarray, table: np.ndarray) -> tuple[np.ndarray,
     return np.where(bits < BITS_EPSILON, 0.0, bits), p_t
 
 
-def outcome_information(posterior: Posterior, check_ids: Iterable[str]) -> dict[str, tuple[float, np.ndarray]]:
+def outcome_information(posterior: AnyPosterior, check_ids: Iterable[str]) -> dict[str, tuple[float, np.ndarray]]:
     """I(F; T | findings) in bits and P(outcome | findings) of each check, done now.
 
     Parameters
@@ -229,7 +229,7 @@ def _ordered(rows: list[RankRow]) -> list[RankRow]:
     return [rows[i] for i in keyed]
 
 
-def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
+def rank(posterior: AnyPosterior, checks: Iterable[str | Check]) -> Ranking:
     """Score every candidate check from one propagation and sort them, best first.
 
     Parameters

@@ -104,7 +104,8 @@ def run(args) -> int:
     if not names:
         raise SimulationError("no strategy left to simulate")
 
-    specs = [(name, optimal.policy if name == "optimal" else None) for name in names]
+    # "optimal" stays in the names only when its policy was solved.
+    specs = [(name, optimal.policy if name == "optimal" and optimal is not None else None) for name in names]
     # The optimal policy is exact for the repair-only protocol, so a run that
     # compares with it uses that protocol for every strategy.
     checks_after_repair = args.after_repair == "diagnose" and optimal is None

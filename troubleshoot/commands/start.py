@@ -40,7 +40,7 @@ def add_parser(subparsers, name):
 
 def run(args) -> int:
     from troubleshoot.model.source import resolve_model_path
-    from troubleshoot.session.logfile import new_session
+    from troubleshoot.session.logfile import LogWriter, new_session
 
     if args.threshold is not None and not 0.0 < args.threshold <= 1.0:
         raise SessionError(f"--threshold must be a probability above 0 and at most 1, not {args.threshold:g}; "
@@ -53,5 +53,7 @@ def run(args) -> int:
         return run_app(session)
     from troubleshoot.ui.plain import run_plain
 
-    return run_plain(session, f"started a session on {session.model.name}: log {session.log.path}; "
+    log = session.log
+    assert isinstance(log, LogWriter), "new_session opens the log file"
+    return run_plain(session, f"started a session on {session.model.name}: log {log.path}; "
                               "one command per line ('help' lists them)")

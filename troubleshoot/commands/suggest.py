@@ -16,7 +16,13 @@ import sys
 
 from troubleshoot.errors import SessionError
 from troubleshoot.session import Session, settings_for
-from troubleshoot.session.actions import ActionError, RecordRepair, RecordVerification, finding_from_text
+from troubleshoot.session.actions import (
+    ActionError,
+    RecordFinding,
+    RecordRepair,
+    RecordVerification,
+    finding_from_text,
+)
 from troubleshoot.session.render import render_state
 
 
@@ -64,13 +70,13 @@ def add_parser(subparsers, name):
     return parser
 
 
-def step_actions(model, steps) -> list:
+def step_actions(model, steps) -> list[RecordFinding | RecordRepair | RecordVerification]:
     """The typed actions of ('finding', 'CHECK=OUTCOME') and ('repaired', 'EVENT') steps, in order.
 
     ``--finding TOP=OUTCOME`` (the top event's id) after a repair is the
     verification; ``ok`` and ``failed`` name its outcomes.
     """
-    actions = []
+    actions: list[RecordFinding | RecordRepair | RecordVerification] = []
     repaired = False
     for kind, value in steps:
         if kind == "repaired":

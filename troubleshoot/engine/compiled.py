@@ -32,10 +32,9 @@ Repairs are interventions, as in the join-tree path: a finding made after the
 j-th repair reads the gate logic restricted to the first j repaired roots
 held working; the roots themselves are shared by every epoch.
 
-What is binary today: roots and gates have two states, and a check's
-likelihood is read from :meth:`CheckFamily.p_abnormal` (two outcomes). The
-evidence diagram takes any table P(outcome | c) over the 2^m cause states,
-so graded outcomes need only that table.
+Roots and gates have two states; a check's likelihood is read from
+:meth:`CheckFamily.p_outcome`, the table P(outcome | c) over the 2^m cause
+states for any of its K outcomes (:mod:`troubleshoot.engine.observation`).
 
 References
 ----------

@@ -193,7 +193,7 @@ class Engine:
                 or finding.target in model.event_by_id or finding.target in model.hypotheses):
             raise SessionError(f"unknown check, symptom or event {finding.target!r} in model {model.name!r}")
 
-    def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | None:
+    def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | _ConstantLikelihood:
         model = self.model
         self._validate(finding, net.epochs)
         if finding.target in model.check_by_id:
@@ -262,7 +262,8 @@ class Engine:
                 raise
             self._switch(exc)
             return self._run_compiled(tuple(findings), tuple(repairs))
-        evidence, log_constant = [], 0.0
+        evidence: list[Evidence] = []
+        log_constant = 0.0
         for f in findings:
             ev = self._evidence(net, tree, f)
             if isinstance(ev, _ConstantLikelihood):
@@ -274,7 +275,7 @@ class Engine:
         calibrated = tree.propagate(evidence)
         return net, tree, calibrated, log_constant, evidence
 
-    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> Posterior | CompiledPosterior:
+    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> AnyPosterior:
         """Posterior given findings (in order) and the repairs made so far.
 
         Raises
@@ -296,7 +297,7 @@ class Engine:
             raise ImpossibleFindings([describe_finding(self.model, f, repairs)
                                       for f in self.conflict(findings, repairs)]) from None
         self.propagations += 1
-        post: Posterior | CompiledPosterior
+        post: AnyPosterior
         if isinstance(run, Passes):
             assert self._diagram is not None
             post = CompiledPosterior(self.model, self._diagram, run, findings, repairs)
@@ -659,3 +660,7 @@ class CompiledPosterior:
         state, log_joint = self.passes.max_state()
         failed = tuple(r for r, lv in zip(self.model.hypotheses, self._levels) if state[lv] == 1)
         return failed, float(np.exp(min(0.0, log_joint - self.log_p)))
+
+
+#: What :meth:`Engine.propagate` gives: either posterior, read through the same interface.
+AnyPosterior = Posterior | CompiledPosterior

@@ -703,9 +703,9 @@ def marginal_plan(lay: Layout, sep_offsets: np.ndarray, n_vars: int) -> Marginal
             by_size.setdefault(size, []).append((v, start, axis))
     gathers, targets = [], []
     for size, rows in by_size.items():
-        v, start, axis = (np.array(x, dtype=np.int64) for x in zip(*rows))
-        gathers.append((_entries_with_bit(size)[axis] + start[:, None]).ravel())
-        targets.append(np.repeat(v, 1 << (size - 1)))
+        var_ids, sep_starts, sep_axes = (np.array(x, dtype=np.int64) for x in zip(*rows))
+        gathers.append((_entries_with_bit(size)[sep_axes] + sep_starts[:, None]).ravel())
+        targets.append(np.repeat(var_ids, 1 << (size - 1)))
     per_clique: dict[int, list[tuple[int, int]]] = {}
     for v, (c, axis) in enumerate(home):
         if c >= 0 and best_sep[v][0] == (1 << 62):

@@ -16,6 +16,7 @@ import math
 import re
 from collections.abc import Mapping
 from functools import lru_cache
+from typing import TypeGuard
 
 import networkx as nx
 from lxml import etree
@@ -82,7 +83,7 @@ def _schema_accepts_ncname(text: str) -> bool:
     return bool(_ncname_schema().validate(element))
 
 
-def _is_number(value: object) -> bool:
+def _is_number(value: object) -> TypeGuard[int | float]:
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 

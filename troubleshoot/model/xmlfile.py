@@ -20,6 +20,7 @@ import math
 import os
 import textwrap
 from functools import lru_cache
+from typing import overload
 from importlib import resources
 from pathlib import Path
 
@@ -227,6 +228,12 @@ class _Builder:
     def child_text(self, element: etree._Element, tag: str) -> str:
         return self.text(self.child(element, tag))
 
+    @overload
+    def number(self, raw: str | None, line: int | None, what: str, default: float) -> float: ...
+
+    @overload
+    def number(self, raw: str | None, line: int | None, what: str, default: None) -> float | None: ...
+
     def number(self, raw: str | None, line: int | None, what: str, default: float | None) -> float | None:
         if raw is None:
             return default
@@ -374,7 +381,7 @@ class _Builder:
             exposure = self.number(rate_element.get("exposure-hours"), rate_line, f"basic event '{eid}' exposure", None)
             # Values are checked before any arithmetic: a negative rate would
             # overflow exp(); the validator reports it with its line.
-            if _usable_law(rate, exposure):
+            if exposure is not None and _usable_law(rate, exposure):
                 probability = exponential_probability(rate, exposure)
         else:
             self.error(
@@ -519,7 +526,7 @@ def model_to_tree(model: Model) -> etree._Element:
     tree = _sub(root, "fault-tree")
     for gate in model.gates:
         element = _sub(tree, GATE_TAGS[gate.kind], id=gate.id)
-        if gate.kind == "atleast":
+        if gate.kind == "atleast" and gate.k is not None:  # a missing k is the validator's to report
             element.set("k", str(int(gate.k)))
         if gate.kind == "or" and gate.unlisted is not None:
             element.set("unlisted-causes", _number(gate.unlisted))
@@ -536,7 +543,9 @@ def model_to_tree(model: Model) -> etree._Element:
         if event.description:
             _sub(element, "description", event.description)
         if event.rate is not None:
-            _sub(element, "failure-rate", per_hour=_number(event.rate), exposure_hours=_number(event.exposure))
+            law = _sub(element, "failure-rate", per_hour=_number(event.rate))
+            if event.exposure is not None:  # a missing exposure is the validator's to report
+                law.set("exposure-hours", _number(event.exposure))
         else:
             _sub(element, "probability", _number(event.probability))
         if event.repair is not None:

@@ -79,7 +79,7 @@ from troubleshoot.advice.repair import (
     verification_for,
     verification_of,
 )
-from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.engine.inference import AnyPosterior, Engine, Finding
 from troubleshoot.errors import SessionError
 from troubleshoot.model import DERIVED, Model
 from troubleshoot.session.actions import (
@@ -247,7 +247,7 @@ class SessionView:
     """A record with its posterior and everything derived from it (computed once, lazily)."""
 
     def __init__(self, model: Model, engine: Engine, settings: SessionSettings, record: Record,
-                 posterior: Posterior):
+                 posterior: AnyPosterior):
         self.model = model
         self.engine = engine
         self.settings = settings
@@ -501,7 +501,7 @@ class Session:
         return self._view.status
 
     @property
-    def posterior(self) -> Posterior:
+    def posterior(self) -> AnyPosterior:
         return self._view.posterior
 
     @property

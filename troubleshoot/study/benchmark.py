@@ -34,7 +34,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from troubleshoot.errors import ImpossibleFindings
+from troubleshoot.errors import ImpossibleFindings, NetworkTooLarge
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.engine.network import build_network
 from troubleshoot.study.synthetic import synthetic_model
@@ -239,6 +239,9 @@ def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats:
     engine = Engine(model)
     compile_s = time.perf_counter() - t0
     tree = engine.tree
+    if tree is None:  # the engine went over to the compiled path: no join tree to measure
+        raise NetworkTooLarge(f"{basic_events:,} basic events: the join tree does not fit in "
+                              f"{engine.memory_budget / 1024**2:.0f} MB, so its speed cannot be measured")
     findings = _findings(model, engine, seed)
     done = {f.target for f in findings}
     candidates = [c for c in model.checks if c.id not in done]

@@ -236,7 +236,7 @@ class OptimalSolution:
 def _symptom_states(enumeration: Enumeration, weights: np.ndarray):
     """Every combination of symptom outcomes with P > 0: (key, weights, probability)."""
     model = enumeration.model
-    out = [(frozenset(), weights, 1.0)]
+    out: list[tuple[frozenset[tuple[str, int]], np.ndarray, float]] = [(frozenset(), weights, 1.0)]
     for s in model.symptoms:
         nxt = []
         for key, w, p in out:

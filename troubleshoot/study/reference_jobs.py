@@ -38,7 +38,7 @@ def _pyagrum(spec: dict) -> None:
 
     bn = gum.loadBN(spec["bif"])
     evidence, variables, budget = spec["evidence"], spec["variables"], spec["budget"]
-    times = []
+    times: list[float] = []
     start = time.perf_counter()
     while len(times) < 5 and (not times or time.perf_counter() - start < budget / 4):
         ie = gum.LazyPropagation(bn)

@@ -254,12 +254,13 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
     checks = sum(1 for o in session.view.record.observations
                  if o.kind == OBSERVATION and o.finding.target not in symptom_ids)
     repairs = session.repairs
+    isolated = session.view.isolated  # set when the case ended outside the model
     return CaseResult(
         cost=float(session.view.cost_spent),
         checks=checks,
         repairs=repairs,
         first_repair_right=(repairs[0] in equipment.failed) if repairs else (
-            outcome == "outside-model" and session.view.isolated.id in equipment.failed),
+            outcome == "outside-model" and isolated is not None and isolated.id in equipment.failed),
         wrong_repairs=sum(1 for r in repairs if r not in equipment.failed),
         outcome=outcome,
     )
@@ -281,6 +282,7 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
             return "left-failed" if equipment.top_fails(session.repairs) else "confirmed"
         if status == AWAITING_VERIFICATION:
             request = view.verification_request
+            assert request is not None, "a repair awaits its verification"
             if request.target == model.top:
                 result = int(equipment.top_fails(session.repairs))
             else:

@@ -35,6 +35,7 @@ sequential problems", Annals of Statistics 5(2), 1977.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Protocol
 
 import numpy as np
@@ -193,9 +194,11 @@ class PolicyStrategy(_Deterministic):
 
 def make_strategy(name: str, optimal_policy: dict | None = None) -> Strategy:
     """The strategy called ``name``; ``optimal`` needs the policy table of :func:`troubleshoot.study.optimal.solve`."""
-    simple = {"info-per-cost": InfoPerCost, "info-per-cost-bits": InfoPerCostBitsOnly,
-              "info": MostInformative, "cheapest": Cheapest,
-              "likeliest": Likeliest, "random": RandomCheck}
+    simple: dict[str, Callable[[], Strategy]] = {
+        "info-per-cost": InfoPerCost, "info-per-cost-bits": InfoPerCostBitsOnly,
+        "info": MostInformative, "cheapest": Cheapest,
+        "likeliest": Likeliest, "random": RandomCheck,
+    }
     if name in simple:
         return simple[name]()
     if name == "optimal":

@@ -97,10 +97,10 @@ def synthetic_model(basic_events: int, seed: int = 0, repeated_rate: float = 0.1
                 causes.append(Cause(extra, rng.choice([0.5, 0.7])))
             checks.append(Check(f"t_{gate.id}", f"test subsystem {gate.id[1:]}", float(rng.choice([2, 5, 10, 20, 30])),
                                 ("normal", "abnormal"), tuple(causes), false_alarm=rng.choice([0.0, 0.01, 0.02])))
-    for ev in events:
+    for event in events:
         if rng.random() < check_rate / 10:
-            checks.append(Check(f"t_{ev.id}", f"inspect component {ev.id[2:]}", float(rng.choice([5, 10, 15])),
-                                ("normal", "abnormal"), (Cause(ev.id, 0.95),), false_alarm=0.01))
+            checks.append(Check(f"t_{event.id}", f"inspect component {event.id[2:]}", float(rng.choice([5, 10, 15])),
+                                ("normal", "abnormal"), (Cause(event.id, 0.95),), false_alarm=0.01))
     if three_outcome_share > 0:
         checks = _three_outcomes(checks, three_outcome_share, random.Random(f"three-outcomes-{seed}"))
     return Model(

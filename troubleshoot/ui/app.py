@@ -22,6 +22,7 @@ from collections.abc import Callable
 
 from textual.app import App
 from textual.binding import Binding
+from textual.notifications import SeverityLevel
 
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.session.summary import summary_markdown, summary_path
@@ -107,7 +108,7 @@ class TroubleshootApp(App[int]):
                 return screen
         return None
 
-    def say(self, message: str, severity: str = "information") -> None:
+    def say(self, message: str, severity: SeverityLevel = "information") -> None:
         """Show a message (and keep it, so tests and the summary can read what was said)."""
         self.messages.append(message)
         self.notify(message, severity=severity, markup=False, timeout=6)

@@ -15,6 +15,7 @@ from collections.abc import Iterable
 from rich.text import Text
 from textual.binding import Binding
 from textual.containers import VerticalScroll
+from textual.coordinate import Coordinate
 from textual.widgets import DataTable, Static
 
 #: Eighths of a cell, for probability bars finer than one character.
@@ -251,7 +252,7 @@ class ChecksTable(DataTable):
         """Id of the check under the cursor, or None when the table is empty."""
         if self.row_count == 0:
             return None
-        row_key, _ = self.coordinate_to_cell_key((self.cursor_row, 0))
+        row_key, _ = self.coordinate_to_cell_key(Coordinate(self.cursor_row, 0))
         return row_key.value
 
 

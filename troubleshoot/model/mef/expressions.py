@@ -302,6 +302,7 @@ class Expressions:
                 mean = deviate_mean(tag, args)
             else:
                 mean = None
+                assert tag is not None, "only elements that take arguments (see _needs) are computed"
                 result = self._arithmetic(tag, args)
         except DomainError as exc:
             self.error(line, f"<{tag}> is outside its domain: {exc}; correct its arguments")

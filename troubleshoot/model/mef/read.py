@@ -165,6 +165,7 @@ class _Reader:
     def collect_container(self, container, tree):
         for child in _children(container):
             tag = _tag(child)
+            assert tag is not None, "_children keeps elements only"
             name = child.get("name")
             if tag in _IGNORED_QUIETLY:
                 continue
@@ -195,6 +196,7 @@ class _Reader:
 
     def not_supported(self, element):
         tag = _tag(element)
+        assert tag is not None, "called on elements of _children only"
         what = _NOT_SUPPORTED[tag]
         name = element.get("name")
         named = f" '{name}'" if name else ""
@@ -728,8 +730,10 @@ class _Builder:
             return
         if isinstance(result, str):
             # A pass-through: a one-input OR is the identity (a one-input AND stays AND).
-            kind = _tag(body[0]) if _tag(body[0]) in ("and", "or") and not self._changed else "or"
-            inputs, k = (result,), None
+            first = _tag(body[0])
+            kind = first if first in ("and", "or") and not self._changed else "or"
+            inputs: tuple[str, ...] = (result,)
+            k = None
             if self._changed:
                 reader.note(element.sourceline, f"gate '{name}' reduces to its single input '{result}' "
                             "once house events are applied; kept as a one-input OR gate")
@@ -743,10 +747,11 @@ class _Builder:
             reader.note(element.sourceline, f"gate '{name}': xor has no gate of its own here and is "
                         "expressed exactly as or(and(a, not b), and(not a, b)), chained for more inputs "
                         f"({self._generated_count} gate(s) generated)")
-        condition = None
+        condition: str | None = None
         unlisted = None
         if attrs.get(ATTR_KIND) == "inhibit" and kind == "and" and len(inputs) == 2:
-            kind, inputs, condition = "inhibit", inputs[:1], inputs[1]
+            condition = inputs[1]
+            kind, inputs = "inhibit", inputs[:1]
         if kind == "or":
             kept = []
             for operand in inputs:
