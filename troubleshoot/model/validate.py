@@ -122,7 +122,8 @@ def validate_model(model: Model, path: str | None = None) -> list[Problem]:
     failure rate has an exposure time and agrees with the probability
     p = 1 - exp(-rate * exposure); costs are finite and not negative,
     symptoms cost nothing; each check has at least one cause; the mission
-    time is given for a mission-time basis. Events and gates not under the
+    time is given for a mission-time basis; an escalation (format 1.1) has a
+    label and a finite cost >= 0. Events and gates not under the
     top event are warnings.
 
     References
@@ -186,6 +187,7 @@ class _Checker:
         for symptom in self.model.symptoms:
             self.check_check(symptom, "symptom")
         self.check_verification()
+        self.check_escalation()
         self.check_cycles()
         self.check_reachability()
         return self.problems
@@ -513,6 +515,27 @@ class _Checker:
                 f"verification cost {verification.cost!r} {self.model.cost_unit} is not a finite number >= 0",
             )
         self.check_outcomes(verification.outcomes, line, "verification")
+
+    def check_escalation(self) -> None:
+        """Format 1.1: a label in words and a finite cost, 0 or more, in the model's unit."""
+        escalation = self.model.escalation
+        if escalation is None:
+            return
+        line = self.line(("escalation",), self.line(("top",)))
+        if not isinstance(escalation.label, str) or not escalation.label.strip():
+            self.error(
+                self.line(("escalation", "label"), line),
+                "the escalation has no label; say in <label> what handing the unit over means "
+                "(for example: call the manufacturer's field engineer)",
+            )
+        if not _is_cost(escalation.cost):
+            self.error(
+                line,
+                f"escalation cost {escalation.cost!r} {self.model.cost_unit} is not a finite number >= 0; "
+                "give what handing the unit over costs, in the model's cost unit",
+            )
+        if not isinstance(escalation.instructions, str):
+            self.error(line, f"escalation instructions {escalation.instructions!r} are not text; write them as text")
 
     def check_cycles(self) -> None:
         graph = nx.DiGraph()
