@@ -321,7 +321,7 @@ class CompiledModel:
         self._restrict_memo: dict[frozenset, dict] = {}
         self._evidence: dict = {}
         self._prior: dict[int, tuple[float, int]] = {}
-        self._arrays: tuple | None = None
+        self._arrays: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None = None
         self._families: dict = {}
         self._conjunctions: dict[tuple[int, ...], list[int]] = {}
         with _deep(4 * len(self.order) + 2000):
@@ -369,6 +369,7 @@ class CompiledModel:
                 pr[i] = (1.0 - p[lv]) * pr[lo] + p[lv] * pr[hi]
                 dp[i] = max(lv, dp[lo], dp[hi])
             self._arrays = (var, low, high, np.array(pr), np.array(dp, dtype=np.int64))
+        assert self._arrays is not None  # built above when nodes were added
         return self._arrays
 
     def prior(self, f: int) -> tuple[float, int]:
