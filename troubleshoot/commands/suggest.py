@@ -125,6 +125,11 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
         "settings": {"isolation_threshold": state.settings.isolation_threshold,
                      "min_bits": state.settings.min_bits, "group_min_p": state.settings.group_min_p},
         "cautions": list(state.cautions),
+        "decision": state.decision.to_dict() if state.decision is not None else None,
+        "outside_model_p": state.outside_model_p,
+        "outside_model_by_gate": dict(state.outside_model_by_gate),
+        "escalation": ({"label": model.escalation.label, "cost": model.escalation.cost,
+                        "instructions": model.escalation.instructions} if model.escalation is not None else None),
     }
 
 
@@ -184,6 +189,20 @@ def render_text(session: Session) -> str:
                      f"{v.outcomes[1]!r})")
     if state.next_check:
         lines.append(f"Next check: {state.next_check.check} ({state.next_check.label})")
+    if state.outside_model_by_gate:
+        lines.append(f"Cause outside the model: P = {state.outside_model_p:.3f} ("
+                     + ", ".join(f"under {g} {p:.3f}" for g, p in state.outside_model_by_gate) + ")")
+    d = state.decision
+    if d is not None:
+        target = f" {d.target}" if d.target else ""
+        cost = f", expected {d.expected_cost:.1f} {unit} to finish" if d.expected_cost is not None else ""
+        lines.append(f"Decision: {d.action}{target}{cost}")
+        for r in d.reasons:
+            lines.append(f"  why: {r.text}")
+        others = [a for a in d.alternatives if (a.action, a.target) != (d.action, d.target)]
+        for a in others:
+            price = f"{a.expected_cost:.1f} {unit}" if a.expected_cost is not None else "no price in the model"
+            lines.append(f"  instead: {a.action}{' ' + a.target if a.target else ''}: {price}")
     for caution in state.cautions:
         lines.append(f"CAUTION: {caution}")
     return "\n".join(lines) + "\n"

@@ -147,6 +147,7 @@ class _Checker:
         for symptom in self.model.symptoms:
             self.check_check(symptom, "symptom")
         self.check_verification()
+        self.check_escalation()
         self.check_cycles()
         self.check_reachability()
         return self.problems
@@ -474,6 +475,23 @@ class _Checker:
                 f"verification cost {verification.cost!r} {self.model.cost_unit} is not a finite number >= 0",
             )
         self.check_outcomes(verification.outcomes, line, "verification")
+
+    def check_escalation(self) -> None:
+        escalation = self.model.escalation
+        if escalation is None:
+            return
+        line = self.line(("escalation",), self.line(("top",)))
+        if not _is_cost(escalation.cost):
+            self.error(line, f"escalation cost {escalation.cost!r} {self.model.cost_unit} is not a finite number "
+                             ">= 0; give what handing the unit over costs")
+        if not (escalation.label or "").strip():
+            self.error(line, "the escalation has no <label>; say in words what escalating means "
+                             "(\"call the manufacturer's field engineer\", \"swap the whole unit\")")
+        costs = [e.repair.cost for e in self.model.basic_events if e.repair is not None and _is_cost(e.repair.cost)]
+        if costs and _is_cost(escalation.cost) and escalation.cost < max(costs):
+            self.warning(line, f"escalation costs {escalation.cost:g} {self.model.cost_unit}, less than the most "
+                               f"expensive repair ({max(costs):g} {self.model.cost_unit}); a specialist's visit or "
+                               "a unit swap usually costs at least as much")
 
     def check_cycles(self) -> None:
         graph = nx.DiGraph()

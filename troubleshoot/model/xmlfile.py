@@ -32,6 +32,7 @@ from troubleshoot.model import (
     BasicEvent,
     Cause,
     Check,
+    Escalation,
     Gate,
     Model,
     Repair,
@@ -156,7 +157,7 @@ def _root_problems(root: etree._Element, name: str) -> list[Problem]:
         ]
     if version.strip() == "1.0":
         # The elements of version 1.1 say something a 1.0 file cannot.
-        for tag in ("abnormal", "shows", "false-alarm"):
+        for tag in ("abnormal", "shows", "false-alarm", "escalation"):
             for element in root.iter(tag):
                 return [Problem(name, element.sourceline,
                                 f"<{tag}> belongs to format version 1.1; write format-version=\"1.1\" "
@@ -200,6 +201,7 @@ class _Builder:
         self.name = name
         self.problems: list[Problem] = []
         self.lines: dict[tuple, int] = {}
+        self.escalation: Escalation | None = None
 
     # -- small readers ---------------------------------------------------
     def error(self, line: int | None, message: str) -> None:
@@ -273,6 +275,7 @@ class _Builder:
             symptoms=tuple(symptoms),
             top_label=top_label,
             verification=verification,
+            escalation=self.escalation,
             source=self.name,
             **fields,
         )
@@ -319,6 +322,14 @@ class _Builder:
                 cost=self.number(found.get("cost"), found.sourceline, "verification cost", 0.0),
                 instructions=self.child_text(found, "instructions"),
                 outcomes=self.outcomes(outcomes) if outcomes is not None else ("works", "still fails"),
+            )
+        found = self.child(element, "escalation")
+        if found is not None:
+            self.lines[("escalation",)] = found.sourceline
+            self.escalation = Escalation(
+                label=self.child_text(found, "label"),
+                cost=self.number(found.get("cost"), found.sourceline, "escalation cost", 0.0),
+                instructions=self.child_text(found, "instructions"),
             )
         return (element.get("ref") or "").strip(), self.child_text(element, "label"), verification
 
@@ -507,6 +518,12 @@ def model_to_tree(model: Model) -> etree._Element:
         if v.instructions:
             _sub(element, "instructions", v.instructions)
         _sub(element, "outcomes", normal=v.outcomes[0], abnormal=v.outcomes[1])
+    if model.escalation is not None:
+        e = model.escalation
+        element = _sub(top, "escalation", cost=_number(e.cost))
+        _sub(element, "label", e.label)
+        if e.instructions:
+            _sub(element, "instructions", e.instructions)
 
     tree = _sub(root, "fault-tree")
     for gate in model.gates:
