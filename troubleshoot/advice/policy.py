@@ -57,7 +57,14 @@ from dataclasses import dataclass, replace
 
 from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, isolated_suspect, suspects
 from troubleshoot.advice.ranking import Ranking, RankRow, rank
-from troubleshoot.advice.repair import RepairPlan, VerificationRequest, repair_plan
+from troubleshoot.advice.repair import (
+    RepairPlan,
+    VerificationRequest,
+    repair_cost,
+    repair_plan,
+    top_verification,
+    verification_cost,
+)
 from troubleshoot.engine.inference import Engine, Finding, Posterior
 from troubleshoot.errors import ImpossibleFindings, SessionError
 from troubleshoot.model import DERIVED, Model
@@ -197,6 +204,21 @@ def outside_model(engine: Engine, posterior: Posterior) -> OutsideModel:
 def escalation_price(model: Model) -> float | None:
     """What escalating costs in the model's unit, or None when the model gives no price."""
     return None if model.escalation is None else float(model.escalation.cost)
+
+
+def escalation_charge(model: Model) -> float:
+    """What an escalation is charged in a study (simulation, exact policy), in the model's unit.
+
+    The model's price when it gives one; otherwise its dearest repair with
+    that repair's verification (at least the verification of the unit), a
+    stand-in so that handing a unit over is never free in a comparison of
+    strategies. The live tool never chooses an unpriced escalation by cost.
+    """
+    if model.escalation is not None:
+        return float(model.escalation.cost)
+    costs = [repair_cost(model, e.id) + verification_cost(model, e.id)
+             for e in model.basic_events if e.repair is not None]
+    return max(costs, default=top_verification(model).cost)
 
 
 def finish_plan(model: Model, ranked: tuple[Suspect, ...], settings: Settings) -> RepairPlan:

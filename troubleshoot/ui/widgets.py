@@ -147,8 +147,26 @@ def repair_order_lines(state, limit: int | None = None) -> list[str]:
     return lines
 
 
+def escalation_lines(state) -> list[str]:
+    """The policy's word on handing the unit over: the reason and the price, when it says so."""
+    d = getattr(state, "decision", None)
+    lines = []
+    if d is not None and d.action == "escalate":
+        price = (f" ({cost_text(d.expected_cost, state.cost_unit)})" if d.expected_cost is not None else "")
+        lines.append(f"HAND THE UNIT OVER{price}: {d.reasons[0].text if d.reasons else ''}. Key e records it.")
+    elif getattr(state, "outside_model_p", 0.0) >= 0.05:
+        lines.append(f"Cause outside the model: P {percent(state.outside_model_p)} (key e hands the unit over).")
+    return lines
+
+
 def diagnosis_text(state) -> str:
     """What the diagnosis says now, in words, with what to do next."""
+    text = _diagnosis_text(state)
+    extra = escalation_lines(state)
+    return "\n".join(extra + [text]) if extra else text
+
+
+def _diagnosis_text(state) -> str:
     unit = state.cost_unit
     word = STATUS_WORDS.get(state.status, state.status)
     if state.status == "diagnosing":
