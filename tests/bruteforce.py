@@ -8,17 +8,26 @@ findings. Small models only (n up to about 16).
 
 Semantics it encodes (the contract the engine must meet):
 - roots are independent with their priors;
-- a gate is a deterministic function of its operands; an OR gate with
-  unlisted causes also reads its unlisted-cause root;
+- a gate is a deterministic function of its operands, looked up in a truth
+  table per gate kind written from faulttrees/FORMAT.md ("occurs when");
+  an OR gate with unlisted causes also reads its unlisted-cause root;
 - a finding made after the j-th repair (epoch j) sees the equipment with the
   first j repaired roots working, all other roots as they were;
-- a check's abnormal outcome has probability
-  1 - (1 - false_alarm) * prod over causes present (1 - detection);
+- a check (faulttrees/FORMAT.md, "checks with more than two outcomes"):
+  each present cause independently produces one abnormal outcome with the
+  probability it gives for it, or nothing; the false alarm does the same
+  whatever the causes; the check shows, of the outcomes produced, the one
+  listed last, and the normal outcome when none is produced. With two
+  outcomes that is P(abnormal) = 1 - (1 - false_alarm) * prod over causes
+  present (1 - detection). Enumerated here over every combination of what
+  each source produces, never through cumulative probabilities;
 - a finding on an event or gate id is an exact observation (0 ok, 1 failed).
 """
 
 from __future__ import annotations
 
+import functools
+import itertools
 import math
 
 import numpy as np
@@ -37,36 +46,88 @@ def root_states(model: Model) -> tuple[list[str], np.ndarray, np.ndarray]:
     return roots, states, weight
 
 
+# ---------------------------------------------------------------- gates
+# One truth table per gate kind, written from faulttrees/FORMAT.md, section
+# "Gates", column "occurs when" (never from the product's code). Each rule
+# takes the tuple of its operands' values (True = occurs) in the order
+# `gate_operands` lists them and says whether the gate occurs.
+
+#: <and-gate>: "all inputs occur".
+def _and_rule(values, gate):
+    return all(values)
+
+
+#: <or-gate>: "any input occurs"; with unlisted-causes="p" the gate also occurs
+#: "through causes outside the model", the unlisted-cause root, listed last.
+def _or_rule(values, gate):
+    return any(values)
+
+
+#: <atleast-gate k="2">: "at least k of the inputs occur".
+def _atleast_rule(values, gate):
+    return sum(values) >= gate.k
+
+
+#: <not-gate>: "the input does not occur" (exactly one input).
+def _not_rule(values, gate):
+    (value,) = values
+    return not value
+
+
+#: <inhibit-gate>: "the input occurs while the condition event holds"
+#: (one input, then the condition, listed last).
+def _inhibit_rule(values, gate):
+    value, condition = values
+    return value and condition
+
+
+GATE_RULES = {"and": _and_rule, "or": _or_rule, "atleast": _atleast_rule, "not": _not_rule,
+              "inhibit": _inhibit_rule}
+
+
+def gate_operands(gate) -> tuple[str, ...]:
+    """What a gate reads, from FORMAT.md: its inputs, the INHIBIT condition, the OR unlisted-cause root."""
+    operands = tuple(gate.inputs)
+    if gate.kind == "inhibit":
+        operands += (gate.condition,)
+    if gate.kind == "or" and gate.unlisted is not None:
+        operands += (unlisted_id(gate.id),)
+    return operands
+
+
+@functools.cache
+def truth_table(gate) -> np.ndarray:
+    """The gate's value for every combination of its operands, row b = sum_i value_i * 2^i."""
+    m = len(gate_operands(gate))
+    rule = GATE_RULES[gate.kind]
+    return np.array([bool(rule(tuple(bool(code >> i & 1) for i in range(m)), gate)) for code in range(2**m)])
+
+
 def evaluate(model: Model, states: np.ndarray, roots: list[str], repaired: set[str]) -> dict:
-    """Value of every root and gate for each state row, given repaired roots."""
+    """Value of every root and gate for each state row, given repaired roots.
+
+    A repaired root is working. Each gate is looked up in its truth table
+    (:func:`truth_table`) once all its operands have values; the gates are
+    swept until none is left, so no order and no recursion is needed.
+    """
     value: dict[str, np.ndarray] = {}
     for i, r in enumerate(roots):
         value[r] = np.zeros(len(states), bool) if r in repaired else states[:, i]
-
-    def of(node: str) -> np.ndarray:
-        if node in value:
-            return value[node]
-        gate = model.gate_by_id[node]
-        ins = [of(x) for x in gate.inputs]
-        if gate.kind == "and":
-            v = np.logical_and.reduce(ins)
-        elif gate.kind == "or":
-            v = np.logical_or.reduce(ins)
-            if gate.unlisted is not None:
-                v = v | of(unlisted_id(gate.id))
-        elif gate.kind == "atleast":
-            v = np.sum(ins, axis=0) >= gate.k
-        elif gate.kind == "not":
-            v = ~ins[0]
-        elif gate.kind == "inhibit":
-            v = ins[0] & of(gate.condition)
-        else:
-            raise ValueError(gate.kind)
-        value[node] = v
-        return v
-
-    for g in model.gates:
-        of(g.id)
+    pending = list(model.gates)
+    while pending:
+        waiting = []
+        for gate in pending:
+            operands = gate_operands(gate)
+            if not all(x in value for x in operands):
+                waiting.append(gate)
+                continue
+            code = np.zeros(len(states), dtype=np.int64)
+            for i, x in enumerate(operands):
+                code |= value[x].astype(np.int64) << i
+            value[gate.id] = truth_table(gate)[code]
+        if len(waiting) == len(pending):
+            raise ValueError("the gates form a cycle")
+        pending = waiting
     return value
 
 
@@ -74,12 +135,35 @@ def likelihood(model: Model, values_by_epoch: list[dict], finding) -> np.ndarray
     """P(finding | root state) for each state row."""
     value = values_by_epoch[finding.epoch]
     if finding.target in model.check_by_id:
-        check = model.check_by_id[finding.target]
-        p_normal = np.full(len(next(iter(value.values()))), 1.0 - check.false_alarm)
-        for cause in check.causes:
-            p_normal = p_normal * np.where(value[cause.target], 1.0 - cause.detection, 1.0)
-        return p_normal if finding.outcome == 0 else 1.0 - p_normal
+        return outcome_table(model.check_by_id[finding.target], value)[:, finding.outcome]
     return (value[finding.target] == bool(finding.outcome)).astype(float)
+
+
+def _produces(check, pairs, total) -> list[tuple[int, float]]:
+    """(outcome index, probability) of what one source produces; index 0 is "nothing"."""
+    if pairs:
+        out = [(check.outcomes.index(name), p) for name, p in pairs]
+    else:  # a two-outcome check with one number
+        out = [(1, total)]
+    return [(0, 1.0 - sum(p for _, p in out))] + out
+
+
+def outcome_table(check, value: dict) -> np.ndarray:
+    """P(outcome | root state), shape (rows, K), by enumerating what every source produces."""
+    rows = len(next(iter(value.values())))
+    sources = [(_produces(check, check.leak, check.false_alarm), np.ones(rows, bool))]
+    sources += [(_produces(check, c.shows, c.detection), value[c.target]) for c in check.causes]
+    table = np.zeros((rows, len(check.outcomes)))
+    for combo in itertools.product(*(options for options, _ in sources)):
+        p = np.ones(rows)
+        shown = np.zeros(rows, dtype=int)
+        for (index, q), (_, present) in zip(combo, sources):
+            # An absent cause produces nothing, surely.
+            p = p * np.where(present, q, 1.0 if index == 0 else 0.0)
+            # Outcomes are listed normal first, then weakest to strongest: the largest index shows.
+            shown = np.maximum(shown, np.where(present, index, 0))
+        np.add.at(table, (np.arange(rows), shown), p)
+    return table
 
 
 def posterior(model: Model, findings, repairs=()):
@@ -128,17 +212,27 @@ def check_information_bits(model: Model, findings, repairs, check_id: str) -> fl
 
     post = posterior(model, findings, repairs)
     joint = post["joint"]
-    f = SimpleNamespace(target=check_id, outcome=1, epoch=len(repairs))
-    p_abn = likelihood(model, post["values"], f)
-    h_t_given_f = float(np.sum(joint * _h2(p_abn)))
-    p_t = float(np.sum(joint * p_abn))
-    return float(_h2(np.array([p_t]))[0]) - h_t_given_f
+    table = np.stack([likelihood(model, post["values"], SimpleNamespace(target=check_id, outcome=o,
+                                                                         epoch=len(repairs)))
+                      for o in range(len(model.check_by_id[check_id].outcomes))], axis=1)
+    # I(F;T) = H(T) - H(T|F) (Cover & Thomas 2006), over every outcome.
+    with np.errstate(divide="ignore", invalid="ignore"):
+        h_rows = -np.where(table > 0, table * np.log2(np.where(table > 0, table, 1.0)), 0.0).sum(axis=1)
+    h_t_given_f = float(joint @ h_rows)
+    return entropy_bits(joint @ table) - h_t_given_f
 
 
-def _h2(p: np.ndarray) -> np.ndarray:
-    p = np.clip(p, 0.0, 1.0)
-    out = np.zeros_like(p, dtype=float)
-    m = (p > 0) & (p < 1)
-    q = p[m]
-    out[m] = -(q * np.log2(q) + (1 - q) * np.log2(1 - q))
-    return out
+def noise_free_outcome(check, present) -> int:
+    """The outcome index a check reads when every present cause shows its most likely reading.
+
+    ``present(target)`` says whether a cause is present. Each present cause
+    gives its most likely abnormal outcome (the later listed on a tie); of
+    those, the check reads the one listed last (faulttrees/FORMAT.md); none,
+    the normal outcome (index 0).
+    """
+    shown = 0
+    for cause in check.causes:
+        if present(cause.target):
+            gives = [(p, check.outcomes.index(name)) for name, p in cause.shows] or [(cause.detection, 1)]
+            shown = max(shown, max(gives)[1])
+    return shown

@@ -3,7 +3,7 @@
 ``models()`` draws small valid :class:`~troubleshoot.model.Model` objects:
 every gate kind (AND, OR, at-least-k, NOT, INHIBIT), events and gates feeding
 several gates (repeated events), OR gates with unlisted causes, checks with
-several causes, symptoms, repairs (some verified by a check), rates with
+several causes and two to four outcomes (format 1.0 and 1.1 forms), symptoms, repairs (some verified by a check), rates with
 exposure times, and text that needs escaping in XML. Every event and gate
 lies under the top event, so a drawn model has no warnings either.
 """
@@ -56,6 +56,23 @@ def outcome_pairs(draw) -> tuple[str, str]:
     normal = draw(one_line(max_size=12))
     abnormal = draw(one_line(max_size=12).filter(lambda s: s != normal))
     return (normal, abnormal)
+
+
+@st.composite
+def outcome_lists(draw, max_outcomes: int = 4) -> tuple[str, ...]:
+    """K = 2..max_outcomes different names, the normal one first (format 1.1)."""
+    return tuple(draw(st.lists(one_line(max_size=12), min_size=2, max_size=max_outcomes, unique=True)))
+
+
+@st.composite
+def distributions(draw, abnormal: tuple[str, ...]) -> tuple[tuple[str, float], ...]:
+    """(abnormal outcome, probability) pairs, each outcome at most once, summing to at most 1."""
+    names = draw(st.lists(st.sampled_from(abnormal), min_size=1, max_size=len(abnormal), unique=True))
+    ps = [draw(probabilities) for _ in names]
+    total = sum(ps)
+    if total > 1.0:
+        ps = [p / total * (1.0 - 1e-9) for p in ps]
+    return tuple(zip(names, ps))
 
 
 @st.composite
@@ -131,13 +148,22 @@ def models(draw, max_events: int = 6, max_gates: int = 5, max_checks: int = 4, m
 
     def check(cid: str, cost: float) -> Check:
         targets = draw(st.lists(st.sampled_from(nodes), min_size=1, max_size=3, unique=True))
+        if draw(st.booleans()):  # format 1.0: two outcomes, one number per cause
+            outcomes = draw(outcome_pairs())
+            causes = tuple(Cause(t, draw(probabilities)) for t in targets)
+            false_alarm, leak = draw(st.floats(min_value=0.0, max_value=0.5)), ()
+        else:  # format 1.1: K outcomes, a distribution per cause and for the false alarm
+            outcomes = draw(outcome_lists())
+            causes = tuple(Cause(t, shows=draw(distributions(outcomes[1:]))) for t in targets)
+            false_alarm, leak = 0.0, draw(st.just(()) | distributions(outcomes[1:]))
         return Check(
             id=cid,
             label=draw(one_line()),
             cost=cost,
-            outcomes=draw(outcome_pairs()),
-            causes=tuple(Cause(t, draw(probabilities)) for t in targets),
-            false_alarm=draw(st.floats(min_value=0.0, max_value=0.5)),
+            outcomes=outcomes,
+            causes=causes,
+            false_alarm=false_alarm,
+            leak=leak,
             instructions=draw(paragraph()),
             caution=draw(st.none() | one_line()),
         )

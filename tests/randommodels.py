@@ -9,8 +9,13 @@ from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair
 
 
 def random_model(seed: int, n_events: int = 6, n_gates: int = 5, n_checks: int = 4,
-                 tiny: bool = False) -> Model:
-    """A random valid model; gates only read earlier gates, so it is acyclic."""
+                 tiny: bool = False, max_outcomes: int = 2) -> Model:
+    """A random valid model; gates only read earlier gates, so it is acyclic.
+
+    With ``max_outcomes`` above 2 each check has 2..max_outcomes outcomes
+    (format 1.1: a distribution over the abnormal outcomes per cause and for
+    the false alarm); at 2 the draws, and so the models, are those of before.
+    """
     rng = random.Random(seed)
     events = []
     for i in range(n_events):
@@ -45,8 +50,32 @@ def random_model(seed: int, n_events: int = 6, n_gates: int = 5, n_checks: int =
     targets = [e.id for e in events] + [g.id for g in gates]
     checks = []
     for c in range(n_checks):
+        if max_outcomes > 2:
+            checks.append(_graded_check(rng, c, targets, rng.randint(2, max_outcomes)))
+            continue
         causes = tuple(Cause(t, rng.choice([1.0, 0.9, 0.6])) for t in rng.sample(targets, rng.randint(1, 3)))
         checks.append(Check(f"c{c}", f"check {c}", rng.randint(1, 20), ("normal", "abnormal"), causes,
                             false_alarm=rng.choice([0.0, 0.01, 0.1])))
     return Model(name=f"random{seed}", top="top", gates=tuple(gates), basic_events=tuple(events),
                  checks=tuple(checks))
+
+
+def _split(rng: random.Random, abnormal: tuple[str, ...], total: float) -> tuple[tuple[str, float], ...]:
+    """``total`` spread over a random non-empty subset of the abnormal outcomes.
+
+    The pieces are multiples of 1/64 of ``total`` and the last is what is
+    left, so a total of 1 is met exactly: P(normal) is then exactly 0, not
+    a rounding residue of 1e-16 that no two summation orders agree on.
+    """
+    names = rng.sample(abnormal, rng.randint(1, len(abnormal)))
+    cuts = sorted(rng.randint(1, 63) for _ in names[1:])
+    pieces = [b - a for a, b in zip([0] + cuts, cuts + [64])]
+    return tuple((name, total * piece / 64) for name, piece in zip(names, pieces))
+
+
+def _graded_check(rng: random.Random, c: int, targets: list[str], k: int) -> Check:
+    outcomes = ("normal",) + tuple(f"level {j}" for j in range(1, k))
+    causes = tuple(Cause(t, shows=_split(rng, outcomes[1:], rng.choice([1.0, 0.9, 0.6])))
+                   for t in rng.sample(targets, rng.randint(1, 3)))
+    leak = _split(rng, outcomes[1:], rng.choice([0.01, 0.1])) if rng.random() < 0.7 else ()
+    return Check(f"c{c}", f"check {c}", rng.randint(1, 20), outcomes, causes, leak=leak)

@@ -130,23 +130,68 @@ def test_bad_option_values_exit_2(capsys, small_model_file):
     assert info.value.code == 2
 
 
-def test_too_many_cut_sets_is_refused_with_exit_2(capsys, tmp_path, monkeypatch):
+def test_a_family_too_long_to_list_is_truncated_with_a_bound_never_refused(capsys, tmp_path, monkeypatch):
     from troubleshoot.model import xmlfile as modelfile
-    import troubleshoot.analysis.cutsets as cutsets
+    import troubleshoot.analysis.figures as figures
 
-    priors = {f"e{i}": 0.01 for i in range(10)}
-    model = tree("t", [Gate("t", "", "atleast", tuple(priors), k=3)], priors)  # C(10,3) = 120 sets
+    # 3-of-10 voting with unequal priors: C(10,3) = 120 minimal cut sets (binomial count).
+    priors = {f"e{i}": 0.01 * (i + 1) for i in range(10)}
+    model = tree("t", [Gate("t", "", "atleast", tuple(priors), k=3)], priors)
     path = tmp_path / "vote.xml"
     modelfile.save_model(model, path)
-    monkeypatch.setattr(cutsets, "DEFAULT_LIST_LIMIT", 100)
+    monkeypatch.setattr(figures, "COMPLETE_LIST_LIMIT", 100)
+    monkeypatch.setattr(figures, "DEFAULT_SHOWN", 7)
     status, out, err = run_cli(capsys, path, "--json")
-    assert status == 2 and out == ""
-    assert "120 minimal cut sets" in err and "--min-probability" in err
-    # probability truncation keeps it in bounds: every set has probability 1e-6
-    status, out, err = run_cli(capsys, path, "--json", "--min-probability", "1e-5")
+    assert status == 0, err
+    doc = strict_json(out)
+    # Brute force from the definition: every 3-subset is a minimal cut set, P = product of its priors.
+    every = sorted((math.prod(priors[e] for e in c) for c in itertools.combinations(priors, 3)), reverse=True)
+    assert doc["cut_set_count"] == 120 and doc["truncated"] is True
+    assert [c["p"] for c in doc["cut_sets"]] == pytest.approx(every[:7], rel=1e-12)
+    assert doc["truncation"]["dropped_probability_bound"] == pytest.approx(sum(every[7:]), rel=1e-12)
+    assert doc["top_event"]["rare_event"] == pytest.approx(sum(every), rel=1e-12)
+    # NUREG-0492 ch. VII: MCUB = 1 - prod(1 - P(MCS)) over every set.
+    assert doc["top_event"]["mcub"] == pytest.approx(1 - math.prod(1 - p for p in every), rel=1e-12)
+    assert doc["peak_memory_mib"] > 0
+    # probability truncation below every set keeps none and says so
+    status, out, err = run_cli(capsys, path, "--json", "--min-probability", "1")
     doc = strict_json(out)
     assert status == 0 and doc["cut_sets"] == [] and doc["truncated"] is True
-    assert doc["truncation"]["dropped_probability_bound"] == pytest.approx(120 * 1e-6)
+    assert doc["truncation"]["dropped_probability_bound"] == pytest.approx(sum(every), rel=1e-12)
+
+
+def test_all_cut_sets_streams_every_set_to_a_file(capsys, tmp_path, small_model_file):
+    target = tmp_path / "all.tsv"
+    status, out, err = run_cli(capsys, small_model_file, "--all-cut-sets", target)
+    assert status == 0, err
+    rows = [line.split("\t") for line in target.read_text().splitlines() if not line.startswith("#")]
+    # (A + B.C) + leak: the sets {A}, {B, C}, {leak} (Boolean absorption, NUREG-0492 ch. VII).
+    assert sorted(tuple(r[2].split()) for r in rows) == sorted([("A",), ("B", "C"), (unlisted_id("t"),)])
+    assert f"written to {target}" in out
+
+
+def test_a_generated_tree_with_over_10_8_cut_sets_is_analysed(capsys, tmp_path):
+    from troubleshoot.model.xmlfile import save_model
+    from troubleshoot.study.hardtrees import many_cut_sets_model
+
+    model = many_cut_sets_model(300, seed=1)
+    path = tmp_path / "big.xml"
+    save_model(model, path)
+    status, out, err = run_cli(capsys, path, "--json")
+    assert status == 0, err
+    doc = strict_json(out)
+    assert doc["cut_set_count"] > 10**8 and doc["truncated"] is True
+    # The exact probability: pyAgrum's LazyPropagation on the same tree (reference library).
+    assert doc["top_event"]["exact"] == pytest.approx(pyagrum_top_probability(model), abs=1e-12)
+    assert len(doc["importance"]) == len(model.hypotheses)
+    ps = [c["p"] for c in doc["cut_sets"]]
+    assert len(ps) == 1000 and ps == sorted(ps, reverse=True)
+    assert doc["truncation"]["dropped_probability_bound"] == pytest.approx(
+        doc["top_event"]["rare_event"] - math.fsum(ps), rel=1e-9)
+    assert doc["top_event"]["exact"] <= doc["top_event"]["mcub"] + 1e-15  # coherent tree: MCUB bounds P(top)
+    assert doc["peak_memory_mib"] > 0
+    status, out, _ = run_cli(capsys, path)
+    assert "Peak memory:" in out and "MiB" in out and "most probable" in out
 
 
 # --------------------------------------------------------------------------- benchmarks

@@ -41,7 +41,7 @@ def test_default_demo_is_the_rooftop_unit():
 def test_rooftop_sizes_and_features():
     model, _ = load("rooftop")
     assert 12 <= len(model.basic_events) <= 18
-    assert 8 <= len(model.checks) <= 12
+    assert 8 <= len(model.checks) <= 14
     assert 2 <= len(model.symptoms) <= 3
     assert any(g.kind == "or" and g.unlisted is not None for g in model.gates)
     assert repeated_events(model)
@@ -59,6 +59,16 @@ def test_booster_sizes_and_features():
     # The transmitter feeds the controller; control power feeds every pump and the controller.
     assert "pressure_signal_wrong" in model.gate_by_id["control_fault"].inputs
     assert "control_power_lost" in repeated_events(model)
+
+
+@pytest.mark.parametrize("demo", sorted(DEMOS))
+def test_each_demo_has_at_least_two_three_outcome_measurements(demo):
+    # Issue 12: real readings such as low / normal / high (format 1.1).
+    model, _ = load(demo)
+    graded = [c for c in model.checks if len(c.outcomes) == 3]
+    assert len(graded) >= 2
+    for check in graded:
+        assert all(c.shows for c in check.causes) and check.leak, check.id
 
 
 @pytest.mark.parametrize("demo", sorted(DEMOS))

@@ -28,7 +28,7 @@ def _random_findings(model: Model, rng: random.Random, repairs: tuple[str, ...])
     findings = [Finding(model.top, 1, 0)]
     for epoch in range(len(repairs) + 1):
         for check in rng.sample(list(model.checks), min(2, len(model.checks))):
-            findings.append(Finding(check.id, rng.randint(0, 1), epoch))
+            findings.append(Finding(check.id, rng.randrange(len(check.outcomes)), epoch))
         if epoch:
             findings.append(Finding(model.top, rng.randint(0, 1), epoch))
     return findings
@@ -218,7 +218,7 @@ def test_too_large_is_refused_before_allocation():
     checks = (Check("all", "all", 1.0, ("n", "a"), tuple(Cause(e.id, 0.9) for e in events)),)
     model = Model(name="huge", top="top", gates=gates, basic_events=events, checks=checks)
     with pytest.raises(NetworkTooLarge) as err:
-        Engine(model, memory_budget=64 * 1024**2)
+        Engine(model, memory_budget=64 * 1024**2, kind="join tree")
     text = str(err.value)
     assert "width 30" in text and "MiB" in text and "e0" in text
 
@@ -244,7 +244,7 @@ def _reference_models():
 
 def _random_check_findings(model, rng, count):
     checks = list(model.checks + model.symptoms)
-    return [Finding(c.id, rng.randint(0, 1)) for c in rng.sample(checks, min(count, len(checks)))]
+    return [Finding(c.id, rng.randrange(len(c.outcomes))) for c in rng.sample(checks, min(count, len(checks)))]
 
 
 def _consistent_findings(engine, model, rng):

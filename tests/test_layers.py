@@ -17,6 +17,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "troubleshoot"
 #: (its own room included). Top-level modules are ranked by what they are.
 RANK = {
     "errors": 0,
+    "files": 0,
     "model": 1,
     "engine": 2,
     "advice": 3,

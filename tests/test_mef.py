@@ -21,7 +21,7 @@ from conftest import aralia_path
 
 from troubleshoot import cli
 from troubleshoot.errors import ModelError
-from troubleshoot.model.mef.read import DEFAULT_MISSION_TIME_HOURS, read_mef, write_mef
+from troubleshoot.model.mef import DEFAULT_MISSION_TIME_HOURS, read_mef, write_mef
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, exponential_probability
 
 FILES = Path(__file__).resolve().parent / "mef_files"

@@ -198,7 +198,9 @@ def test_entity_from_an_external_dtd_is_refused(tmp_path):
     )
     with pytest.raises(ModelError) as caught:
         parse_xml_file(path)
-    assert caught.value.problems[0].line == 4
+    # Issue 17: any DOCTYPE naming an external DTD is refused at its own line, before parsing.
+    assert caught.value.problems[0].line == 2
+    assert "external DTD" in caught.value.problems[0].message and "local.dtd" in caught.value.problems[0].message
     assert "SECRET" not in caught.value.problems[0].message
 
 

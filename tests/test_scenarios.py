@@ -45,14 +45,14 @@ def load_demo(name: str):
 
 
 def noise_free_outcomes(model, faults, repairs) -> dict[str, str]:
-    """What each check reads with these faults when every cause shows (bruteforce.evaluate)."""
+    """What each check reads with these faults when every cause shows its most likely
+    reading (bruteforce.evaluate and bruteforce.noise_free_outcome)."""
     roots = list(model.hypotheses)
     states = np.array([[r in faults for r in roots]])
     value = bf.evaluate(model, states, roots, set(repairs))
     out = {}
     for check in model.checks + model.symptoms:
-        abnormal = any(bool(value[c.target][0]) for c in check.causes)
-        out[check.id] = check.outcomes[int(abnormal)]
+        out[check.id] = check.outcomes[bf.noise_free_outcome(check, lambda t: bool(value[t][0]))]
     out[model.top] = bool(value[model.top][0])
     return out
 

@@ -265,5 +265,5 @@ def test_doing_the_verify_check_records_the_verification():
     s = Session(pump_model())
     s.record_repair("impeller")
     s.record_finding("flow", "flow normal")  # the impeller repair's verify check
-    assert s.actions[-1] == {"action": "verify", "outcome": "flow normal"}
+    assert s.actions[-1].to_record() == {"action": "verify", "outcome": "flow normal"}
     assert s.status == AWAITING_VERIFICATION and s.state.verification.target == s.model.top

@@ -63,8 +63,11 @@ def test_start_in_tmux_shows_the_top_check_and_quits_with_status_0(tmp_path):
         _wait_for(lambda: "Begin" in screen(), "the start screen")
         assert "lockout/tagout" in screen()
         _tmux(socket, "send-keys", "-t", "ui", "b")
-        # The table cuts a long label to its column: look for its first 20 characters.
-        _wait_for(lambda: top_label[:20] in screen(), f"the top-ranked check {top_label!r}")
+        # The table cuts a long label to its column: look for its first 20 characters, on the
+        # main screen (a symptom's label is on the start screen too, where a quit key pressed
+        # while the symptoms are still being recorded is refused as "still working").
+        _wait_for(lambda: "Next checks" in screen() and top_label[:20] in screen(),
+                  f"the top-ranked check {top_label!r}")
         _tmux(socket, "send-keys", "-t", "ui", "q")
         status = _wait_for(lambda: status_file.exists() and status_file.read_text().strip(), "the exit status")
         assert status == "0"

@@ -88,3 +88,11 @@ class SessionError(TroubleshootError):
 
 class LogError(TroubleshootError):
     """A session log cannot be read, replayed or resumed."""
+
+
+class InputError(TroubleshootError):
+    """An input file cannot be used: missing, unreadable, not a regular file, or too large."""
+
+
+class OutputError(TroubleshootError):
+    """An output cannot be written where asked: a refused path, a missing folder, a full disk."""

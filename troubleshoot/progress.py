@@ -14,7 +14,15 @@ import time
 from typing import TextIO
 
 from rich.console import Console
-from rich.progress import BarColumn, MofNCompleteColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
+from rich.progress import (
+    BarColumn,
+    MofNCompleteColumn,
+    Progress,
+    SpinnerColumn,
+    TaskID,
+    TextColumn,
+    TimeElapsedColumn,
+)
 
 #: Seconds between two plain lines when standard error is not a terminal.
 PLAIN_INTERVAL_S = 5.0
@@ -50,7 +58,7 @@ class ProgressDisplay:
         self.started = time.monotonic()
         self.terminal = bool(getattr(self.stream, "isatty", lambda: False)())
         self._live: Progress | None = None
-        self._task = None
+        self._task: TaskID | None = None
         self._last_plain = -PLAIN_INTERVAL_S
         self._text = ""
         self._done: int | None = None

@@ -23,14 +23,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.errors import ImpossibleFindings
-from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.engine.inference import AnyPosterior, Engine
+from troubleshoot.advice.ties import ordered_by
 from troubleshoot.model import DERIVED, Model
 
-#: The most probable explanation search gives up (and says so) after this many propagations.
-MPE_MAX_PROPAGATIONS = 2000
-#: Single-fault states tried first to give the search a bound.
-SEED_GUESSES = 5
 
 
 @dataclass(frozen=True)
@@ -49,8 +45,11 @@ def is_unlisted(model: Model, root_id: str) -> bool:
     return root_id not in model.event_by_id and root_id.endswith(DERIVED + "unlisted")
 
 
-def suspects(posterior: Posterior) -> tuple[Suspect, ...]:
-    """Every hypothesis ranked by P(failed | findings), most probable first (ties by id).
+def suspects(posterior: AnyPosterior) -> tuple[Suspect, ...]:
+    """Every hypothesis ranked by P(failed | findings), most probable first.
+
+    Probabilities within the tie tolerance (:mod:`troubleshoot.advice.ties`)
+    are equal, and the id orders them, whatever the model's event order.
 
     A repaired root keeps the probability that it *was* failed before the
     repair (the findings before the repair still speak of it) and is marked
@@ -61,8 +60,7 @@ def suspects(posterior: Posterior) -> tuple[Suspect, ...]:
     ps = posterior.root_marginals()
     out = [Suspect(r, model.label_of(r), float(p), r in repaired, is_unlisted(model, r))
            for r, p in zip(model.hypotheses, ps)]
-    out.sort(key=lambda s: (-s.p, s.id))
-    return tuple(out)
+    return tuple(ordered_by(out, lambda s: s.p, lambda s: s.id))
 
 
 def _expected_log(weights: np.ndarray, probabilities: np.ndarray) -> float:
@@ -73,7 +71,7 @@ def _expected_log(weights: np.ndarray, probabilities: np.ndarray) -> float:
     return float(np.sum(weights[use] * np.log(probabilities[use])))
 
 
-def entropy_bits(posterior: Posterior) -> float:
+def entropy_bits(posterior: AnyPosterior) -> float:
     """Remaining uncertainty H(F | findings) over the root events, in bits, exactly.
 
     Notes
@@ -120,10 +118,11 @@ class Explanation:
     p : float
         Its posterior probability P(f | findings).
     exact : bool
-        False when the search stopped at its propagation bound: ``failed``
-        is then the best state found, not proven the best.
+        True: the state is proven the most probable (the max pass is exact
+        and always finishes). Kept so a future bounded search can say when
+        it stopped early.
     propagations : int
-        Propagations the search used.
+        Passes the search used (one max pass).
     """
 
     failed: tuple[str, ...]
@@ -132,124 +131,34 @@ class Explanation:
     propagations: int
 
 
-def most_probable_explanation(engine: Engine, posterior: Posterior,
-                              max_propagations: int = MPE_MAX_PROPAGATIONS) -> Explanation:
-    """The joint state of every root with the highest posterior, found exactly.
+def most_probable_explanation(engine: Engine, posterior: AnyPosterior) -> Explanation:
+    """The joint state of every root with the highest posterior, found exactly in one pass.
 
     Parameters
     ----------
     engine : Engine
-        The engine that made ``posterior``.
+        The engine that made ``posterior`` (kept for the callers' signature).
     posterior : Posterior
-    max_propagations : int
-        Bound on the work; the result says whether it was proven best.
+        A join-tree or compiled posterior.
 
     Notes
     -----
-    Depth-first branch and bound over the roots, each node one propagation
-    with exact findings on the roots assigned so far. The propagation of a
-    partial assignment A gives P(A | e) and the conditional marginals
-    P(F_j | A, e); any completion f of A has P(f | e) <= P(A | e) *
-    P(F_j = f_j | A, e) for every unassigned j. So once a state of
-    probability p* is known, a root whose value v has P(A|e) P(F_j=v|A,e)
-    <= p* must take the other value (one propagation fixes all such roots),
-    and a branch whose bound is <= p* is cut without propagating. The first
-    leaf is the greedy state (likelier value first, most uncertain root
-    first), unless a few cheap guesses tried first (every root at its
-    likelier value; each of the five likeliest suspects as the only fault)
-    already bound it. The search is exact when it finishes within the
-    propagation bound.
+    On the join tree it is one max-product collect pass and a decoding walk
+    (Dawid 1992): the gates are functions of the roots, so the best joint
+    state of all variables carries the best state of the roots. On the
+    compiled diagram it is one max pass over the evidence diagram, whose
+    leaves hold the checks' noise already summed out. Either costs about one
+    propagation, needs no search (no branch is ever tried, so an impossible
+    one costs nothing) and its memory does not depend on the number of roots
+    assigned.
 
     References
     ----------
-    Pearl 1988, section 5.3 (most probable explanation); A. H. Land and
-    A. G. Doig, Econometrica 28(3), 1960 (branch and bound).
+    Pearl 1988, section 5.3 (most probable explanation); A. P. Dawid,
+    Statistics and Computing 2, 1992 (max-propagation).
     """
-    model = posterior.model
-    roots = model.hypotheses
-    log_pe = posterior.log_p
-    base = tuple(posterior.findings)
-    repairs = tuple(posterior.repairs)
-    best_assign: dict[str, int] | None = None
-    best_p = 0.0
-    used = 0
-    exhausted = False
-
-    def propagate(assign: dict[str, int]) -> Posterior | None:
-        nonlocal used, exhausted
-        if used >= max_propagations:
-            exhausted = True
-            return None
-        used += 1
-        extra = tuple(Finding(r, v, 0) for r, v in assign.items())
-        try:
-            return engine.propagate(base + extra, repairs)
-        except ImpossibleFindings:
-            return None
-
-    def visit(assign: dict[str, int], post: Posterior) -> None:
-        nonlocal best_assign, best_p
-        if exhausted:
-            return
-        p_assign = math.exp(post.log_p - log_pe)
-        if best_assign is not None and p_assign <= best_p:
-            return
-        q = post.root_marginals()
-        forced: dict[str, int] = {}
-        free: list[tuple[float, int, str, float]] = []
-        for j, r in enumerate(roots):
-            if r in assign:
-                continue
-            qj = float(q[j])
-            can_fail = qj > 0.0 and (best_assign is None or p_assign * qj > best_p)
-            can_work = qj < 1.0 and (best_assign is None or p_assign * (1.0 - qj) > best_p)
-            if not can_fail and not can_work:
-                return
-            if not can_fail:
-                forced[r] = 0
-            elif not can_work:
-                forced[r] = 1
-            else:
-                free.append((-min(qj, 1.0 - qj), j, r, qj))
-        if forced:
-            new = {**assign, **forced}
-            child = propagate(new)
-            if child is not None:
-                visit(new, child)
-            return
-        if not free:
-            best_assign, best_p = dict(assign), p_assign
-            return
-        free.sort()
-        _, _, r, qj = free[0]
-        values = (1, 0) if qj > 0.5 else (0, 1)
-        for v in values:
-            bound = p_assign * (qj if v == 1 else 1.0 - qj)
-            if bound <= 0.0 or (best_assign is not None and bound <= best_p):
-                continue
-            new = {**assign, r: v}
-            child = propagate(new)
-            if child is not None:
-                visit(new, child)
-
-    # A good first bound makes the search prune from the root: the state with
-    # every root at its likelier value, and each of the likeliest suspects as
-    # the only fault. Any state will do for soundness; these are cheap guesses.
-    q0 = posterior.root_marginals()
-    order = sorted(range(len(roots)), key=lambda j: (-float(q0[j]), roots[j]))
-    guesses = [{r: int(q0[j] > 0.5) for j, r in enumerate(roots)}]
-    guesses += [{r: int(r == roots[k]) for r in roots} for k in order[:SEED_GUESSES]]
-    for guess in guesses:
-        if used >= max_propagations // 2:
-            break
-        post = propagate(guess)
-        if post is not None:
-            p_guess = math.exp(post.log_p - log_pe)
-            if p_guess > best_p:
-                best_assign, best_p = guess, p_guess
-    visit({}, posterior)
-    failed = tuple(r for r in roots if best_assign and best_assign.get(r) == 1)
-    return Explanation(failed, best_p, not exhausted and best_assign is not None, used)
+    failed, p = posterior.most_probable_state()
+    return Explanation(failed, p, True, 1)
 
 
 def isolated_suspect(ranked: tuple[Suspect, ...], threshold: float) -> Suspect | None:

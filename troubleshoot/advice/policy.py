@@ -65,7 +65,7 @@ from troubleshoot.advice.repair import (
     top_verification,
     verification_cost,
 )
-from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.engine.inference import AnyPosterior, Engine, Finding
 from troubleshoot.errors import ImpossibleFindings, SessionError
 from troubleshoot.model import DERIVED, Model
 
@@ -179,7 +179,7 @@ class OutsideModel:
     by_gate: tuple[tuple[str, float], ...]
 
 
-def outside_model(engine: Engine, posterior: Posterior) -> OutsideModel:
+def outside_model(engine: Engine, posterior: AnyPosterior) -> OutsideModel:
     """P(the cause lies outside the model) in total and per gate.
 
     Notes
@@ -226,7 +226,7 @@ def finish_plan(model: Model, ranked: tuple[Suspect, ...], settings: Settings) -
     return repair_plan(model, ranked, settings.group_min_p, escalation_price(model))
 
 
-def cost_to_finish(engine: Engine, posterior: Posterior, candidates: tuple[str, ...], depth: int,
+def cost_to_finish(engine: Engine, posterior: AnyPosterior, candidates: tuple[str, ...], depth: int,
                    settings: Settings) -> float:
     """Least expected cost from here looking ``depth`` checks ahead, then repairing or escalating.
 
@@ -248,7 +248,7 @@ def cost_to_finish(engine: Engine, posterior: Posterior, candidates: tuple[str, 
     return best
 
 
-def cost_of_check_then(engine: Engine, posterior: Posterior, row: RankRow, candidates: tuple[str, ...],
+def cost_of_check_then(engine: Engine, posterior: AnyPosterior, row: RankRow, candidates: tuple[str, ...],
                        depth: int, settings: Settings, bound: float = math.inf) -> float:
     """Expected cost of doing a check now and then the best of ``depth - 1`` more checks or finishing.
 
@@ -369,7 +369,7 @@ def _money(x: float, unit: str) -> str:
     return f"{x:.0f} {unit}" if abs(x) >= 10 else f"{x:.3g} {unit}"
 
 
-def decide(engine: Engine, posterior: Posterior, settings: Settings, candidates: tuple[str, ...], *,
+def decide(engine: Engine, posterior: AnyPosterior, settings: Settings, candidates: tuple[str, ...], *,
            verification: VerificationRequest | None = None, confirmed: bool = False,
            ranking: Ranking | None = None, ranked: tuple[Suspect, ...] | None = None) -> Decision:
     """The next action, with its expected cost, the alternatives weighed and the reasons.
@@ -437,9 +437,11 @@ def decide(engine: Engine, posterior: Posterior, settings: Settings, candidates:
     # The cause lies outside the model: no listed repair is expected to help.
     if outside.p >= settings.isolation_threshold or (isolated is not None and isolated.unlisted):
         by_gate = tuple((f"outside the model under {g}", p) for g, p in outside.by_gate)
+        # A price comes with the model's escalation (escalation_price).
+        handover = (f" ({model.escalation.label}, {_money(price, unit)})"
+                    if price is not None and model.escalation is not None else "")
         text = (f"the cause is outside the model with probability {outside.p:.2f}: no listed repair is "
-                f"expected to help; hand the unit over" + (f" ({model.escalation.label}, "
-                                                          f"{_money(price, unit)})" if price is not None else ""))
+                f"expected to help; hand the unit over" + handover)
         reason = Reason("outside-model", text, costs=(("escalate", price),) if price is not None else (),
                         probabilities=(("outside the model", outside.p),) + by_gate,
                         suspects=tuple(s.id for s in ranked if s.unlisted and not s.repaired))
@@ -498,12 +500,12 @@ def decide(engine: Engine, posterior: Posterior, settings: Settings, candidates:
 
 
 def _sorted(alts: list[Alternative]) -> list[Alternative]:
-    order = {Action.CHECK: 0, Action.REPAIR: 1, Action.ESCALATE: 2}
+    order: dict[str, int] = {Action.CHECK: 0, Action.REPAIR: 1, Action.ESCALATE: 2}
     return sorted(alts, key=lambda a: (math.inf if a.expected_cost is None else a.expected_cost,
                                        order.get(a.action, 3)))
 
 
-def _best_check(engine: Engine, posterior: Posterior, ranking: Ranking, candidates: tuple[str, ...],
+def _best_check(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candidates: tuple[str, ...],
                 settings: Settings, finish: float) -> tuple[RankRow | None, float, bool]:
     """The check to recommend, its expected cost to finish, and whether only ``min_bits`` chose it.
 

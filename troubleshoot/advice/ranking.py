@@ -35,7 +35,8 @@ from collections.abc import Iterable
 
 import numpy as np
 
-from troubleshoot.engine.inference import Posterior
+from troubleshoot.engine.inference import AnyPosterior
+from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.model import Check
 
 #: Information below this many bits is treated as exactly zero (floating-point
@@ -130,6 +131,21 @@ class Ranking:
         return len(self.rows)
 
 
+_FIELDS = ("check", "label", "cost", "bits", "score", "outcomes", "p_outcomes", "caution")
+
+
+def _new_row(*values) -> RankRow:
+    """A RankRow built without the frozen dataclass's per-field ``object.__setattr__`` calls.
+
+    A ranking builds one row per check on every step (832 at 2,000 basic
+    events), and the generated frozen ``__init__`` is about three times
+    slower than filling the instance dictionary; the row is the same.
+    """
+    row = object.__new__(RankRow)
+    row.__dict__.update(zip(_FIELDS, values))
+    return row
+
+
 def score_of(bits: float, cost: float) -> float:
     """bits / cost; infinite for an informative free check, 0 for an uninformative one."""
     if cost > 0:
@@ -137,7 +153,34 @@ def score_of(bits: float, cost: float) -> float:
     return math.inf if bits > 0 else 0.0
 
 
-def outcome_information(posterior: Posterior, check_ids: Iterable[str]) -> dict[str, tuple[float, np.ndarray]]:
+def batch_information(joint: np.ndarray, table: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """I(F; T | e) in bits and P(T = t | e) for a stack of checks, in whole arrays.
+
+    Parameters
+    ----------
+    joint : ndarray, shape (n, S)
+        P(c | e) over the S joint states of each check's causes.
+    table : ndarray, shape (n, S, K)
+        P(T = t | c) for each of K outcomes (any K >= 1).
+
+    Returns
+    -------
+    bits : ndarray, shape (n,)
+        H(T | e) - sum_c P(c | e) H(T | c); below BITS_EPSILON it is 0.
+    p_outcomes : ndarray, shape (n, K)
+        P(T = t | e).
+
+    References
+    ----------
+    Cover & Thomas 2006, eq. 2.45; de Kleer & Williams 1987.
+    """
+    p_t = np.clip(np.einsum("ij,ijk->ik", joint, table), 0.0, 1.0)
+    h_t_given_c = np.einsum("ij,ij->i", joint, entropy_bits(table))
+    bits = entropy_bits(p_t) - h_t_given_c
+    return np.where(bits < BITS_EPSILON, 0.0, bits), p_t
+
+
+def outcome_information(posterior: AnyPosterior, check_ids: Iterable[str]) -> dict[str, tuple[float, np.ndarray]]:
     """I(F; T | findings) in bits and P(outcome | findings) of each check, done now.
 
     Parameters
@@ -157,40 +200,36 @@ def outcome_information(posterior: Posterior, check_ids: Iterable[str]) -> dict[
     I(F;T|e) = H(T|e) - sum_c P(c|e) H(T|c) over the check's K outcomes:
     the check's noise is independent of everything given its causes c, so
     H(T | F, e) = sum_c P(c|e) H(T|c). Checks whose families have the same
-    number of joint states and outcomes are stacked into one array and
-    scored together.
+    number of joint states and outcomes come stacked from
+    :meth:`Posterior.family_batches` (one gather and one sum per shape) and
+    are scored together by :func:`batch_information`.
 
     References
     ----------
     Cover & Thomas 2006, eq. 2.45 (I = H(T) - H(T|F)); de Kleer & Williams 1987.
     """
-    by_shape: dict[tuple[int, int], list[tuple[str, np.ndarray, np.ndarray]]] = {}
-    for check_id in check_ids:
-        joint, table = posterior.check_likelihood(check_id)
-        by_shape.setdefault(table.shape, []).append((check_id, joint, table))
     out: dict[str, tuple[float, np.ndarray]] = {}
-    for group in by_shape.values():
-        joint = np.stack([g[1] for g in group])  # (checks, states) P(c | e)
-        table = np.stack([g[2] for g in group])  # (checks, states, outcomes) P(t | c)
-        p_t = np.clip(np.einsum("ij,ijk->ik", joint, table), 0.0, 1.0)
-        h_t_given_c = np.einsum("ij,ij->i", joint, entropy_bits(table))
-        bits = entropy_bits(p_t) - h_t_given_c
-        bits = np.where(bits < BITS_EPSILON, 0.0, bits)
-        for (check_id, _, _), b, p in zip(group, bits, p_t):
-            out[check_id] = (float(b), p)
+    for batch in posterior.family_batches(check_ids):
+        bits, p_t = batch_information(batch.joint, batch.likelihood)
+        out.update(zip(batch.checks, zip(bits.tolist(), p_t)))
     return out
 
 
-def _sort_key(row: RankRow):
-    # Round the score to 12 significant digits so checks whose scores agree
-    # analytically but differ in the last bit still fall to the cost/id tie-break.
-    # Free informative checks (infinite score) are ordered among themselves by bits.
-    if math.isinf(row.score):
-        return (-row.score, -row.bits, row.cost, row.check)
-    return (-float(f"{row.score:.12g}"), 0.0, row.cost, row.check)
+def _ordered(rows: list[RankRow]) -> list[RankRow]:
+    """Rows best first: by score, ties (within the tolerance) by cost, then id.
+
+    Free informative checks (infinite score) are ordered among themselves by
+    bits. Scores are compared with :func:`~troubleshoot.advice.ties.tie_ranks`,
+    so checks whose scores agree analytically but differ in the last bits
+    still fall to the cost/id tie-break.
+    """
+    score_rank = tie_ranks([r.score for r in rows])
+    bits_rank = tie_ranks([r.bits if math.isinf(r.score) else 0.0 for r in rows])
+    keyed = sorted(range(len(rows)), key=lambda i: (score_rank[i], bits_rank[i], rows[i].cost, rows[i].check))
+    return [rows[i] for i in keyed]
 
 
-def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
+def rank(posterior: AnyPosterior, checks: Iterable[str | Check]) -> Ranking:
     """Score every candidate check from one propagation and sort them, best first.
 
     Parameters
@@ -217,20 +256,12 @@ def rank(posterior: Posterior, checks: Iterable[str | Check]) -> Ranking:
     """
     model = posterior.model
     ids = [c.id if isinstance(c, Check) else c for c in checks]
-    info = outcome_information(posterior, ids)
     rows = []
-    for check_id in ids:
-        check = model.check_by_id[check_id]
-        bits, p_t = info[check_id]
-        rows.append(RankRow(
-            check=check_id,
-            label=check.label,
-            cost=float(check.cost),
-            bits=bits,
-            score=score_of(bits, float(check.cost)),
-            outcomes=tuple(check.outcomes),
-            p_outcomes=tuple(float(p) for p in p_t),
-            caution=check.caution,
-        ))
-    rows.sort(key=_sort_key)
-    return Ranking(tuple(rows), posterior.epoch)
+    for batch in posterior.family_batches(ids):
+        bits, p_t = batch_information(batch.joint, batch.likelihood)
+        for check_id, b, p in zip(batch.checks, bits.tolist(), p_t.tolist()):
+            check = model.check_by_id[check_id]
+            cost = float(check.cost)
+            rows.append(_new_row(check_id, check.label, cost, b, score_of(b, cost), tuple(check.outcomes),
+                                 tuple(p), check.caution))
+    return Ranking(tuple(_ordered(rows)), posterior.epoch)

@@ -22,6 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from troubleshoot.advice.ties import ordered_by
 from troubleshoot.model import Model
 
 #: A suspect below this posterior is treated as cleared (rounding of an exact zero).
@@ -179,7 +180,9 @@ def repair_order(model: Model, group) -> tuple[RepairStep, ...]:
     ----------
     Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995.
     """
-    repairable, other = [], []
+    repairable: list[RepairStep] = []
+    other: list[RepairStep] = []
+    full_costs: list[float] = []  # repair plus verification, per repairable step
     for s in group:
         event = model.event_by_id.get(s.id)
         repair = event.repair if event is not None else None
@@ -195,9 +198,9 @@ def repair_order(model: Model, group) -> tuple[RepairStep, ...]:
         full = cost + verify
         ratio = s.p / full if full > 0 else math.inf
         repairable.append(RepairStep(s.id, s.label, s.p, cost, ratio, repair.label, None, verify))
-    order = kadane_simon_order([r.id for r in repairable], np.array([r.p for r in repairable]),
-                               np.array([r.cost + r.verification_cost for r in repairable]))
-    other.sort(key=lambda r: (-r.p, r.id))
+        full_costs.append(full)
+    order = kadane_simon_order([r.id for r in repairable], np.array([r.p for r in repairable]), np.array(full_costs))
+    other = ordered_by(other, lambda r: r.p, lambda r: r.id)
     return tuple([repairable[i] for i in order] + other)
 
 

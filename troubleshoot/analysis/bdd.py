@@ -21,15 +21,14 @@ NUREG-0492, *Fault Tree Handbook*, U.S. NRC, 1981 (gates and the top event).
 
 from __future__ import annotations
 
-import sys
 from collections.abc import Callable
-from contextlib import contextmanager
 from dataclasses import dataclass
 
 import numpy as np
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.model import Model, unlisted_id
+from troubleshoot.model import Model
+from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective
 
 #: Node id of the constant function "never fails".
 FALSE = 0
@@ -47,22 +46,6 @@ class DiagramTooLarge(TroubleshootError):
 
     Raised while building, before memory runs out.
     """
-
-
-@contextmanager
-def deep_recursion(depth: int):
-    """Let the recursive diagram operations go ``depth`` frames deep, then restore.
-
-    The apply operations recurse once per variable level, so a tree with many
-    root events needs more than Python's default of 1000 frames.
-    """
-    previous = sys.getrecursionlimit()
-    if depth > previous:
-        sys.setrecursionlimit(depth)
-    try:
-        yield
-    finally:
-        sys.setrecursionlimit(previous)
 
 
 def variable_order(model: Model) -> tuple[str, ...]:
@@ -94,9 +77,7 @@ def variable_order(model: Model) -> tuple[str, ...]:
         if gate is None:
             order.append(node)
             continue
-        children = list(gate.operands)
-        if gate.unlisted is not None:
-            children.append(unlisted_id(gate.id))
+        children = list(connective(gate).operands)
         # Pushed in reverse so the first operand is visited first.
         stack.extend(reversed(children))
     return tuple(order)
@@ -172,62 +153,91 @@ class Diagram(NodeStore):
         """The function "root event at ``level`` is failed"."""
         return self.node(level, FALSE, TRUE)
 
-    def and_(self, f: int, g: int) -> int:
-        """Conjunction of two functions (Bryant's apply)."""
+    @staticmethod
+    def _and_terminal(f: int, g: int) -> int | None:
         if f == FALSE or g == FALSE:
             return FALSE
         if f == TRUE:
             return g
         if g == TRUE or f == g:
             return f
-        if f > g:
-            f, g = g, f
-        key = (f, g)
-        found = self._and_cache.get(key)
-        if found is not None:
-            return found
-        vf, vg = self.var[f], self.var[g]
-        if vf == vg:
-            result = self.node(vf, self.and_(self.low[f], self.low[g]), self.and_(self.high[f], self.high[g]))
-        elif vf < vg:
-            result = self.node(vf, self.and_(self.low[f], g), self.and_(self.high[f], g))
-        else:
-            result = self.node(vg, self.and_(f, self.low[g]), self.and_(f, self.high[g]))
-        self._and_cache[key] = result
-        return result
+        return None
 
-    def or_(self, f: int, g: int) -> int:
-        """Disjunction of two functions (Bryant's apply)."""
+    @staticmethod
+    def _or_terminal(f: int, g: int) -> int | None:
         if f == TRUE or g == TRUE:
             return TRUE
         if f == FALSE:
             return g
         if g == FALSE or f == g:
             return f
-        if f > g:
-            f, g = g, f
-        key = (f, g)
-        found = self._or_cache.get(key)
-        if found is not None:
-            return found
-        vf, vg = self.var[f], self.var[g]
-        if vf == vg:
-            result = self.node(vf, self.or_(self.low[f], self.low[g]), self.or_(self.high[f], self.high[g]))
-        elif vf < vg:
-            result = self.node(vf, self.or_(self.low[f], g), self.or_(self.high[f], g))
-        else:
-            result = self.node(vg, self.or_(f, self.low[g]), self.or_(f, self.high[g]))
-        self._or_cache[key] = result
-        return result
+        return None
+
+    def _apply(self, f: int, g: int, terminal, cache: dict[tuple[int, int], int]) -> int:
+        """Bryant's apply of a commutative operator, with an explicit stack.
+
+        Each pair (f, g) waits on the stack until both of its cofactor pairs
+        are known, then becomes one node; the depth of the diagram is limited
+        by memory, not by Python's recursion limit.
+        """
+        def known(a: int, b: int) -> int | None:
+            found = terminal(a, b)
+            if found is not None:
+                return found
+            return cache.get((a, b) if a <= b else (b, a))
+
+        result = known(f, g)
+        if result is not None:
+            return result
+        var, low, high = self.var, self.low, self.high
+        stack = [(f, g)]
+        while stack:
+            a, b = stack[-1]
+            if known(a, b) is not None:
+                stack.pop()
+                continue
+            va, vb = var[a], var[b]
+            level = min(va, vb)
+            a0, a1 = (low[a], high[a]) if va == level else (a, a)
+            b0, b1 = (low[b], high[b]) if vb == level else (b, b)
+            lo, hi = known(a0, b0), known(a1, b1)
+            if lo is None or hi is None:
+                if lo is None:
+                    stack.append((a0, b0))
+                if hi is None:
+                    stack.append((a1, b1))
+                continue
+            stack.pop()
+            cache[(a, b) if a <= b else (b, a)] = self.node(level, lo, hi)
+        return known(f, g)  # type: ignore[return-value]
+
+    def and_(self, f: int, g: int) -> int:
+        """Conjunction of two functions (Bryant's apply)."""
+        return self._apply(f, g, self._and_terminal, self._and_cache)
+
+    def or_(self, f: int, g: int) -> int:
+        """Disjunction of two functions (Bryant's apply)."""
+        return self._apply(f, g, self._or_terminal, self._or_cache)
 
     def not_(self, f: int) -> int:
-        """Negation of a function."""
-        found = self._not_cache.get(f)
-        if found is not None:
-            return found
-        result = self.node(self.var[f], self.not_(self.low[f]), self.not_(self.high[f]))
-        self._not_cache[f] = result
-        return result
+        """Negation of a function (explicit stack, children first)."""
+        cache = self._not_cache
+        stack = [f]
+        while stack:
+            n = stack[-1]
+            if n in cache:
+                stack.pop()
+                continue
+            lo, hi = cache.get(self.low[n]), cache.get(self.high[n])
+            if lo is None or hi is None:
+                if lo is None:
+                    stack.append(self.low[n])
+                if hi is None:
+                    stack.append(self.high[n])
+                continue
+            stack.pop()
+            cache[n] = self.node(self.var[n], lo, hi)
+        return cache[f]
 
     def at_least(self, k: int, operands: list[int]) -> int:
         """At least ``k`` of the operand functions hold (a voting gate).
@@ -239,6 +249,11 @@ class Diagram(NodeStore):
             return TRUE
         if k > len(operands):
             return FALSE
+        if k in (1, len(operands)):  # an OR or an AND: n applies, not k times n
+            f = TRUE if k > 1 else FALSE
+            for g in operands:
+                f = self.and_(f, g) if k > 1 else self.or_(f, g)
+            return f
         at_least_j = [TRUE] + [FALSE] * k
         for i, f in enumerate(operands, start=1):
             for j in range(min(i, k), 0, -1):
@@ -266,26 +281,42 @@ class Diagram(NodeStore):
         """
         implies: dict[tuple[int, int], bool] = {}
 
-        def low_implies_high(f: int, g: int) -> bool:
-            # Does f imply g?  Same recursion as apply, without building nodes.
+        def known(f: int, g: int) -> bool | None:
+            # Does f imply g?  Same cofactors as apply, without building nodes.
             if f == FALSE or g == TRUE or f == g:
                 return True
             if f == TRUE and g == FALSE:
                 return False
-            key = (f, g)
-            found = implies.get(key)
-            if found is not None:
-                return found
-            vf, vg = self.var[f], self.var[g]
-            v = min(vf, vg)
-            f0, f1 = (self.low[f], self.high[f]) if vf == v else (f, f)
-            g0, g1 = (self.low[g], self.high[g]) if vg == v else (g, g)
-            result = low_implies_high(f0, g0) and low_implies_high(f1, g1)
-            implies[key] = result
-            return result
+            return implies.get((f, g))
 
-        with deep_recursion(4 * self.n_vars + 1000):
-            return all(low_implies_high(self.low[n], self.high[n]) for n in self.reachable(root))
+        for n in self.reachable(root):
+            if known(self.low[n], self.high[n]) is False:
+                return False
+            stack = [(self.low[n], self.high[n])]
+            while stack:
+                f, g = stack[-1]
+                if known(f, g) is not None:
+                    stack.pop()
+                    continue
+                vf, vg = self.var[f], self.var[g]
+                v = min(vf, vg)
+                f0, f1 = (self.low[f], self.high[f]) if vf == v else (f, f)
+                g0, g1 = (self.low[g], self.high[g]) if vg == v else (g, g)
+                first, second = known(f0, g0), known(f1, g1)
+                if first is False or second is False:
+                    implies[(f, g)] = False
+                elif first and second:
+                    implies[(f, g)] = True
+                else:
+                    if first is None:
+                        stack.append((f0, g0))
+                    if second is None:
+                        stack.append((f1, g1))
+                    continue
+                stack.pop()
+            if not known(self.low[n], self.high[n]):
+                return False
+        return True
 
 
 @dataclass
@@ -347,8 +378,10 @@ class FaultTreeBdd:
         -----
         Gates are built bottom-up in a depth-first post-order from the top and
         each gate's function is kept, so a gate shared by several parents is
-        built once. ``inhibit`` is its input AND its condition; an OR gate's
-        unlisted causes are one more input.
+        built once. A gate is read through
+        :func:`~troubleshoot.model.gates.connective` (INHIBIT is its input AND
+        its condition; an OR gate's unlisted causes are one more input). Every
+        walk uses an explicit stack, so depth is limited by memory only.
 
         References
         ----------
@@ -363,62 +396,35 @@ class FaultTreeBdd:
         function: dict[str, int] = {}
         has_not = False
 
-        # Post-order over the gates under the top, without Python recursion.
-        post_order: list[str] = []
-        visited: set[str] = set()
-        stack: list[tuple[str, bool]] = [(model.top, False)]
-        while stack:
-            node, expanded = stack.pop()
-            if node not in gates:
-                continue
-            if expanded:
-                post_order.append(node)
-                continue
-            if node in visited:
-                continue
-            visited.add(node)
-            stack.append((node, True))
-            for child in reversed(gates[node].operands):
-                if child in gates and child not in visited:
-                    stack.append((child, False))
-
         def operand_function(node_id: str) -> int:
             if node_id in gates:
                 return function[node_id]
             return diagram.variable(level_of[node_id])
 
-        with deep_recursion(4 * len(order) + 1000):
-            if model.top not in gates:
-                function[model.top] = diagram.variable(level_of[model.top])
-            for done, gate_id in enumerate(post_order, start=1):
-                gate = gates[gate_id]
-                inputs = [operand_function(i) for i in gate.inputs]
-                if gate.kind == "and":
-                    f = TRUE
-                    for g in inputs:
-                        f = diagram.and_(f, g)
-                elif gate.kind == "or":
-                    f = FALSE
-                    for g in inputs:
-                        f = diagram.or_(f, g)
-                elif gate.kind == "atleast":
-                    f = diagram.at_least(int(gate.k or 0), inputs)
-                elif gate.kind == "not":
-                    has_not = True
-                    f = diagram.not_(inputs[0])
-                elif gate.kind == "inhibit":
-                    f = TRUE
-                    for g in inputs:
-                        f = diagram.and_(f, g)
-                    if gate.condition is not None:
-                        f = diagram.and_(f, operand_function(gate.condition))
-                else:  # pragma: no cover - validate_model rejects other kinds
-                    raise ValueError(f"unknown gate kind {gate.kind!r}")
-                if gate.unlisted is not None:
-                    f = diagram.or_(f, diagram.variable(level_of[unlisted_id(gate.id)]))
-                function[gate_id] = f
-                if progress is not None and (done % 25 == 0 or done == len(post_order)):
-                    progress(f"decision diagram: {done}/{len(post_order)} gates, {len(diagram):,} nodes")
+        if model.top not in gates:
+            function[model.top] = diagram.variable(level_of[model.top])
+        post_order = bottom_up(model, [model.top])
+        for done, gate_id in enumerate(post_order, start=1):
+            conn = connective(gates[gate_id])
+            inputs = [operand_function(i) for i in conn.operands]
+            if conn.op == AND:
+                f = TRUE
+                for g in inputs:
+                    f = diagram.and_(f, g)
+            elif conn.op == OR:
+                f = FALSE
+                for g in inputs:
+                    f = diagram.or_(f, g)
+            elif conn.op == ATLEAST:
+                f = diagram.at_least(conn.threshold(), inputs)
+            elif conn.op == NOT:
+                has_not = True
+                f = diagram.not_(inputs[0])
+            else:  # pragma: no cover - connective() knows no other
+                raise ValueError(f"unknown connective {conn.op!r}")
+            function[gate_id] = f
+            if progress is not None and (done % 25 == 0 or done == len(post_order)):
+                progress(f"decision diagram: {done}/{len(post_order)} gates, {len(diagram):,} nodes")
         return cls(model, order, priors, diagram, function[model.top], has_not)
 
     @property

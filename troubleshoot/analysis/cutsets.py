@@ -30,7 +30,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.analysis.bdd import FALSE, TRUE, FaultTreeBdd, NodeStore, deep_recursion
+from troubleshoot.analysis.bdd import FALSE, TRUE, FaultTreeBdd, NodeStore
 from troubleshoot.model import Model
 
 #: Empty family of sets.
@@ -69,8 +69,7 @@ class CutSetFamily(NodeStore):
         self._without_cache: dict[tuple[int, int], int] = {}
         self._minimal_cache: dict[int, int] = {FALSE: EMPTY, TRUE: BASE}
         self._has_empty: dict[int, bool] = {EMPTY: False, BASE: True}
-        with deep_recursion(4 * n_vars + 1000):
-            self.root = self._minimal(bdd.root)
+        self.root = self._minimal(bdd.root)
 
     def _node(self, level: int, low: int, high: int) -> int:
         if high == EMPTY:  # zero-suppression rule
@@ -84,14 +83,18 @@ class CutSetFamily(NodeStore):
         )
 
     def _contains_empty(self, f: int) -> bool:
-        found = self._has_empty.get(f)
-        if found is None:
-            found = self._contains_empty(self.low[f])
-            self._has_empty[f] = found
+        """Does family ``f`` hold the empty set? (It does when its low chain ends in BASE.)"""
+        chain = []
+        while f not in self._has_empty:
+            chain.append(f)
+            f = self.low[f]
+        found = self._has_empty[f]
+        for n in chain:
+            self._has_empty[n] = found
         return found
 
-    def _without(self, f: int, g: int) -> int:
-        """Sets of family ``f`` that contain no set of family ``g`` (Rauzy 1993)."""
+    def _without_known(self, f: int, g: int) -> int | None:
+        """``f`` without ``g`` when a terminal case or the cache answers, else None."""
         if g == EMPTY or f == EMPTY:
             return f
         if f == g:
@@ -100,38 +103,80 @@ class CutSetFamily(NodeStore):
             return EMPTY if self._contains_empty(g) else BASE
         if g == BASE:
             return EMPTY
-        key = (f, g)
-        found = self._without_cache.get(key)
-        if found is not None:
-            return found
-        vf, vg = self.var[f], self.var[g]
-        if vf < vg:
-            # No set of g holds vf: filter both halves of f by all of g.
-            result = self._node(vf, self._without(self.low[f], g), self._without(self.high[f], g))
-        elif vf > vg:
-            # Sets of g holding vg cannot sit inside a set of f.
-            result = self._without(f, self.low[g])
-        else:
-            low = self._without(self.low[f], self.low[g])
-            high = self._without(self._without(self.high[f], self.low[g]), self.high[g])
-            result = self._node(vf, low, high)
-        self._without_cache[key] = result
-        return result
+        return self._without_cache.get((f, g))
+
+    def _without(self, f: int, g: int) -> int:
+        """Sets of family ``f`` that contain no set of family ``g`` (Rauzy 1993).
+
+        An explicit stack of pairs stands in for the recursion: a pair waits
+        until the pairs it needs are known.
+        """
+        known = self._without_known
+        stack = [(f, g)]
+        while stack:
+            a, b = stack[-1]
+            if known(a, b) is not None:
+                stack.pop()
+                continue
+            va, vb = self.var[a], self.var[b]
+            if va < vb:
+                # No set of b holds va: filter both halves of a by all of b.
+                lo, hi = known(self.low[a], b), known(self.high[a], b)
+                if lo is None or hi is None:
+                    if lo is None:
+                        stack.append((self.low[a], b))
+                    if hi is None:
+                        stack.append((self.high[a], b))
+                    continue
+                result = self._node(va, lo, hi)
+            elif va > vb:
+                # Sets of b holding vb cannot sit inside a set of a.
+                found = known(a, self.low[b])
+                if found is None:
+                    stack.append((a, self.low[b]))
+                    continue
+                result = found
+            else:
+                lo, part = known(self.low[a], self.low[b]), known(self.high[a], self.low[b])
+                if lo is None or part is None:
+                    if lo is None:
+                        stack.append((self.low[a], self.low[b]))
+                    if part is None:
+                        stack.append((self.high[a], self.low[b]))
+                    continue
+                hi = known(part, self.high[b])
+                if hi is None:
+                    stack.append((part, self.high[b]))
+                    continue
+                result = self._node(va, lo, hi)
+            self._without_cache[(a, b)] = result
+            stack.pop()
+        return known(f, g)  # type: ignore[return-value]
 
     def _minimal(self, f: int) -> int:
         """Minimal sets of failed roots making BDD node ``f`` true (Rauzy 1993).
 
-        MCS(ite(x, f1, f0)) = MCS(f0) + x.(MCS(f1) without MCS(f0)).
+        MCS(ite(x, f1, f0)) = MCS(f0) + x.(MCS(f1) without MCS(f0)), children
+        first on an explicit stack.
         """
-        found = self._minimal_cache.get(f)
-        if found is not None:
-            return found
         d = self.bdd.diagram
-        low = self._minimal(d.low[f])
-        high = self._without(self._minimal(d.high[f]), low)
-        result = self._node(d.var[f], low, high)
-        self._minimal_cache[f] = result
-        return result
+        cache = self._minimal_cache
+        stack = [f]
+        while stack:
+            n = stack[-1]
+            if n in cache:
+                stack.pop()
+                continue
+            low, high = cache.get(d.low[n]), cache.get(d.high[n])
+            if low is None or high is None:
+                if low is None:
+                    stack.append(d.low[n])
+                if high is None:
+                    stack.append(d.high[n])
+                continue
+            stack.pop()
+            cache[n] = self._node(d.var[n], low, self._without(high, low))
+        return cache[f]
 
     def _bottom_up(self) -> list[int]:
         seen = set()

@@ -8,10 +8,9 @@ from __future__ import annotations
 
 import json
 from collections import Counter
-from pathlib import Path
-
-from troubleshoot.model.demos import DEMOS, demo_path
+from troubleshoot.model.demos import DEMOS
 from troubleshoot.model import Model
+from troubleshoot.model.source import model_path
 from troubleshoot.model.xmlfile import load_model_with_warnings
 
 
@@ -26,14 +25,6 @@ def add_parser(subparsers, name):
     parser.add_argument("model", metavar="MODEL", help="model file (.xml) or a demo name: " + ", ".join(sorted(DEMOS)))
     parser.add_argument("--json", action="store_true", help="print the summary as one JSON object")
     return parser
-
-
-def resolve_model_path(argument: str) -> Path:
-    """A model argument as a path: an existing file wins over a demo of the same name."""
-    path = Path(argument)
-    if argument in DEMOS and not path.exists():
-        return demo_path(argument)
-    return path
 
 
 def repeated_events(model: Model) -> list[str]:
@@ -63,7 +54,7 @@ def summary(model: Model) -> dict:
 
 
 def run(args) -> int:
-    path = resolve_model_path(args.model)
+    path = model_path(args.model)  # a missing or unreadable file is the loader's to report, with its words
     model, warnings = load_model_with_warnings(path)
     facts = summary(model)
     if args.json:

@@ -1,4 +1,8 @@
-"""``troubleshoot import-mef``: an Open-PSA MEF fault tree into a model file of our format."""
+"""``troubleshoot import-mef IN.xml -o OUT.xml``: an Open-PSA MEF fault tree into a model file of our format.
+
+The output path is checked before the file is read; the model file is
+written atomically, only to a new path or over a regular file.
+"""
 
 from __future__ import annotations
 
@@ -26,30 +30,24 @@ def add_parser(subparsers, name):
 
 
 def run(args) -> int:
+    from troubleshoot.files import check_output_path
     from troubleshoot.model.mef.read import read_mef
+    from troubleshoot.model.validate import validate_model
+    from troubleshoot.model.xmlfile import save_model
 
     if args.mission_time is not None and not args.mission_time >= 0:
         raise TroubleshootError("--mission-time must be a number of hours, 0 or more")
+    check_output_path(args.output, "model file")
     model, report = read_mef(args.input, top=args.top, mission_time=args.mission_time)
     for problem in report:
         print(f"troubleshoot: {problem}", file=sys.stderr)
-    try:
-        from troubleshoot.model.validate import validate_model
-    except ImportError:
-        validate_model = None
-    if validate_model is not None:
-        problems = validate_model(model, args.input)
-        errors = [p for p in problems if p.severity == "error"]
-        for problem in problems:
-            if problem.severity != "error":
-                print(f"troubleshoot: {problem}", file=sys.stderr)
-        if errors:
-            raise ModelError(errors)
-    try:
-        from troubleshoot.model.xmlfile import save_model
-    except ImportError as exc:
-        raise TroubleshootError("writing model files is not available in this installation "
-                                f"({exc}); reinstall troubleshoot") from None
+    problems = validate_model(model, args.input)
+    for problem in problems:
+        if problem.severity != "error":
+            print(f"troubleshoot: {problem}", file=sys.stderr)
+    errors = [p for p in problems if p.severity == "error"]
+    if errors:
+        raise ModelError(errors)
     save_model(model, args.output)
     print(f"wrote {args.output}: fault tree '{model.name}', top gate {model.top}, "
           f"{len(model.gates)} gates, {len(model.basic_events)} basic events, no checks "

@@ -119,7 +119,8 @@ def run(args) -> int:
     if not names:
         raise SimulationError("no strategy left to simulate")
 
-    specs = [(name, optimal if name == "optimal" else None) for name in names]
+    # "optimal" stays in the names only when its policy was solved.
+    specs = [(name, optimal if name == "optimal" and optimal is not None else None) for name in names]
     with ProgressDisplay(f"simulating {model.name}", unit="cases") as progress:
         results = simulate(model, args.cases, args.seed, specs, settings, workers, progress.count,
                            checks_after_repair=checks_after_repair)

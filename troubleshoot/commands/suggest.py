@@ -15,7 +15,15 @@ import math
 import sys
 
 from troubleshoot.errors import SessionError
-from troubleshoot.session import AMBIGUITY, Session, settings_for
+from troubleshoot.session import Session, settings_for
+from troubleshoot.session.actions import (
+    ActionError,
+    RecordFinding,
+    RecordRepair,
+    RecordVerification,
+    finding_from_text,
+)
+from troubleshoot.session.render import render_state
 
 
 class _Ordered(argparse.Action):
@@ -40,7 +48,8 @@ def add_parser(subparsers, name):
     )
     parser.add_argument("model", metavar="MODEL", help="a model file, or a demo name (rooftop, booster)")
     parser.add_argument("--finding", metavar="CHECK=OUTCOME", action=_Ordered, dest="finding",
-                        help="a check or symptom and the outcome seen (repeatable, order kept)")
+                        help="a check or symptom and the outcome seen, by name or by its number "
+                        "1..K in the check's list (1 the normal one); repeatable, order kept")
     parser.add_argument("--repaired", metavar="EVENT", action=_Ordered, dest="repaired",
                         help="a basic event repaired (repeatable; later findings see it working)")
     parser.add_argument("--threshold", metavar="P", type=float,
@@ -54,31 +63,47 @@ def add_parser(subparsers, name):
                         help="how many of the best checks are weighed against repairing at once "
                              "(default 3; 0: only --min-bits decides when to stop checking)")
     parser.add_argument("--json", action="store_true", help="print the result as JSON (see the README)")
+    parser.add_argument("--engine", choices=("auto", "join tree", "decision diagram"), default="auto",
+                        help="which exact path computes the figures (default auto: the join tree, or the "
+                             "decision diagram when the join tree would not fit in memory); for testing")
     parser.set_defaults(steps=[])
     return parser
 
 
-def apply_steps(session: Session, steps) -> None:
-    """Apply ('finding', 'CHECK=OUTCOME') and ('repaired', 'EVENT') steps in order."""
-    model = session.model
+def step_actions(model, steps) -> list[RecordFinding | RecordRepair | RecordVerification]:
+    """The typed actions of ('finding', 'CHECK=OUTCOME') and ('repaired', 'EVENT') steps, in order.
+
+    ``--finding TOP=OUTCOME`` (the top event's id) after a repair is the
+    verification; ``ok`` and ``failed`` name its outcomes.
+    """
+    actions: list[RecordFinding | RecordRepair | RecordVerification] = []
+    repaired = False
     for kind, value in steps:
         if kind == "repaired":
-            session.record_repair(value.strip())
+            actions.append(RecordRepair(value.strip()))
+            repaired = True
             continue
-        check, sep, outcome = value.partition("=")
-        check, outcome = check.strip(), outcome.strip()
-        if not sep or not check or not outcome:
-            raise SessionError(f"--finding {value!r}: write CHECK=OUTCOME, e.g. "
-                               f"{_example(model)}")
-        if check == model.top:
-            if not session.repairs:
-                raise SessionError(f"--finding {value!r}: the top event {check!r} has occurred (the "
-                                   "complaint); give it after --repaired EVENT to record the verification")
-            if outcome.casefold() in ("ok", "failed"):
-                outcome = 0 if outcome.casefold() == "ok" else 1
-            session.record_verification(outcome)
-        else:
-            session.record_finding(check, outcome)
+        try:
+            finding = finding_from_text(value)
+        except ActionError:
+            raise SessionError(f"--finding {value!r}: write CHECK=OUTCOME, e.g. {_example(model)}") from None
+        if finding.check != model.top:
+            actions.append(finding)
+            continue
+        if not repaired:
+            raise SessionError(f"--finding {value!r}: the top event {finding.check!r} has occurred (the "
+                               "complaint); give it after --repaired EVENT to record the verification")
+        outcome = finding.outcome
+        if isinstance(outcome, str) and outcome.casefold() in ("ok", "failed"):
+            outcome = 0 if outcome.casefold() == "ok" else 1
+        actions.append(RecordVerification(outcome))
+    return actions
+
+
+def apply_steps(session: Session, steps) -> None:
+    """Apply ('finding', 'CHECK=OUTCOME') and ('repaired', 'EVENT') steps in order."""
+    for action in step_actions(session.model, steps):
+        session.apply(action)
 
 
 def _example(model) -> str:
@@ -99,6 +124,7 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
         "model": model.name,
         "model_source": model_spec,
         "cost_unit": model.cost_unit,
+        "engine": session.engine.name,
         "status": state.status,
         "log_p_findings": state.log_p_findings,
         "entropy_bits": state.entropy_bits,
@@ -133,79 +159,9 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
     }
 
 
-def _score_text(score: float, unit: str) -> str:
-    return "free" if math.isinf(score) else f"{score:.4f}"
-
-
 def render_text(session: Session) -> str:
-    """The readable table: ranking, suspects, explanation, status."""
-    state = session.state
-    model = session.model
-    unit = model.cost_unit
-    lines = [f"Model {model.name}: {model.label_of(model.top)} (complaint applied first)"]
-    for f in state.findings[1:]:
-        after = f" (after {f.epoch} repair(s))" if f.epoch else ""
-        lines.append(f"  finding: {f.target} = {f.outcome}{after}")
-    for r in state.repairs:
-        lines.append(f"  repaired: {r}")
-    lines += [
-        f"Remaining uncertainty: {state.entropy_bits:.4f} bits; log P(findings) = {state.log_p_findings:.6f}",
-        f"Cost spent: {state.cost_spent:g} {unit}",
-        f"Status: {state.status}",
-        "",
-        f"Checks, best first (information in bits, cost in {unit}, score in bits per {unit}):",
-        f"  {'check':<22} {'bits':>8} {'cost':>8} {'score':>10}  outcome probabilities",
-    ]
-    if not state.ranking:
-        lines.append("  (no check left)")
-    for r in state.ranking:
-        odds = ", ".join(f"{name} {p:.3f}" for name, p in zip(r.outcomes, r.p_outcomes))
-        lines.append(f"  {r.check:<22} {r.bits:>8.4f} {r.cost:>8g} {_score_text(r.score, unit):>10}  {odds}")
-    lines += ["", "Suspects (probability of having failed, given the findings):"]
-    for s in state.suspects:
-        mark = " (repaired)" if s.repaired else ""
-        lines.append(f"  {s.p:>8.4f}  {s.id:<22} {s.label}{mark}")
-    ex = session.explanation
-    failed = ", ".join(ex.failed) or "(nothing failed)"
-    exact = "" if ex.exact else " (best found within the search bound, not proven)"
-    lines += ["", f"Most probable explanation: {failed}, probability {ex.p:.4f}{exact}"]
-    if state.isolated:
-        lines.append(f"Isolated: {state.isolated.id} ({state.isolated.label}), "
-                     f"P = {state.isolated.p:.4f} >= {state.settings.isolation_threshold:g}")
-    if state.ambiguity_group is not None:
-        lines.append("Ambiguity group (no remaining check gives "
-                     f"{state.settings.min_bits:g} bits or more): "
-                     + ", ".join(f"{s.id} {s.p:.3f}" for s in state.ambiguity_group))
-    if state.status in ("isolated", AMBIGUITY) and state.repair_order:
-        lines.append(f"Repair order (probability per {unit} of repair cost, highest first):")
-        for i, step in enumerate(state.repair_order, start=1):
-            if step.cost is None:
-                lines.append(f"  {i}. {step.id}: P = {step.p:.3f}; {step.note}")
-            else:
-                lines.append(f"  {i}. {step.id}: {step.repair_label}, {step.cost:g} {unit}, P = {step.p:.3f}")
-    if state.verification:
-        v = state.verification
-        lines.append(f"Verify the repair: {v.label} ({v.cost:g} {unit}; outcomes {v.outcomes[0]!r} or "
-                     f"{v.outcomes[1]!r})")
-    if state.next_check:
-        lines.append(f"Next check: {state.next_check.check} ({state.next_check.label})")
-    if state.outside_model_by_gate:
-        lines.append(f"Cause outside the model: P = {state.outside_model_p:.3f} ("
-                     + ", ".join(f"under {g} {p:.3f}" for g, p in state.outside_model_by_gate) + ")")
-    d = state.decision
-    if d is not None:
-        target = f" {d.target}" if d.target else ""
-        cost = f", expected {d.expected_cost:.1f} {unit} to finish" if d.expected_cost is not None else ""
-        lines.append(f"Decision: {d.action}{target}{cost}")
-        for r in d.reasons:
-            lines.append(f"  why: {r.text}")
-        others = [a for a in d.alternatives if (a.action, a.target) != (d.action, d.target)]
-        for a in others:
-            price = f"{a.expected_cost:.1f} {unit}" if a.expected_cost is not None else "no price in the model"
-            lines.append(f"  instead: {a.action}{' ' + a.target if a.target else ''}: {price}")
-    for caution in state.cautions:
-        lines.append(f"CAUTION: {caution}")
-    return "\n".join(lines) + "\n"
+    """The readable table: ranking, suspects, explanation, status (:func:`troubleshoot.session.render.render_state`)."""
+    return render_state(session.model, session.state, session.explanation, engine_name=session.engine.name)
 
 
 def run(args) -> int:
@@ -216,7 +172,9 @@ def run(args) -> int:
     for warning in warnings:
         print(f"troubleshoot: {warning}", file=sys.stderr)
     settings = settings_for(model, args.threshold, args.min_bits, args.group_p, args.lookahead)
-    session = Session(model, settings, model_path=str(path))
+    from troubleshoot.engine.inference import Engine
+
+    session = Session(model, settings, model_path=str(path), engine=Engine(model, kind=args.engine))
     apply_steps(session, args.steps)
     if args.json:
         sys.stdout.write(json.dumps(suggestion_json(session, args.model), indent=2, allow_nan=False) + "\n")

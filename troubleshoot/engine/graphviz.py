@@ -22,6 +22,8 @@ def network_to_dot(network: Network) -> str:
             label = f"{label}\\n{model.gate_by_id[node].kind.upper()}"
         elif data["role"] == ROOT:
             label = f"{label}\\np = {model.prior_of(node):.3g}"
+        elif data["role"] == CHECK:  # its outcomes, normal first, so a graded reading shows its scale
+            label = f"{label}\\n{' | '.join(data['states'])}"
         style = ', style=dashed' if data["role"] in (AUX, CHECK_AUX) else ""
         lines.append(f"  {_quote(node)} [label={_quote(label)}, shape={_SHAPES[data['role']]}{style}];")
     for a, b in network.graph.edges:

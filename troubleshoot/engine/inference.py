@@ -11,18 +11,37 @@ before it, so it reads the gate logic as it was when the finding was made.
 References
 ----------
 Lauritzen & Spiegelhalter 1988 (join tree); Pearl 1988 (noisy-OR); Díez 1993 (noisy-MAX).
+
+Where the join tree's tables would pass the memory budget, the engine answers
+the same questions on a compiled decision diagram
+(:mod:`troubleshoot.engine.compiled`); :attr:`Engine.name` says which.
 """
+
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.errors import ImpossibleFindings, SessionError
-from troubleshoot.engine.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability
+from troubleshoot.errors import ImpossibleFindings, NetworkTooLarge, SessionError
+from troubleshoot.engine.compiled import (
+    ENGINE_NAME as COMPILED,
+    MAX_CAUSE_STATES_BITS,
+    CompiledModel,
+    Passes,
+    ZeroEvidence,
+)
+from troubleshoot.engine.observation import table_from_log_cdf
+from troubleshoot.engine.jointree import DEFAULT_MEMORY_BUDGET, Evidence, JoinTree, ZeroProbability, gc_paused
 from troubleshoot.model import Model
 from troubleshoot.engine.network import CheckFamily, Network, build_network
+
+#: The name of the join-tree path (``suggest --json`` key ``engine``).
+JOIN_TREE = "join tree"
+#: What ``Engine(kind=...)`` accepts.
+ENGINE_KINDS = ("auto", JOIN_TREE, COMPILED)
 
 
 @dataclass(frozen=True)
@@ -74,16 +93,44 @@ class Engine:
     #: seen (undo, a note, weighing a check's outcomes again) is answered from it.
     posterior_cache_bytes = 64 * 1024**2
 
-    def __init__(self, model: Model, memory_budget: int = DEFAULT_MEMORY_BUDGET):
+    def __init__(self, model: Model, memory_budget: int = DEFAULT_MEMORY_BUDGET, kind: str = "auto"):
+        if kind not in ENGINE_KINDS:
+            raise ValueError(f"engine kind must be one of {ENGINE_KINDS}, not {kind!r}")
         self.model = model
         self.memory_budget = memory_budget
+        self.kind = kind
         self._trees: dict = {}
         self._networks: dict = {}
         self._coherent = all(g.kind != "not" for g in model.gates)
         self._posteriors: dict = {}
+        self._diagram: CompiledModel | None = None
         #: Propagations actually run (not answered from memory).
         self.propagations = 0
-        self.compiled(())  # compile now, so a model too large is refused at once
+        # Compile now, so a model too large for both paths is refused at once.
+        if kind == COMPILED:
+            self._diagram = CompiledModel(model, memory_budget)
+        else:
+            try:
+                self.compiled(())
+            except NetworkTooLarge as exc:
+                if kind != "auto":
+                    raise
+                self._switch(exc)
+
+    def _switch(self, exc: NetworkTooLarge) -> None:
+        """Go over to the compiled path, for good: the join tree would not fit."""
+        self._trees.clear()
+        self._networks.clear()
+        self._posteriors.clear()
+        try:
+            self._diagram = CompiledModel(self.model, self.memory_budget)
+        except NetworkTooLarge as second:
+            raise NetworkTooLarge(f"{exc}; the compiled decision diagram does not fit either: {second}") from None
+
+    @property
+    def name(self) -> str:
+        """Which path computes the figures: "join tree" or "decision diagram"."""
+        return JOIN_TREE if self._diagram is None else COMPILED
 
     def compiled(self, repairs: tuple[str, ...], past_targets=frozenset()) -> tuple[Network, JoinTree]:
         """The network and join tree for a sequence of repairs, compiled once and cached.
@@ -101,11 +148,12 @@ class Engine:
         for r in repairs:
             if r not in self.model.hypotheses:
                 raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
-        if repairs not in self._networks:
-            self._networks[repairs] = build_network(self.model, repairs, with_checks=False)
-        net = self._networks[repairs]
-        variables, families = net.relevant(key[1])
-        tree = JoinTree(net, self.memory_budget, families=families, variables=variables)
+        with gc_paused():
+            if repairs not in self._networks:
+                self._networks[repairs] = build_network(self.model, repairs, with_checks=False)
+            net = self._networks[repairs]
+            variables, families = net.relevant(key[1])
+            tree = JoinTree(net, self.memory_budget, families=families, variables=variables)
         self._trees[key] = (net, tree)
         while len(self._trees) > self.cache_size:
             self._trees.pop(next(iter(self._trees)))
@@ -118,11 +166,18 @@ class Engine:
         self._posteriors.clear()
 
     @property
-    def tree(self) -> JoinTree:
-        """The join tree with no repairs (for reports: width, table size)."""
+    def tree(self) -> JoinTree | None:
+        """The join tree with no repairs (for reports: width, table size); None on the compiled path."""
+        if self._diagram is not None:
+            return None
         return self.compiled(())[1]
 
-    def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | None:
+    @property
+    def diagram(self) -> CompiledModel | None:
+        """The compiled decision diagram, on that path (else None)."""
+        return self._diagram
+
+    def _validate(self, finding: Finding, epochs: int) -> None:
         model = self.model
         check = model.check_by_id.get(finding.target)
         n_outcomes = len(check.outcomes) if check is not None else 2
@@ -131,9 +186,16 @@ class Engine:
                      if check is not None else " (0 ok, 1 failed)")
             raise SessionError(f"outcome of {finding.target!r} must be 0..{n_outcomes - 1}, not "
                                f"{finding.outcome!r}{names}")
-        if not 0 <= finding.epoch <= net.epochs:
+        if not 0 <= finding.epoch <= epochs:
             raise SessionError(f"finding on {finding.target!r} is dated after {finding.epoch} repairs, "
-                               f"but only {net.epochs} were made")
+                               f"but only {epochs} were made")
+        if not (finding.target in model.check_by_id or finding.target in model.gate_by_id
+                or finding.target in model.event_by_id or finding.target in model.hypotheses):
+            raise SessionError(f"unknown check, symptom or event {finding.target!r} in model {model.name!r}")
+
+    def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | _ConstantLikelihood:
+        model = self.model
+        self._validate(finding, net.epochs)
         if finding.target in model.check_by_id:
             fam = net.families[(finding.target, finding.epoch)]
             lik = fam.p_outcome(finding.outcome)
@@ -175,11 +237,33 @@ class Engine:
             kept.append(f)
         return kept
 
+    def _run_compiled(self, findings, repairs) -> Passes:
+        cm = self._diagram
+        assert cm is not None
+        for r in repairs:
+            if r not in self.model.hypotheses:
+                raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
+        for f in findings:
+            self._validate(f, len(repairs))
+        try:
+            return Passes(cm, cm.evidence(findings, repairs))
+        except ZeroEvidence:
+            raise ZeroProbability from None
+
     def _run(self, findings, repairs):
+        if self._diagram is not None:
+            return self._run_compiled(tuple(findings), tuple(repairs))
         findings = self.implied_dropped(findings)
         now = len(repairs)
-        net, tree = self.compiled(repairs, frozenset((f.target, f.epoch) for f in findings if f.epoch < now))
-        evidence, log_constant = [], 0.0
+        try:
+            net, tree = self.compiled(repairs, frozenset((f.target, f.epoch) for f in findings if f.epoch < now))
+        except NetworkTooLarge as exc:
+            if self.kind != "auto":
+                raise
+            self._switch(exc)
+            return self._run_compiled(tuple(findings), tuple(repairs))
+        evidence: list[Evidence] = []
+        log_constant = 0.0
         for f in findings:
             ev = self._evidence(net, tree, f)
             if isinstance(ev, _ConstantLikelihood):
@@ -189,9 +273,9 @@ class Engine:
             else:
                 evidence.append(ev)
         calibrated = tree.propagate(evidence)
-        return net, tree, calibrated, log_constant
+        return net, tree, calibrated, log_constant, evidence
 
-    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> Posterior:
+    def propagate(self, findings=(), repairs: tuple[str, ...] = ()) -> AnyPosterior:
         """Posterior given findings (in order) and the repairs made so far.
 
         Raises
@@ -208,14 +292,23 @@ class Engine:
             self._posteriors[key] = self._posteriors.pop(key)  # most recently used last
             return self._posteriors[key]
         try:
-            net, tree, calibrated, log_constant = self._run(findings, repairs)
+            run = self._run(findings, repairs)
         except ZeroProbability:
             raise ImpossibleFindings([describe_finding(self.model, f, repairs)
                                       for f in self.conflict(findings, repairs)]) from None
         self.propagations += 1
-        post = Posterior(self.model, net, tree, calibrated, calibrated.log_p + log_constant, findings, repairs)
+        post: AnyPosterior
+        if isinstance(run, Passes):
+            assert self._diagram is not None
+            post = CompiledPosterior(self.model, self._diagram, run, findings, repairs)
+            entries = len(run.ids)
+        else:
+            net, tree, calibrated, log_constant, evidence = run
+            post = Posterior(self.model, net, tree, calibrated, calibrated.log_p + log_constant, findings, repairs,
+                             evidence, log_constant)
+            entries = tree.table_entries
         self._posteriors[key] = post
-        keep = max(8, self.posterior_cache_bytes // max(1, 8 * tree.table_entries))
+        keep = max(8, self.posterior_cache_bytes // max(1, 8 * entries))
         while len(self._posteriors) > keep:
             self._posteriors.pop(next(iter(self._posteriors)))
         return post
@@ -233,6 +326,65 @@ class Engine:
                 continue
             i += 1
         return kept
+
+
+@dataclass(frozen=True)
+class FamilyBatch:
+    """Checks whose cause families have the same shape, stacked.
+
+    Attributes
+    ----------
+    checks : tuple of str
+        Check ids, one per row.
+    joint : ndarray, shape (n, S)
+        P(c | findings) over the S joint states of each check's causes.
+    likelihood : ndarray, shape (n, S, K)
+        P(outcome | c) for each of the K outcomes (the first is the normal one).
+    """
+
+    checks: tuple[str, ...]
+    joint: np.ndarray
+    likelihood: np.ndarray
+
+
+def outcome_table(family: CheckFamily) -> np.ndarray:
+    """P(outcome | c) of one check family, shape (2**m, K): states of the causes (C order) by outcomes."""
+    return family.likelihood().reshape(-1, family.n_outcomes)
+
+
+@dataclass(frozen=True)
+class _BatchGroup:
+    checks: tuple[str, ...]
+    plan: tuple
+    likelihood: np.ndarray
+
+
+@dataclass(frozen=True)
+class _BatchPlans:
+    groups: dict  # (states, outcomes) -> _BatchGroup
+    where: dict  # check id -> ((states, outcomes), row)
+
+
+def _batch_plans(net: Network, tree: JoinTree, epoch: int) -> _BatchPlans:
+    """Every check family of one epoch the tree carries, grouped by shape; built once per tree and epoch."""
+    cached = tree._batch_plans.get(("families", epoch))
+    if cached is not None:
+        return cached
+    members: dict[tuple[int, ...], list] = {}
+    for (check_id, e), fam in tree.families.items():
+        if e == epoch:
+            table = outcome_table(fam)
+            members.setdefault(table.shape, []).append((check_id, fam, table))
+    groups, where = {}, {}
+    for key, items in members.items():
+        checks = tuple(c for c, _, _ in items)
+        plan = tree.joints_plan(tuple(f.nodes for _, f, _ in items))
+        groups[key] = _BatchGroup(checks, plan, np.stack([t for _, _, t in items]))
+        for row, c in enumerate(checks):
+            where[c] = (key, row)
+    plans = _BatchPlans(groups, where)
+    tree._batch_plans[("families", epoch)] = plans
+    return plans
 
 
 @dataclass(frozen=True)
@@ -254,7 +406,11 @@ class Posterior:
         families default to it.
     """
 
-    def __init__(self, model, net, tree, calibrated, log_p, findings, repairs):
+    engine = JOIN_TREE
+
+    def __init__(self, model, net, tree, calibrated, log_p, findings, repairs, evidence=(), log_constant=0.0):
+        self._evidence = list(evidence)
+        self._log_constant = float(log_constant)
         self.model = model
         self.network = net
         self.tree = tree
@@ -299,6 +455,49 @@ class Posterior:
         epoch = self.epoch if epoch is None else epoch
         return self.network.families[(check_id, epoch)]
 
+    def family_batches(self, check_ids, epoch: int | None = None) -> list[FamilyBatch]:
+        """The cause joint and outcome table of many checks at once, grouped by shape.
+
+        Parameters
+        ----------
+        check_ids : iterable of str
+            Checks or symptoms of the model.
+        epoch : int, optional
+            Default: now.
+
+        Returns
+        -------
+        list of FamilyBatch
+            One per (number of joint cause states, number of outcomes), in
+            first-seen order; every check appears in exactly one.
+
+        Notes
+        -----
+        Each group's joints come out of the calibrated tables in one gather
+        and one ``bincount`` per source (cliques, separators) over index
+        plans the join tree keeps, whatever the number of checks.
+        """
+        epoch = self.epoch if epoch is None else epoch
+        plans = _batch_plans(self.network, self.tree, epoch)
+        wanted: dict[tuple[int, int], list[int]] = {}
+        for check_id in check_ids:
+            found = plans.where.get(check_id)
+            if found is None:
+                raise SessionError(f"{check_id!r} is not a check or symptom of model {self.model.name!r} "
+                                   f"read after {epoch} repair(s)")
+            key, row = found
+            wanted.setdefault(key, []).append(row)
+        out = []
+        for key, rows in wanted.items():
+            group = plans.groups[key]
+            joint = self._calibrated.joints(group.plan, len(group.checks))
+            if rows != list(range(len(group.checks))):
+                pick = np.array(rows, dtype=np.int64)
+                out.append(FamilyBatch(tuple(group.checks[r] for r in rows), joint[pick], group.likelihood[pick]))
+            else:
+                out.append(FamilyBatch(group.checks, joint, group.likelihood))
+        return out
+
     def cause_joint(self, check_id: str, epoch: int | None = None) -> np.ndarray:
         """P(c | findings) over the joint states c of a check's causes, flat, length 2**m.
 
@@ -328,3 +527,120 @@ class Posterior:
         epoch = self.epoch if epoch is None else epoch
         fam = self.network.families[(check_id, epoch)]
         return self.cause_joint(check_id, epoch), fam.p_abnormal().reshape(-1)
+
+    def most_probable_state(self) -> tuple[tuple[str, ...], float]:
+        """The most probable joint state of the roots given the findings: (failed roots, its probability).
+
+        One max-product pass over the same join tree (Dawid 1992): gates are
+        functions of the roots, so the best state of every variable carries
+        the best state of the roots. Exact, at the cost of one propagation.
+        """
+        state, log_m = self.tree.max_propagate(self._evidence)
+        index = self.tree.index
+        failed = tuple(r for r in self.model.hypotheses if state.get(index[r], 0) == 1)
+        return failed, float(np.exp(min(0.0, log_m + self._log_constant - self.log_p)))
+
+
+class CompiledPosterior:
+    """What one pass over the evidence diagram gives; the interface of :class:`Posterior`.
+
+    Attributes
+    ----------
+    log_p : float
+        Natural log of P(findings).
+    findings, repairs : tuple
+    epoch : int
+    """
+
+    engine = COMPILED
+
+    def __init__(self, model: Model, compiled: CompiledModel, passes: Passes, findings, repairs):
+        self.model = model
+        self.compiled = compiled
+        self.passes = passes
+        self.findings = findings
+        self.repairs = repairs
+        self.epoch = len(repairs)
+        self.log_p = math.log(passes.p_evidence)
+        self._levels = np.array([compiled.level[r] for r in model.hypotheses], dtype=np.int64)
+        self._families: dict = {}
+        self._gates: dict = {}
+
+    def root_marginals(self) -> np.ndarray:
+        """P(failed | findings) of every hypothesis, in ``model.hypotheses`` order."""
+        return self.passes.root_marginals[self._levels]
+
+    def p_failed(self, node_id: str, epoch: int | None = None) -> float:
+        """P(event or gate failed | findings), at an epoch (default: now)."""
+        epoch = self.epoch if epoch is None else epoch
+        if node_id not in self.model.gate_by_id and node_id not in self.compiled.level:
+            raise SessionError(f"unknown event or gate {node_id!r}")
+        key = (node_id, epoch)
+        if key not in self._gates:
+            f = self.compiled.function_at(node_id, self.repairs, epoch)
+            self._gates[key] = float(f) if f in (0, 1) else float(self.passes.joint((f,))[1])
+        return self._gates[key]
+
+    @property
+    def marginals(self) -> dict[str, float]:
+        """P(failed | findings) of every root and every gate (gates at the current epoch)."""
+        out = {r: float(p) for r, p in zip(self.model.hypotheses, self.root_marginals())}
+        for g in self.model.gates:
+            out[g.id] = self.p_failed(g.id)
+        return out
+
+    def family(self, check_id: str, epoch: int | None = None) -> CheckFamily:
+        """What a check reads at an epoch (its distinct causes as diagram ids, their cumulative tables)."""
+        epoch = self.epoch if epoch is None else epoch
+        return self.compiled.family(check_id, self.repairs, epoch)[1]
+
+    def check_likelihood(self, check_id: str, epoch: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """(P(c | findings), P(outcome | c)), rows in the same order (as :class:`Posterior`).
+
+        Up to MAX_CAUSE_STATES_BITS distinct causes the rows are the 2**m
+        cause states; a wider check's rows are its cause states grouped by
+        likelihood (the consumers only pair the two arrays).
+        """
+        epoch = self.epoch if epoch is None else epoch
+        key = (check_id, epoch)
+        if key not in self._families:
+            causes, fam = self.compiled.family(check_id, self.repairs, epoch)
+            if len(causes) <= MAX_CAUSE_STATES_BITS:
+                self._families[key] = (self.passes.joint(causes), fam.likelihood().reshape(-1, fam.n_outcomes))
+            else:
+                sums, mass = self.passes.joint_by_likelihood(causes, fam.log_cdfs)
+                log_cdf = np.array(fam.leak_log_cdf)[None, :] + np.array(sums).reshape(len(sums), -1)
+                self._families[key] = (mass, table_from_log_cdf(log_cdf, fam.order))
+        return self._families[key]
+
+    def family_batches(self, check_ids, epoch: int | None = None) -> list[FamilyBatch]:
+        """As :meth:`Posterior.family_batches`: the checks' (joint, table) stacked by shape."""
+        groups: dict[tuple[int, ...], list] = {}
+        for check_id in check_ids:
+            joint, table = self.check_likelihood(check_id, epoch)
+            groups.setdefault(table.shape, []).append((check_id, joint, table))
+        return [FamilyBatch(tuple(c for c, _, _ in items), np.stack([j for _, j, _ in items]),
+                            np.stack([t for _, _, t in items])) for items in groups.values()]
+
+    def cause_joint(self, check_id: str, epoch: int | None = None) -> np.ndarray:
+        """P(c | findings) over the rows of :meth:`check_likelihood`."""
+        return self.check_likelihood(check_id, epoch)[0]
+
+    def check_family(self, check_id: str, epoch: int | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """(P(c | findings), P(any abnormal outcome | c)), rows as :meth:`check_likelihood`."""
+        joint, table = self.check_likelihood(check_id, epoch)
+        return joint, 1.0 - table[:, 0]
+
+    def most_probable_state(self) -> tuple[tuple[str, ...], float]:
+        """The most probable joint state of the roots given the findings: (failed roots, its probability).
+
+        One max pass over the evidence diagram, whose leaves already hold the
+        checks' noise summed out: exact, at the cost of one pass.
+        """
+        state, log_joint = self.passes.max_state()
+        failed = tuple(r for r, lv in zip(self.model.hypotheses, self._levels) if state[lv] == 1)
+        return failed, float(np.exp(min(0.0, log_joint - self.log_p)))
+
+
+#: What :meth:`Engine.propagate` gives: either posterior, read through the same interface.
+AnyPosterior = Posterior | CompiledPosterior

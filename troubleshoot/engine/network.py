@@ -31,7 +31,8 @@ import networkx as nx
 import numpy as np
 
 from troubleshoot.engine.observation import CheckFamily, check_family, max_table
-from troubleshoot.model import DERIVED, Model, unlisted_id
+from troubleshoot.model import DERIVED, Model
+from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective
 
 __all__ = ["CheckFamily", "Network", "build_network", "MAX_FANIN"]
 
@@ -140,6 +141,7 @@ class _Builder:
         self.g = self.net.graph
         self.max_fanin = max_fanin
         self._depends: dict[str, frozenset] = {}
+        self._tables: dict[tuple[str, int], np.ndarray] = {}  # one read-only table per (kind, arity)
 
     # -- nodes -----------------------------------------------------------
     def add_node(self, node_id, role, parents, table, label="", states=("ok", "failed")):
@@ -150,7 +152,12 @@ class _Builder:
         return node_id
 
     def det(self, node_id, kind, operands, role=AUX, label=""):
-        return self.add_node(node_id, role, operands, _deterministic_table(kind, len(operands)), label)
+        key = (kind, len(operands))
+        table = self._tables.get(key)
+        if table is None:
+            table = self._tables[key] = _deterministic_table(*key)
+            table.setflags(write=False)
+        return self.add_node(node_id, role, operands, table, label)
 
     def logic(self, name: str, kind: str, operands: list, named: bool) -> str | bool:
         """AND/OR over operands with constants folded and fan-in bounded.
@@ -234,20 +241,36 @@ class _Builder:
                              self.model.label_of(name.split(DERIVED)[0]))
 
     def _atleast_shannon(self, name: str, k: int, operands: list, named: bool) -> str | bool:
-        """x_i ? atleast(k-1, rest) : atleast(k, rest), as three-input nodes."""
+        """x_i ? atleast(k-1, rest) : atleast(k, rest), as three-input nodes.
+
+        The sub-problems (need, i) are solved with an explicit stack, children
+        before parents, so k and n are limited by memory, not by recursion.
+        """
         memo: dict = {}
         n = len(operands)
 
-        def build(need: int, i: int):
+        def known(need: int, i: int):
             if need <= 0:
                 return True
             if n - i < need:
                 return False
-            key = (need, i)
-            if key in memo:
-                return memo[key]
+            return memo.get((need, i))
+
+        stack = [(k, 0)]
+        while stack:
+            need, i = stack[-1]
+            if known(need, i) is not None:
+                stack.pop()
+                continue
+            hi, lo = known(need - 1, i + 1), known(need, i + 1)
+            if hi is None or lo is None:
+                if hi is None:
+                    stack.append((need - 1, i + 1))
+                if lo is None:
+                    stack.append((need, i + 1))
+                continue
+            stack.pop()
             x = operands[i]
-            hi, lo = build(need - 1, i + 1), build(need, i + 1)
             if x is True:
                 result = hi
             elif x is False:
@@ -262,21 +285,33 @@ class _Builder:
                 result = self.logic(f"{name}{DERIVED}k{need}_{i}", "and", [x, hi], False)
             else:
                 result = self.det(f"{name}{DERIVED}k{need}_{i}", "ite", [x, hi, lo])
-            memo[key] = result
-            return result
+            memo[(need, i)] = result
 
-        result = build(k, 0)
+        result = known(k, 0)
         if not named:
             return result
         if isinstance(result, bool):
             return self.constant(name, result, True)
         if isinstance(result, str) and result.startswith(f"{name}{DERIVED}k"):
-            nx.relabel_nodes(self.g, {result: name}, copy=False)
-            self._relabel_parents(result, name)
+            self._rename(result, name)
             self.g.nodes[name]["role"] = GATE
             self.g.nodes[name]["label"] = self.model.label_of(name)
             return name
         return self.det(name, "copy", [result], GATE, self.model.label_of(name))
+
+    def _rename(self, old: str, new: str):
+        """Rename a node in place, as networkx.relabel_nodes(copy=False) does, in time of its degree.
+
+        (relabel_nodes scans the whole graph per call: quadratic over a
+        large tree's voting gates.)
+        """
+        g = self.g
+        preds, succs = list(g.predecessors(old)), list(g.successors(old))
+        g.add_node(new, **g.nodes[old])
+        g.add_edges_from((p, new) for p in preds)
+        g.add_edges_from((new, c) for c in succs)
+        g.remove_node(old)
+        self._relabel_parents(old, new)
 
     def _relabel_parents(self, old: str, new: str):
         for child in self.g.successors(new):
@@ -285,53 +320,67 @@ class _Builder:
 
     # -- the model -------------------------------------------------------
     def depends_on(self, node_id: str) -> frozenset:
-        """Roots a gate or event reads, transitively."""
+        """Roots a gate or event reads, transitively (gates visited children first)."""
         if node_id in self._depends:
             return self._depends[node_id]
-        gate = self.model.gate_by_id.get(node_id)
-        if gate is None:
-            result = frozenset([node_id])
-        else:
-            result = frozenset().union(*(self.depends_on(x) for x in gate.operands))
-            if gate.unlisted is not None:
-                result |= {unlisted_id(gate.id)}
-        self._depends[node_id] = result
-        return result
+        gates = self.model.gate_by_id
+        if node_id not in gates:
+            return frozenset([node_id])
+        for gate_id in bottom_up(self.model, [node_id], skip=self._depends.__contains__):
+            operands = connective(gates[gate_id]).operands
+            self._depends[gate_id] = frozenset().union(
+                *(self._depends[x] if x in gates else frozenset([x]) for x in operands))
+        return self._depends[node_id]
 
     def gate_at(self, gate_id: str, epoch: int) -> str | bool:
+        """The node (or constant) carrying a gate or root at an epoch, built if new.
+
+        The gates under it are built first, children before parents, with an
+        explicit stack (:func:`~troubleshoot.model.gates.bottom_up`).
+        """
         key = (gate_id, epoch)
         if key in self.net.gate_node:
             return self.net.gate_node[key]
+        if gate_id in self.model.gate_by_id:
+            built = self.net.gate_node
+            for below in bottom_up(self.model, [gate_id], skip=lambda g: (g, epoch) in built):
+                self._build(below, epoch)
+        else:
+            self._build(gate_id, epoch)
+        return self.net.gate_node[key]
+
+    def _operand(self, node_id: str, epoch: int) -> str | bool:
+        """An operand already built at this epoch (a root is looked up or held working)."""
+        key = (node_id, epoch)
+        if key not in self.net.gate_node:
+            self._build(node_id, epoch)  # a root: no operands of its own
+        return self.net.gate_node[key]
+
+    def _build(self, gate_id: str, epoch: int) -> None:
+        """Build one gate or root at an epoch; the gates it reads are built already."""
         repaired = set(self.net.repairs[:epoch])
         if epoch > 0 and not (self.depends_on(gate_id) & repaired):
             result = self.gate_at(gate_id, 0)
         elif gate_id not in self.model.gate_by_id:  # a root
             result = False if gate_id in repaired else gate_id
         else:
-            gate = self.model.gate_by_id[gate_id]
+            conn = connective(self.model.gate_by_id[gate_id])
             name = gate_id if epoch == 0 else f"{gate_id}{DERIVED}r{epoch}"
-            operands = [self.gate_at(x, epoch) for x in gate.inputs]
+            operands = [self._operand(x, epoch) for x in conn.operands]
             named = epoch == 0
-            if gate.kind == "or":
-                if gate.unlisted is not None:
-                    operands.append(self.gate_at(unlisted_id(gate.id), epoch))
-                result = self.logic(name, "or", operands, named)
-            elif gate.kind == "and":
-                result = self.logic(name, "and", operands, named)
-            elif gate.kind == "inhibit":
-                result = self.logic(name, "and", operands + [self.gate_at(gate.condition, epoch)], named)
-            elif gate.kind == "atleast":
-                result = self.atleast(name, gate.k, operands, named)
-            elif gate.kind == "not":
+            if conn.op in (AND, OR):
+                result = self.logic(name, conn.op, operands, named)
+            elif conn.op == ATLEAST:
+                result = self.atleast(name, conn.threshold(), operands, named)
+            elif conn.op == NOT:
                 (op,) = operands
                 if isinstance(op, bool):
                     result = self.constant(name, not op, named) if named else (not op)
                 else:
                     result = self.det(name, "not", [op], GATE if named else AUX, self.model.label_of(gate_id))
-            else:
-                raise ValueError(f"unknown gate kind {gate.kind!r}")
-        self.net.gate_node[key] = result
-        return result
+            else:  # pragma: no cover - connective() knows no other
+                raise ValueError(f"unknown connective {conn.op!r}")
+        self.net.gate_node[(gate_id, epoch)] = result
 
     def family(self, check, epoch: int) -> CheckFamily:
         return check_family(check, epoch, lambda target: self.gate_at(target, epoch))

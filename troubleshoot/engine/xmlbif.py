@@ -1,9 +1,11 @@
 """The network in XMLBIF 0.3 (an open interchange format for Bayesian networks).
 
 Variable names are the model's ids; events and gates have the states
-``ok``, ``failed`` in that order; checks and symptoms have their two outcome
-names in the model's order; nodes added by the exact decomposition of wide
-gates appear under derived names containing ``~``.
+``ok``, ``failed`` in that order; checks and symptoms have their K outcome
+names in the model's order (normal first), with the noisy-OR or noisy-MAX
+table of :mod:`troubleshoot.engine.observation`; nodes added by the exact
+decomposition of wide gates and wide checks appear under derived names
+containing ``~``.
 
 References
 ----------

@@ -21,13 +21,24 @@ def is_mef_file(path: Path) -> bool:
     return False
 
 
-def resolve_model_path(spec: str) -> Path:
-    """The file a MODEL argument names: an existing path, or a bundled demo's name."""
+def model_path(spec: str) -> Path:
+    """The path a MODEL argument stands for: an existing file wins over a demo of the same name.
+
+    Not checked further: a path that does not exist is returned as given.
+    """
     from troubleshoot.model.demos import DEMOS, demo_path
 
     path = Path(spec)
     if not path.exists() and spec in DEMOS:
-        path = demo_path(spec)
+        return demo_path(spec)
+    return path
+
+
+def resolve_model_path(spec: str) -> Path:
+    """The file a MODEL argument names: an existing path, or a bundled demo's name."""
+    from troubleshoot.model.demos import DEMOS
+
+    path = model_path(spec)
     if not path.exists():
         raise ModelError([Problem(spec, None, "no such file; give the path of a model file or a demo name "
                                               f"({', '.join(sorted(DEMOS))})")])

@@ -15,8 +15,11 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Mapping
+from functools import lru_cache
+from typing import TypeGuard
 
 import networkx as nx
+from lxml import etree
 
 from troubleshoot.errors import Problem
 from troubleshoot.model import (
@@ -28,9 +31,12 @@ from troubleshoot.model import (
     exponential_probability,
 )
 
-#: An NCName without ':' (and so without '~'): a letter or '_' first, then
-#: letters, digits, '-', '_' or '.'. Unicode letters are accepted, as in XML.
-_ID = re.compile(r"^[^\W\d][\w.\-]*$")
+#: An ASCII id: a letter or '_' first, then letters, digits, '-', '_' or '.'.
+_ASCII_ID = re.compile(r"[A-Za-z_][A-Za-z0-9_.\-]*", re.ASCII)
+
+#: A schema holding one element of the xs:NCName type our schema's ids derive from.
+_NCNAME_SCHEMA = b"""<xs:schema xmlns:xs="http://www.w3.org/2001/XMLSchema">
+  <xs:element name="id" type="xs:NCName"/></xs:schema>"""
 
 #: Relative tolerance for a probability given next to a rate and exposure.
 _RATE_TOLERANCE = 1e-9
@@ -40,11 +46,44 @@ LineKey = tuple
 
 
 def is_valid_id(text: object) -> bool:
-    """True for an id the model format accepts: an XML NCName without '~'."""
-    return isinstance(text, str) and DERIVED not in text and bool(_ID.match(text))
+    """True for an id the model format accepts: an XML NCName without '~'.
+
+    An ASCII id is checked here; any other is checked by the XML Schema
+    library that checks model files (libxml2), so this rule and the schema
+    agree on every character, combining marks and letters of every script
+    included (libxml2 uses the character classes of XML 1.0, 4th edition).
+    """
+    if not isinstance(text, str) or not text or DERIVED in text:
+        return False
+    if text.isascii():
+        return _ASCII_ID.fullmatch(text) is not None
+    if text != text.strip() or any(c.isspace() or c in "<&" for c in text):
+        return False  # the schema would collapse blanks before it checks
+    return _schema_accepts_ncname(text)
 
 
-def _is_number(value: object) -> bool:
+@lru_cache(maxsize=4096)
+def is_valid_id_char(char: str) -> bool:
+    """True when ``char`` may appear after the first character of an id."""
+    return is_valid_id("a" + char)
+
+
+@lru_cache(maxsize=1)
+def _ncname_schema() -> etree.XMLSchema:
+    return etree.XMLSchema(etree.fromstring(_NCNAME_SCHEMA))
+
+
+@lru_cache(maxsize=65536)
+def _schema_accepts_ncname(text: str) -> bool:
+    element = etree.Element("id")
+    try:
+        element.text = text
+    except ValueError:  # a character XML cannot hold at all
+        return False
+    return bool(_ncname_schema().validate(element))
+
+
+def _is_number(value: object) -> TypeGuard[int | float]:
     return isinstance(value, (int, float)) and not isinstance(value, bool)
 
 

@@ -16,10 +16,11 @@ W3C, *XML Schema Part 1: Structures*, 2004.
 
 from __future__ import annotations
 
+import math
 import os
-import tempfile
 import textwrap
 from functools import lru_cache
+from typing import overload
 from importlib import resources
 from pathlib import Path
 
@@ -175,6 +176,12 @@ _SCHEMA_HINTS = {
 }
 
 
+def _usable_law(rate: float | None, exposure: float | None) -> bool:
+    """A rate and an exposure the exponential law can take: finite, rate >= 0, exposure > 0."""
+    return (rate is not None and exposure is not None and math.isfinite(rate) and math.isfinite(exposure)
+            and rate >= 0 and exposure > 0)
+
+
 def _clean_text(raw: str | None) -> str:
     """Text of an element as written, without the indentation of the file.
 
@@ -222,6 +229,12 @@ class _Builder:
 
     def child_text(self, element: etree._Element, tag: str) -> str:
         return self.text(self.child(element, tag))
+
+    @overload
+    def number(self, raw: str | None, line: int | None, what: str, default: float) -> float: ...
+
+    @overload
+    def number(self, raw: str | None, line: int | None, what: str, default: None) -> float | None: ...
 
     def number(self, raw: str | None, line: int | None, what: str, default: float | None) -> float | None:
         if raw is None:
@@ -377,7 +390,9 @@ class _Builder:
             self.lines[(eid, "failure-rate")] = rate_line
             rate = self.number(rate_element.get("per-hour"), rate_line, f"basic event '{eid}' failure rate", 0.0)
             exposure = self.number(rate_element.get("exposure-hours"), rate_line, f"basic event '{eid}' exposure", None)
-            if rate is not None and exposure is not None:
+            # Values are checked before any arithmetic: a negative rate would
+            # overflow exp(); the validator reports it with its line.
+            if exposure is not None and _usable_law(rate, exposure):
                 probability = exponential_probability(rate, exposure)
         else:
             self.error(
@@ -426,11 +441,11 @@ class _Builder:
 
     def gives(self, cid: str, elements: list, key: tuple, what: str) -> tuple[tuple[str, float], ...]:
         """(outcome, probability) pairs of <shows> or <false-alarm> elements."""
-        out = []
+        out: list[tuple[str, float]] = []
         for j, item in enumerate(elements):
             self.lines[key + (j,)] = item.sourceline
-            out.append((_clean_text(item.get("outcome")),
-                        self.number(item.get("probability"), item.sourceline, f"'{cid}' {what}", 0.0)))
+            p = self.number(item.get("probability"), item.sourceline, f"'{cid}' {what}", 0.0)
+            out.append((_clean_text(item.get("outcome")), 0.0 if p is None else p))
         return tuple(out)
 
     def check(self, element: etree._Element, symptom: bool) -> Check:
@@ -528,7 +543,7 @@ def model_to_tree(model: Model) -> etree._Element:
     tree = _sub(root, "fault-tree")
     for gate in model.gates:
         element = _sub(tree, GATE_TAGS[gate.kind], id=gate.id)
-        if gate.kind == "atleast":
+        if gate.kind == "atleast" and gate.k is not None:  # a missing k is the validator's to report
             element.set("k", str(int(gate.k)))
         if gate.kind == "or" and gate.unlisted is not None:
             element.set("unlisted-causes", _number(gate.unlisted))
@@ -545,7 +560,9 @@ def model_to_tree(model: Model) -> etree._Element:
         if event.description:
             _sub(element, "description", event.description)
         if event.rate is not None:
-            _sub(element, "failure-rate", per_hour=_number(event.rate), exposure_hours=_number(event.exposure))
+            law = _sub(element, "failure-rate", per_hour=_number(event.rate))
+            if event.exposure is not None:  # a missing exposure is the validator's to report
+                law.set("exposure-hours", _number(event.exposure))
         else:
             _sub(element, "probability", _number(event.probability))
         if event.repair is not None:
@@ -619,16 +636,13 @@ def save_model(model: Model, path: str | os.PathLike) -> None:
     except ValueError as exc:  # lxml refuses control characters
         raise ModelError([Problem(name, None, f"the model holds text XML cannot carry ({exc}); remove control characters")]) from None
     data = b'<?xml version="1.0" encoding="UTF-8"?>\n' + etree.tostring(root, encoding="UTF-8", pretty_print=True)
-    target = Path(path)
-    directory = target.parent if str(target.parent) else Path(".")
-    temporary = None
+    from troubleshoot.errors import OutputError
+    from troubleshoot.files import write_output
+
     try:
-        handle, temporary = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=directory)
-        with os.fdopen(handle, "wb") as stream:
-            stream.write(data)
-        os.chmod(temporary, 0o644)  # mkstemp makes it private; a model file is an ordinary file
-        os.replace(temporary, target)
-    except OSError as exc:
-        if temporary is not None and os.path.exists(temporary):
-            os.unlink(temporary)
-        raise ModelError([Problem(name, None, f"cannot write the file ({exc.strerror}); check the folder and permissions")]) from None
+        write_output(path, data, "model file")
+    except OutputError as exc:
+        message = str(exc)
+        if message.startswith(name + ": "):
+            message = message[len(name) + 2:]
+        raise ModelError([Problem(name, None, message)]) from None

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import os
 import re
-from pathlib import Path
 
 from lxml import etree
 
@@ -71,40 +70,29 @@ def parse_xml_file(path: str | os.PathLike, max_bytes: int = DEFAULT_MAX_BYTES) 
     ------
     ModelError
         One problem naming the file (and line, when there is one) if the file
-        is missing, too large, empty, not XML, cut short, or declares entities
-        in a DOCTYPE (external entities and entity-expansion bombs are refused
-        outright, never expanded).
+        is missing, too large, empty, not XML, cut short, names an external
+        DTD or declares entities in a DOCTYPE (external entities and
+        entity-expansion bombs are refused outright, never expanded).
 
     Notes
     -----
-    A DOCTYPE without entity declarations is tolerated (its external DTD is
-    never loaded); one with any ``<!ENTITY`` is refused, because a model
-    needs none and every entity attack starts with one.
+    A DOCTYPE with only an internal subset and no entity declaration is
+    tolerated. One naming an external DTD (``SYSTEM`` or ``PUBLIC``) or
+    declaring any ``<!ENTITY`` is refused, because a model needs neither and
+    every entity attack starts with one. UTF-8, UTF-16 and UTF-32 files are
+    read, with or without a byte-order mark.
     """
+    from troubleshoot.errors import InputError
+    from troubleshoot.files import read_input
+
     name = str(path)
-    file_path = Path(path)
     try:
-        size = file_path.stat().st_size
-    except FileNotFoundError:
-        raise _error(name, None, "file not found; check the path") from None
-    except OSError as exc:
-        raise _error(name, None, f"cannot read the file ({exc.strerror}); check the path and permissions") from None
-    if file_path.is_dir():
-        raise _error(name, None, "this is a folder, not a file; give the path of an XML file")
-    if size > max_bytes:
-        raise _error(
-            name,
-            None,
-            f"file is {_megabytes(size)}, larger than the {_megabytes(max_bytes)} limit; "
-            "a model file is normally well under 1 MB - check that this is the right file",
-        )
-    try:
-        with open(file_path, "rb") as handle:
-            data = handle.read(max_bytes + 1)
-    except OSError as exc:
-        raise _error(name, None, f"cannot read the file ({exc.strerror}); check the path and permissions") from None
-    if len(data) > max_bytes:  # grew while we looked
-        raise _error(name, None, f"file is larger than the {_megabytes(max_bytes)} limit")
+        data = read_input(path, max_bytes, "XML file")
+    except InputError as exc:
+        message = str(exc)
+        if message.startswith(name + ": "):
+            message = message[len(name) + 2:]
+        raise _error(name, None, message) from None
     return parse_xml_bytes(data, name)
 
 
@@ -112,12 +100,27 @@ def parse_xml_bytes(data: bytes, name: str) -> etree._Element:
     """Parse XML already read into memory, with the same checks as :func:`parse_xml_file`.
 
     ``name`` is the file name used in messages.
+
+    Notes
+    -----
+    The encoding is found as XML 1.0 Appendix F says: a byte-order mark, or
+    else the first bytes of ``<?xml`` in UTF-32 or UTF-16 (big or little
+    endian), or else UTF-8 or the encoding the declaration names. A UTF-16
+    or UTF-32 file is decoded here and handed to the parser as UTF-8 (same
+    lines), so every such file reads the same with or without its mark.
+    Before parsing, the text is searched for a DOCTYPE naming an external
+    DTD (``SYSTEM`` or ``PUBLIC``) and for entity declarations; both are
+    refused, so the parser never has a DTD or an entity to load.
     """
     if not data.strip():
         raise _error(name, None, "file is empty; a model file starts with <?xml version=\"1.0\"?>")
-    if b"\x00" in data[:4096] and not data.startswith((b"\xff\xfe", b"\xfe\xff", b"\x00\x00\xfe\xff")):
+    data = _as_utf8(data, name)
+    if b"\x00" in data[:4096]:
         raise _error(name, 1, "file holds binary data, not XML; check that this is the right file")
-    if _declares_entities(data):
+    external = _EXTERNAL_DTD.search(data)
+    if external is not None:
+        raise _external_dtd_refused(name, data, external)
+    if b"<!ENTITY" in data:
         raise _entities_refused(name, data)
     try:
         root = etree.fromstring(data, safe_parser())
@@ -127,11 +130,14 @@ def parse_xml_bytes(data: bytes, name: str) -> etree._Element:
         raise _error(name, 1, f"not readable as XML ({exc}); save the file as UTF-8") from None
     if root is None:
         raise _error(name, None, "no XML element found; check that this is the right file")
-    dtd = root.getroottree().docinfo.internalDTD
+    docinfo = root.getroottree().docinfo
+    if docinfo.system_url or docinfo.public_id:  # written in a way the search above missed
+        raise _error(name, _doctype_line(data), _external_dtd_message(docinfo.public_id, docinfo.system_url))
+    dtd = docinfo.internalDTD
     if dtd is not None and any(True for _ in dtd.iterentities()):
         raise _entities_refused(name, data)
     for entity in root.iter(etree.Entity):
-        # An entity the (never loaded) external DTD would define: left unexpanded, refused.
+        # An entity reference with no declaration at all: left unexpanded, refused.
         raise _error(
             name,
             entity.sourceline,
@@ -141,12 +147,66 @@ def parse_xml_bytes(data: bytes, name: str) -> etree._Element:
     return root
 
 
-def _declares_entities(data: bytes) -> bool:
-    """True when the raw bytes hold an entity declaration, in UTF-8 or UTF-16."""
-    return any(
-        marker in data
-        for marker in (b"<!ENTITY", "<!ENTITY".encode("utf-16-le"), "<!ENTITY".encode("utf-16-be"))
-    )
+#: Byte-order marks and the first bytes of '<?' without one (XML 1.0, Appendix F).
+_SIGNATURES = (
+    (b"\x00\x00\xfe\xff", "utf-32-be", 4), (b"\xff\xfe\x00\x00", "utf-32-le", 4),
+    (b"\xfe\xff", "utf-16-be", 2), (b"\xff\xfe", "utf-16-le", 2),
+    (b"\x00\x00\x00<", "utf-32-be", 0), (b"<\x00\x00\x00", "utf-32-le", 0),
+    (b"\x00<\x00?", "utf-16-be", 0), (b"<\x00?\x00", "utf-16-le", 0),
+)
+
+_DECLARED_ENCODING = re.compile(rb"""^(<\?xml[^>]*?\sencoding\s*=\s*)(["'])([A-Za-z0-9._-]*)\2""")
+
+
+def _as_utf8(data: bytes, name: str) -> bytes:
+    """The document as UTF-8 bytes when it is written in UTF-16 or UTF-32, else unchanged.
+
+    The XML declaration's encoding is rewritten to UTF-8 in place, so line
+    numbers stay those of the file.
+    """
+    found = next(((encoding, mark) for signature, encoding, mark in _SIGNATURES if data.startswith(signature)), None)
+    if found is None:
+        return data
+    encoding, mark = found
+    width = "UTF-32" if "32" in encoding else "UTF-16"
+    try:
+        text = data[mark:].decode(encoding)
+    except UnicodeDecodeError:
+        raise _error(name, 1, f"the file starts as {width} text but is not valid {width} "
+                     "(cut short or mixed encodings?); save the file as UTF-8") from None
+    encoded = text.encode("utf-8", errors="surrogatepass")
+    declared = _DECLARED_ENCODING.match(encoded)
+    if declared is not None:
+        value = declared.group(3).decode("ascii").upper().replace("_", "-")
+        if not value.startswith(("UTF-16", "UTF-32", "UCS-2", "UCS-4", "ISO-10646-UCS")):
+            raise _error(name, 1, f"the file is written in {width} but its declaration says "
+                         f"encoding=\"{declared.group(3).decode('ascii')}\"; save the file as UTF-8")
+        encoded = declared.group(1) + declared.group(2) + b"UTF-8" + declared.group(2) + encoded[declared.end():]
+    return encoded
+
+
+#: A DOCTYPE naming an external DTD: <!DOCTYPE name SYSTEM "..."> or PUBLIC "..." "...".
+_EXTERNAL_DTD = re.compile(rb"<!DOCTYPE\s+[^\s\[>]+\s+(SYSTEM|PUBLIC)\b\s*(?:([\"'])(.*?)\2)?\s*(?:([\"'])(.*?)\4)?",
+                           re.DOTALL)
+
+
+def _external_dtd_message(public_id: str | None, system_url: str | None) -> str:
+    where = system_url or public_id or "an external file"
+    kind = "on the network" if re.match(r"[A-Za-z][A-Za-z0-9+.-]*://", where) else "in another file"
+    return (f"the DOCTYPE names an external DTD ({where!r}, {kind}); external DTDs are never read "
+            "or fetched, so the file is refused: remove the DOCTYPE line (a model file needs none)")
+
+
+def _external_dtd_refused(name: str, data: bytes, match: re.Match) -> ModelError:
+    if match.group(1) == b"PUBLIC":
+        public, system = match.group(3), match.group(5)
+    else:
+        public, system = None, match.group(3)
+    def decode(raw: bytes | None) -> str | None:
+        return raw.decode("utf-8", errors="replace") if raw is not None else None
+
+    return _error(name, data.count(b"\n", 0, match.start()) + 1,
+                  _external_dtd_message(decode(public), decode(system)))
 
 
 def _entities_refused(name: str, data: bytes) -> ModelError:
@@ -188,8 +248,6 @@ _SYNTAX_REWRITES: list[tuple[re.Pattern[str], str]] = [
     (re.compile(r"Detected an entity reference loop|Maximum entity amplification.*|"
                 r"xmlParseEntityRef: no name|Excessive depth.*|.*huge input lookup.*"),
      "the file exceeds the parser's safety limits (entity loop, deep nesting or huge text); it is refused"),
-    (re.compile(r"failed to load \"?([^\"]*)\"?: Attempt to load network entity"),
-     r"the DOCTYPE refers to \1 on the network, which is never fetched; remove the DOCTYPE line"),
     (re.compile(r"Entity '(\S+)' not defined"),
      r"the entity &\1; is not defined; write the character itself (use &amp; for '&')"),
 ]
@@ -197,7 +255,8 @@ _SYNTAX_REWRITES: list[tuple[re.Pattern[str], str]] = [
 
 def plain_syntax_message(exc: etree.XMLSyntaxError) -> str:
     """One plain sentence for an XML syntax error, saying what to fix."""
-    raw = (exc.msg or str(exc)).strip()
+    # libxml2 may append the offending source text on further lines: one line is kept.
+    raw = ((exc.msg or str(exc)).strip().splitlines() or [""])[0].strip()
     raw = re.sub(r",? line \d+, column \d+$", "", raw)
     for pattern, replacement in _SYNTAX_REWRITES:
         match = pattern.search(raw)

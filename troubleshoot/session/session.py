@@ -12,22 +12,12 @@ remaining entropy are computed from it once and cached.
 The command line, the terminal UI and the simulator only call the methods
 below and read :attr:`Session.state` (plain Python data, no numpy).
 
-Actions (each also available as a dict for :meth:`Session.apply`, the form the
-log stores):
-
-=====================  ==========================================================
-method                 dict
-=====================  ==========================================================
-record_finding         {"action": "finding", "check": ID, "outcome": NAME}
-retract_finding        {"action": "retract", "check": ID, "epoch": K}
-correct_finding        {"action": "correct", "check": ID, "outcome": NAME, "epoch": K}
-skip_check             {"action": "skip", "check": ID, "reason": TEXT}
-unskip_check           {"action": "unskip", "check": ID}
-record_repair          {"action": "repair", "event": ID}
-record_verification    {"action": "verify", "outcome": NAME}
-add_note               {"action": "note", "text": TEXT}
-undo                   {"action": "undo"}
-=====================  ==========================================================
+Actions are typed (:mod:`troubleshoot.session.actions`: one dataclass each);
+:meth:`Session.apply` takes one (or the dict the log stores) and calls the
+method: ``record_finding``, ``retract_finding``, ``correct_finding``,
+``skip_check``, ``unskip_check``, ``record_repair``, ``record_verification``,
+``add_note``, ``acknowledge_caution``, ``undo``, ``record_resume``.
+:attr:`Session.actions` lists them in order as committed.
 
 Status, in this order of precedence:
 
@@ -63,6 +53,7 @@ from troubleshoot.advice.diagnosis import (
     Suspect,
     ambiguity_group,
     entropy_bits,
+    is_unlisted,
     isolated_suspect,
     most_probable_explanation,
     suspects,
@@ -88,9 +79,25 @@ from troubleshoot.advice.repair import (
     verification_for,
     verification_of,
 )
-from troubleshoot.engine.inference import Engine, Finding, Posterior
+from troubleshoot.engine.inference import AnyPosterior, Engine, Finding
 from troubleshoot.errors import SessionError
-from troubleshoot.model import Model
+from troubleshoot.model import DERIVED, Model
+from troubleshoot.session.actions import (
+    EVENTS,
+    AcknowledgeCaution,
+    Action,
+    AddNote,
+    CorrectFinding,
+    RecordFinding,
+    RecordRepair,
+    RecordVerification,
+    Resume,
+    RetractFinding,
+    SkipCheck,
+    Undo,
+    UnskipCheck,
+    as_action,
+)
 
 DIAGNOSING = Status.DIAGNOSING
 ISOLATED = Status.ISOLATED
@@ -231,7 +238,7 @@ class SessionState:
 class SessionLogWriter(Protocol):
     """What a session needs from its log (see :class:`troubleshoot.session.logfile.LogWriter`)."""
 
-    def write_action(self, action: dict, view: SessionView) -> None: ...
+    def write_action(self, action: Action, view: SessionView) -> None: ...
 
     def close(self) -> None: ...
 
@@ -240,7 +247,7 @@ class SessionView:
     """A record with its posterior and everything derived from it (computed once, lazily)."""
 
     def __init__(self, model: Model, engine: Engine, settings: SessionSettings, record: Record,
-                 posterior: Posterior):
+                 posterior: AnyPosterior):
         self.model = model
         self.engine = engine
         self.settings = settings
@@ -481,7 +488,7 @@ class Session:
         record = Record((Observation(Finding(model.top, 1, 0), COMPLAINT),))
         self._view = self._make_view(record)
         self._history: list[SessionView] = []
-        self.actions: list[dict] = []  # committed actions, in order (undo included)
+        self.actions: list[Action] = []  # committed actions, in order (undo, acknowledgements, resumes included)
         self.resume_warnings: list[str] = []  # set by resume_session
 
     # ------------------------------------------------------------------ reading
@@ -501,7 +508,7 @@ class Session:
         return self._view.status
 
     @property
-    def posterior(self) -> Posterior:
+    def posterior(self) -> AnyPosterior:
         return self._view.posterior
 
     @property
@@ -557,7 +564,7 @@ class Session:
                                    "correct or retract that finding instead")
         new = replace(rec, observations=rec.observations + (Observation(Finding(check_id, index, rec.epoch),
                                                                          OBSERVATION),))
-        return self._commit({"action": "finding", "check": check_id, "outcome": check.outcomes[index]}, new)
+        return self._commit(RecordFinding(check_id, check.outcomes[index]), new)
 
     def retract_finding(self, check_id: str, epoch: int | None = None) -> SessionState:
         """Withdraw a finding as if never made (default: the latest finding on that check)."""
@@ -565,8 +572,7 @@ class Session:
         position = self._find(check_id, epoch)
         observations = rec.observations[:position] + rec.observations[position + 1 :]
         found = rec.observations[position].finding
-        return self._commit({"action": "retract", "check": check_id, "epoch": found.epoch},
-                            replace(rec, observations=observations))
+        return self._commit(RetractFinding(check_id, found.epoch), replace(rec, observations=observations))
 
     def correct_finding(self, check_id: str, outcome: str | int, epoch: int | None = None) -> SessionState:
         """Change the outcome of a finding already recorded (default: the latest on that check)."""
@@ -579,8 +585,8 @@ class Session:
             raise SessionError(f"the finding on {check_id!r} already reads {outcomes[index]!r}; nothing to correct")
         fixed = Observation(replace(old.finding, outcome=index), old.kind)
         observations = rec.observations[:position] + (fixed,) + rec.observations[position + 1 :]
-        return self._commit({"action": "correct", "check": check_id, "outcome": outcomes[index],
-                             "epoch": old.finding.epoch}, replace(rec, observations=observations))
+        return self._commit(CorrectFinding(check_id, outcomes[index], old.finding.epoch),
+                            replace(rec, observations=observations))
 
     def skip_check(self, check_id: str, reason: str) -> SessionState:
         """Leave a check out of this session's ranking because it cannot be done now."""
@@ -591,7 +597,7 @@ class Session:
         rec = self._view.record
         if any(c == check_id for c, _ in rec.skipped):
             raise SessionError(f"check {check_id!r} is already skipped")
-        return self._commit({"action": "skip", "check": check_id, "reason": reason},
+        return self._commit(SkipCheck(check_id, reason),
                             replace(rec, skipped=rec.skipped + ((check_id, reason),)))
 
     def unskip_check(self, check_id: str) -> SessionState:
@@ -599,21 +605,27 @@ class Session:
         rec = self._view.record
         if not any(c == check_id for c, _ in rec.skipped):
             raise SessionError(f"check {check_id!r} is not skipped")
-        return self._commit({"action": "unskip", "check": check_id},
+        return self._commit(UnskipCheck(check_id),
                             replace(rec, skipped=tuple(s for s in rec.skipped if s[0] != check_id)))
 
     def record_repair(self, event_id: str) -> SessionState:
         """Record that a root event was repaired; a verification is asked for next."""
         model = self.model
         self._refuse_if_confirmed("record a repair")
-        if event_id not in model.hypotheses:
-            known = ", ".join(model.hypotheses[:8]) + (", ..." if len(model.hypotheses) > 8 else "")
+        if event_id not in model.event_by_id:
+            if is_unlisted(model, event_id):
+                gate = event_id[: -len(DERIVED + "unlisted")]
+                raise SessionError(f"cannot repair {event_id!r}: it stands for causes outside the model "
+                                   f"under gate {gate!r}, which name no component to repair; inspect "
+                                   "beyond the listed components or hand the unit over")
+            events = [e.id for e in model.basic_events]
+            known = ", ".join(events[:8]) + (", ..." if len(events) > 8 else "")
             raise SessionError(f"cannot repair {event_id!r}: it is not a basic event of model "
                                f"{model.name!r} (basic events: {known})")
         rec = self._view.record
         if event_id in rec.repairs:
             raise SessionError(f"{event_id!r} was already repaired in this session")
-        return self._commit({"action": "repair", "event": event_id},
+        return self._commit(RecordRepair(event_id),
                             replace(rec, repairs=rec.repairs + (event_id,)))
 
     def record_verification(self, outcome: str | int) -> SessionState:
@@ -632,7 +644,7 @@ class Session:
         index = outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
         new = replace(rec, observations=rec.observations + (Observation(Finding(request.target, index, rec.epoch),
                                                                          VERIFICATION),))
-        return self._commit({"action": "verify", "outcome": request.outcomes[index]}, new)
+        return self._commit(RecordVerification(request.outcomes[index]), new)
 
     def add_note(self, text: str) -> SessionState:
         """Add a free-text note to the session (and its log)."""
@@ -640,7 +652,7 @@ class Session:
         if not text:
             raise SessionError("a note needs some text")
         rec = self._view.record
-        return self._commit({"action": "note", "text": text}, replace(rec, notes=rec.notes + (text,)),
+        return self._commit(AddNote(text), replace(rec, notes=rec.notes + (text,)),
                             same_posterior=True)
 
     def undo(self) -> SessionState:
@@ -648,40 +660,67 @@ class Session:
         if not self._history:
             raise SessionError("nothing to undo")
         previous = self._history[-1]
-        self._write({"action": "undo"}, previous)
+        self._write(Undo(), previous)
         self._history.pop()
         self._view = previous
-        self.actions.append({"action": "undo"})
+        self.actions.append(Undo())
         return self.state
 
-    def apply(self, action: dict) -> SessionState:
-        """Perform an action given as a dict (the form the log stores)."""
-        if not isinstance(action, dict) or "action" not in action:
-            raise SessionError(f"not an action: {action!r}")
-        kind = action["action"]
-        try:
-            if kind == "finding":
-                return self.record_finding(action["check"], action["outcome"])
-            if kind == "retract":
-                return self.retract_finding(action["check"], action.get("epoch"))
-            if kind == "correct":
-                return self.correct_finding(action["check"], action["outcome"], action.get("epoch"))
-            if kind == "skip":
-                return self.skip_check(action["check"], action.get("reason", ""))
-            if kind == "unskip":
-                return self.unskip_check(action["check"])
-            if kind == "repair":
-                return self.record_repair(action["event"])
-            if kind == "verify":
-                return self.record_verification(action["outcome"])
-            if kind == "note":
-                return self.add_note(action.get("text", ""))
-            if kind == "undo":
+    def acknowledge_caution(self, check_id: str) -> SessionState:
+        """Record that the technician read and acknowledged the safety caution of a check.
+
+        The check is one of the model's checks or symptoms, or the check the
+        last repair asks to verify (the top event included). Logged, shown in
+        the summary, not taken back by undo; the findings do not change.
+        """
+        caution = None
+        request = self._view.verification_request
+        if request is not None and request.target == check_id:
+            caution = request.caution
+        else:
+            caution = self._check(check_id).caution
+        if not caution:
+            raise SessionError(f"check {check_id!r} has no safety caution to acknowledge")
+        return self._event(AcknowledgeCaution(check_id, caution))
+
+    def record_resume(self, resume: Resume) -> SessionState:
+        """Record that the session was continued from its log (see :func:`~troubleshoot.session.logfile.resume_session`)."""
+        return self._event(resume)
+
+    def apply(self, action: Action | dict) -> SessionState:
+        """Perform a typed action (a dict in the form the log stores is read as one first).
+
+        Raises
+        ------
+        SessionError
+            The action is malformed (:class:`~troubleshoot.session.actions.ActionError`)
+            or refused; the session is unchanged.
+        """
+        action = as_action(action)
+        match action:
+            case RecordFinding(check, outcome):
+                return self.record_finding(check, outcome)
+            case RetractFinding(check, epoch):
+                return self.retract_finding(check, epoch)
+            case CorrectFinding(check, outcome, epoch):
+                return self.correct_finding(check, outcome, epoch)
+            case SkipCheck(check, reason):
+                return self.skip_check(check, reason)
+            case UnskipCheck(check):
+                return self.unskip_check(check)
+            case RecordRepair(event):
+                return self.record_repair(event)
+            case RecordVerification(outcome):
+                return self.record_verification(outcome)
+            case AddNote(text):
+                return self.add_note(text)
+            case AcknowledgeCaution(check, _):
+                return self.acknowledge_caution(check)
+            case Undo():
                 return self.undo()
-        except KeyError as exc:
-            raise SessionError(f"action {kind!r} lacks its {exc.args[0]!r} field") from None
-        raise SessionError(f"unknown action {kind!r}; known: finding, retract, correct, skip, unskip, "
-                           "repair, verify, note, undo")
+            case Resume():
+                return self.record_resume(action)
+        raise SessionError(f"not an action this session knows: {action!r}")
 
     def close(self) -> None:
         """Close the log (the session can still be read)."""
@@ -694,7 +733,14 @@ class Session:
         posterior = self.engine.propagate(record.findings, record.repairs)
         return SessionView(self.model, self.engine, self.settings, record, posterior)
 
-    def _commit(self, action: dict, record: Record, same_posterior: bool = False) -> SessionState:
+    def _event(self, action: Action) -> SessionState:
+        """Log an action that changes nothing in the record (and is not undone by undo)."""
+        assert isinstance(action, EVENTS)
+        self._write(action, self._view)
+        self.actions.append(action)
+        return self.state
+
+    def _commit(self, action: Action, record: Record, same_posterior: bool = False) -> SessionState:
         if same_posterior:
             view = SessionView(self.model, self.engine, self.settings, record, self._view.posterior)
         else:
@@ -705,7 +751,7 @@ class Session:
         self.actions.append(action)
         return self.state
 
-    def _write(self, action: dict, view: SessionView) -> None:
+    def _write(self, action: Action, view: SessionView) -> None:
         if self.log is not None:
             self.log.write_action(action, view)
 

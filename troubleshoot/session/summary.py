@@ -11,14 +11,9 @@ from __future__ import annotations
 import datetime as _dt
 from pathlib import Path
 
-#: The words each session status is reported with.
-STATUS_SENTENCES = {
-    "diagnosing": "diagnosis not finished: no fault isolated yet",
-    "isolated": "fault isolated, not yet repaired",
-    "ambiguity": "only an ambiguity group is left, not yet repaired",
-    "awaiting-verification": "repair recorded, not yet verified",
-    "confirmed": "repair confirmed: the unit works",
-}
+from troubleshoot.session.render import STATUS_SENTENCES, conclusion
+
+__all__ = ["STATUS_SENTENCES", "summary_markdown", "summary_path"]
 
 
 def summary_path(log_path: str | Path) -> Path:
@@ -34,10 +29,6 @@ def summary_path(log_path: str | Path) -> Path:
 
 def _number(value: float) -> str:
     return f"{value:g}"
-
-
-def _percent(p: float) -> str:
-    return f"{p * 100:.1f} %"
 
 
 def _duration(seconds: float) -> str:
@@ -76,26 +67,9 @@ def summary_markdown(model, state, log_path: str | Path | None = None,
     if model.equipment:
         lines.append(f"- **Equipment:** {model.equipment}")
     lines.append(f"- **Complaint:** {model.top_label or model.label_of(model.top)}")
-    lines.append(f"- **Outcome:** {STATUS_SENTENCES.get(state.status, state.status)}")
-
+    for heading, text in conclusion(model, state):
+        lines.append(f"- **{heading}:** {text}")
     repaired = [model.label_of(r) for r in state.repairs]
-    if state.status == "confirmed" and repaired:
-        lines.append(f"- **Fault isolated and repaired:** {repaired[-1]}")
-        if len(repaired) > 1:
-            lines.append(f"- **Repaired before it (fault persisted):** {'; '.join(repaired[:-1])}")
-    else:
-        if repaired:
-            lines.append(f"- **Repaired so far:** {'; '.join(repaired)}")
-        if state.isolated is not None:
-            lines.append(f"- **Fault isolated:** {state.isolated.label} (P {_percent(state.isolated.p)})")
-        elif state.ambiguity_group:
-            group = "; ".join(f"{s.label} (P {_percent(s.p)})" for s in state.ambiguity_group)
-            lines.append(f"- **Ambiguity group:** {group}")
-        else:
-            unrepaired = [s for s in state.suspects if not s.repaired]
-            if unrepaired:
-                top = unrepaired[0]
-                lines.append(f"- **Most probable fault now:** {top.label} (P {_percent(top.p)})")
 
     check_cost = sum(v.cost for v in state.findings if v.kind == "finding")
     verify_cost = sum(v.cost for v in state.findings if v.kind == "verification")

@@ -465,6 +465,7 @@ def expected_cost(model: Model, act: Callable[[State], list[tuple[float, Action]
             if kind == "escalate":
                 total += prob * protocol.escalation
                 continue
+            assert target is not None, "a check or a repair names its target"
             if kind == "check":
                 branch, children = protocol.cost_of[target], protocol.after_check(state, w, target)
             else:

@@ -56,6 +56,7 @@ import math
 import os
 import sys
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -299,6 +300,7 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
             return "left-failed" if equipment.top_fails(session.repairs) else "confirmed"
         if decision.action == Action.VERIFY:
             request = view.verification_request
+            assert request is not None, "a repair awaits its verification"
             if request.target == model.top:
                 result = int(equipment.top_fails(session.repairs))
             else:
@@ -404,7 +406,7 @@ def _run_one_case(case: int) -> list[CaseResult]:
     return out
 
 
-def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str, dict | None]],
+def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str, Any]],
              settings: SessionSettings | None = None, workers: int = 1, progress=None,
              checks_after_repair: bool = True) -> dict[str, list[CaseResult]]:
     """Run every strategy on the same ``cases`` sampled units.

@@ -40,10 +40,12 @@ sequential problems", Annals of Statistics 5(2), 1977.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Protocol
 
 import numpy as np
 
+from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.advice.policy import Action, Alternative
 from troubleshoot.advice.repair import next_repair
@@ -128,7 +130,8 @@ class MostInformative(_Deterministic):
         rows = _worth_doing(view)
         if view.status != DIAGNOSING or not rows:
             return None
-        return min(rows, key=lambda r: (-r.bits, r.cost, r.check)).check
+        ranks = tie_ranks([r.bits for r in rows])
+        return min(zip(ranks, rows), key=lambda pair: (pair[0], pair[1].cost, pair[1].check))[1].check
 
 
 class Cheapest(_Deterministic):
@@ -140,7 +143,8 @@ class Cheapest(_Deterministic):
         rows = _worth_doing(view)
         if view.status != DIAGNOSING or not rows:
             return None
-        return min(rows, key=lambda r: (r.cost, -r.bits, r.check)).check
+        ranks = tie_ranks([r.bits for r in rows])
+        return min(zip(ranks, rows), key=lambda pair: (pair[1].cost, pair[0], pair[1].check))[1].check
 
 
 class Likeliest(_Deterministic):
@@ -254,7 +258,7 @@ def protocol_actor(model, strategy: Strategy, settings, engine):
         record = Record(tuple(Observation(Finding(t, o, e), kind) for t, o, e, kind in state.observations),
                         tuple(state.repairs))
         view = SessionView(model, engine, settings, record, engine.propagate(record.findings, record.repairs))
-        out = []
+        out: list[tuple[float, tuple[str, str | None]]] = []
         for p, choice in strategy.choices(view):
             if choice is not None:
                 out.append((p, ("check", choice)))
@@ -268,7 +272,7 @@ def protocol_actor(model, strategy: Strategy, settings, engine):
 
 def make_strategy(name: str, optimal_policy=None) -> Strategy:
     """The strategy called ``name``; ``optimal`` needs the solution of :func:`troubleshoot.study.optimal.solve`."""
-    simple = {"info-per-cost": InfoPerCost, "info-per-cost-bits": InfoPerCostBitsOnly,
+    simple: dict[str, Callable[[], Strategy]] = {"info-per-cost": InfoPerCost, "info-per-cost-bits": InfoPerCostBitsOnly,
               "info": MostInformative, "cheapest": Cheapest,
               "likeliest": Likeliest, "random": RandomCheck, "checklist": Checklist}
     if name in simple:

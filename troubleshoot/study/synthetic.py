@@ -15,7 +15,8 @@ from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair, Ve
 
 
 def synthetic_model(basic_events: int, seed: int = 0, repeated_rate: float = 0.1,
-                    voting_rate: float = 0.05, check_rate: float = 0.8) -> Model:
+                    voting_rate: float = 0.05, check_rate: float = 0.8,
+                    three_outcome_share: float = 0.0) -> Model:
     """A random fault tree with about ``basic_events`` basic events.
 
     Parameters
@@ -30,6 +31,12 @@ def synthetic_model(basic_events: int, seed: int = 0, repeated_rate: float = 0.1
         Share of gates that are 2-out-of-3 (or k-of-n) voting gates.
     check_rate : float
         Share of gates with a check on them; a tenth as many basic events get one too.
+    three_outcome_share : float
+        Share of the checks read as low / normal / high instead of normal /
+        abnormal (format 1.1): each cause's detection and the false alarm are
+        split between "low" and "high". The tree, the other checks and every
+        total detection stay those of ``three_outcome_share=0`` with the same
+        seed, so the two models compare the cost of the outcomes alone.
 
     Returns
     -------
@@ -90,13 +97,32 @@ def synthetic_model(basic_events: int, seed: int = 0, repeated_rate: float = 0.1
                 causes.append(Cause(extra, rng.choice([0.5, 0.7])))
             checks.append(Check(f"t_{gate.id}", f"test subsystem {gate.id[1:]}", float(rng.choice([2, 5, 10, 20, 30])),
                                 ("normal", "abnormal"), tuple(causes), false_alarm=rng.choice([0.0, 0.01, 0.02])))
-    for ev in events:
+    for event in events:
         if rng.random() < check_rate / 10:
-            checks.append(Check(f"t_{ev.id}", f"inspect component {ev.id[2:]}", float(rng.choice([5, 10, 15])),
-                                ("normal", "abnormal"), (Cause(ev.id, 0.95),), false_alarm=0.01))
+            checks.append(Check(f"t_{event.id}", f"inspect component {event.id[2:]}", float(rng.choice([5, 10, 15])),
+                                ("normal", "abnormal"), (Cause(event.id, 0.95),), false_alarm=0.01))
+    if three_outcome_share > 0:
+        checks = _three_outcomes(checks, three_outcome_share, random.Random(f"three-outcomes-{seed}"))
     return Model(
         name=f"synthetic-{basic_events}-seed{seed}", top=top, gates=tuple(gates), basic_events=tuple(events),
         checks=tuple(checks), equipment="synthetic plant (illustrative)", cost_unit="min",
         description="Generated for benchmarking; probabilities and costs are illustrative.",
         top_label=f"subsystem {top[1:]} lost", verification=Verification("run the plant and confirm it works", 10.0),
     )
+
+
+def _three_outcomes(checks: list[Check], share: float, rng: random.Random) -> list[Check]:
+    """Give about ``share`` of the checks the outcomes normal, low, high (its own generator)."""
+    out = []
+    for check in checks:
+        if rng.random() >= share:
+            out.append(check)
+            continue
+        causes = []
+        for cause in check.causes:
+            low = rng.choice([0.2, 0.5, 0.8])
+            causes.append(Cause(cause.target, shows=(("low", cause.detection * low),
+                                                     ("high", cause.detection * (1.0 - low)))))
+        leak = (("low", check.false_alarm / 2), ("high", check.false_alarm / 2)) if check.false_alarm else ()
+        out.append(Check(check.id, check.label, check.cost, ("normal", "low", "high"), tuple(causes), leak=leak))
+    return out

@@ -22,6 +22,7 @@ from collections.abc import Callable
 
 from textual.app import App
 from textual.binding import Binding
+from textual.notifications import SeverityLevel
 
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.session.summary import summary_markdown, summary_path
@@ -107,7 +108,7 @@ class TroubleshootApp(App[int]):
                 return screen
         return None
 
-    def say(self, message: str, severity: str = "information") -> None:
+    def say(self, message: str, severity: SeverityLevel = "information") -> None:
         """Show a message (and keep it, so tests and the summary can read what was said)."""
         self.messages.append(message)
         self.notify(message, severity=severity, markup=False, timeout=6)
@@ -188,6 +189,23 @@ class TroubleshootApp(App[int]):
             self.say("Still working; wait a moment.", "warning")
             return
         self.perform("recording the symptoms", record_all, then=opened)
+
+    def acknowledge_caution(self, target: str) -> bool:
+        """Log that the technician acknowledged the caution of a check (or of the verification).
+
+        Done at once, not in a worker: it changes no finding and needs no
+        propagation, and the outcome typed right after it must not find the
+        session busy.
+        """
+        if self.busy:
+            self.say("Still working on the last action; acknowledge again in a moment.", "warning")
+            return False
+        try:
+            self.session.acknowledge_caution(target)
+        except TroubleshootError as exc:
+            self.say(f"Refused (acknowledging the caution): {' '.join(exc.lines())}", "error")
+            return False
+        return True
 
     def open_verification(self) -> None:
         """Open the verification the last repair asks for (its named check, or the top event)."""

@@ -8,12 +8,14 @@ as results. No screen computes a probability.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, cast
 
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.screen import ModalScreen, Screen
+from textual.coordinate import Coordinate
 from textual.widgets import DataTable, Footer, Input, Markdown, OptionList, Static
 from textual.widgets.option_list import Option
 
@@ -27,7 +29,11 @@ from troubleshoot.ui.widgets import (
     cost_text,
     outcome_odds_line,
     percent,
+    truncate,
 )
+
+if TYPE_CHECKING:  # the app imports this module to build its screens
+    from troubleshoot.ui.app import TroubleshootApp
 
 #: Shown once at the start of every sitting (the start screen, or a notice when a session is resumed).
 SAFETY_NOTICE = (
@@ -51,7 +57,7 @@ class CheckCard:
     outcomes: tuple[str, ...]
     instructions: str = ""
     caution: str | None = None
-    p_outcomes: tuple[float, float] | None = None
+    p_outcomes: tuple[float, ...] | None = None
     bits: float | None = None
     verification: bool = False
 
@@ -67,6 +73,11 @@ class StartScreen(Screen):
         Binding("q", "app.quit_session", "Quit"),
     ]
 
+    @property
+    def tsapp(self) -> TroubleshootApp:
+        """The running application, typed as ours: its session, its state and its actions."""
+        return cast("TroubleshootApp", self.app)
+
     def __init__(self, model) -> None:
         super().__init__(id="start")
         self.model = model
@@ -78,7 +89,7 @@ class StartScreen(Screen):
             yield Static(Text(f"troubleshoot — {model.name}", style="bold"), id="start-title")
             yield Static(Text(f"Complaint: {model.top_label or model.label_of(model.top)}"), id="complaint")
             yield Static(Text(SAFETY_NOTICE), id="safety")
-            table = DataTable(id="symptoms", cursor_type="row", zebra_stripes=True)
+            table: DataTable[str] = DataTable(id="symptoms", cursor_type="row", zebra_stripes=True)
             table.border_title = "Symptoms: mark each one y seen, n not seen, - not looked at"
             yield table
             yield Static("Press b to begin the diagnosis with these marks.", id="start-hint")
@@ -104,9 +115,11 @@ class StartScreen(Screen):
         table = self.query_one("#symptoms", DataTable)
         if table.row_count == 0:
             return
-        row_key, _ = table.coordinate_to_cell_key((table.cursor_row, 0))
-        self.marks[row_key.value] = mark
-        table.update_cell(row_key, "mark", self._mark_text(row_key.value))
+        row_key, _ = table.coordinate_to_cell_key(Coordinate(table.cursor_row, 0))
+        symptom_id = row_key.value
+        assert symptom_id is not None, "every row is added with its symptom id as key"
+        self.marks[symptom_id] = mark
+        table.update_cell(row_key, "mark", self._mark_text(symptom_id))
         if table.cursor_row < table.row_count - 1:
             table.move_cursor(row=table.cursor_row + 1)
 
@@ -115,7 +128,7 @@ class StartScreen(Screen):
         return [(sid, 1 if mark == SEEN else 0) for sid, mark in self.marks.items() if mark != NOT_LOOKED]
 
     def action_begin(self) -> None:
-        self.app.begin_diagnosis(self.observations())
+        self.tsapp.begin_diagnosis(self.observations())
 
 
 class MainScreen(Screen):
@@ -132,6 +145,11 @@ class MainScreen(Screen):
         Binding("question_mark", "help", "Help", key_display="?"),
         Binding("q", "app.quit_session", "Quit"),
     ]
+
+    @property
+    def tsapp(self) -> TroubleshootApp:
+        """The running application, typed as ours: its session, its state and its actions."""
+        return cast("TroubleshootApp", self.app)
 
     def __init__(self) -> None:
         super().__init__(id="main")
@@ -160,7 +178,7 @@ class MainScreen(Screen):
 
     def show_state(self, keep_cursor: bool = False) -> None:
         """Render the app's latest session state (nothing is computed here)."""
-        app = self.app
+        app = self.tsapp
         state = app.state
         self.query_one("#status", StatusBar).show(app.complaint, state, app.busy)
         if state is None:
@@ -173,11 +191,11 @@ class MainScreen(Screen):
         self.refresh_bindings()
 
     def show_busy(self) -> None:
-        self.query_one("#status", StatusBar).show(self.app.complaint, self.app.state, self.app.busy)
-        self.query_one("#checks", ChecksTable).set_class(self.app.busy, "-busy")
+        self.query_one("#status", StatusBar).show(self.tsapp.complaint, self.tsapp.state, self.tsapp.busy)
+        self.query_one("#checks", ChecksTable).set_class(self.tsapp.busy, "-busy")
 
     def _show_detail(self) -> None:
-        state = self.app.state
+        state = self.tsapp.state
         detail = self.query_one("#check-detail", Static)
         check_id = self.query_one("#checks", ChecksTable).highlighted_check()
         row = next((r for r in state.ranking if r.check == check_id), None) if state else None
@@ -199,15 +217,15 @@ class MainScreen(Screen):
     def check_action(self, action: str, parameters) -> bool | None:
         # The verify key is shown only while a repair awaits its verification.
         if action == "verify":
-            state = self.app.state
+            state = self.tsapp.state
             return state is not None and state.status == "awaiting-verification"
         return True
 
     def _highlighted_row(self):
-        state = self.app.state
+        state = self.tsapp.state
         check_id = self.query_one("#checks", ChecksTable).highlighted_check()
         if state is None or check_id is None:
-            self.app.say("No check is left to open.")
+            self.tsapp.say("No check is left to open.")
             return None
         return next(r for r in state.ranking if r.check == check_id)
 
@@ -215,11 +233,11 @@ class MainScreen(Screen):
         row = self._highlighted_row()
         if row is None:
             return
-        model = self.app.session.model
+        model = self.tsapp.session.model
         check = model.check_by_id[row.check]
         card = CheckCard(row.check, row.label, row.cost, model.cost_unit, tuple(row.outcomes),
                          check.instructions, row.caution, tuple(row.p_outcomes), row.bits)
-        self.app.push_screen(CheckScreen(card), self._check_done)
+        self.tsapp.push_screen(CheckScreen(card), self._check_done)
 
     def _check_done(self, result) -> None:
         if not result:
@@ -227,8 +245,8 @@ class MainScreen(Screen):
         verb, card = result[0], result[1]
         if verb == "outcome":
             index = result[2]
-            self.app.perform(f"recording {card.outcomes[index]!r}",
-                             lambda: self.app.session.record_finding(card.target, index))
+            self.tsapp.perform(f"recording {card.outcomes[index]!r}",
+                             lambda: self.tsapp.session.record_finding(card.target, index))
         elif verb == "skip":
             self._ask_skip_reason(card.target, card.label)
 
@@ -240,15 +258,15 @@ class MainScreen(Screen):
     def _ask_skip_reason(self, check_id: str, label: str) -> None:
         def skip(reason: str | None) -> None:
             if reason is not None:
-                self.app.perform("skipping the check", lambda: self.app.session.skip_check(check_id, reason))
+                self.tsapp.perform("skipping the check", lambda: self.tsapp.session.skip_check(check_id, reason))
 
-        self.app.push_screen(PromptScreen(f"Skip: {label}", "Why can this check not be done now?"), skip)
+        self.tsapp.push_screen(PromptScreen(f"Skip: {label}", "Why can this check not be done now?"), skip)
 
     def action_undo(self) -> None:
-        self.app.perform("undoing the last action", self.app.session.undo, done="Undone: the last action.")
+        self.tsapp.perform("undoing the last action", self.tsapp.session.undo, done="Undone: the last action.")
 
     def action_retract(self) -> None:
-        state = self.app.state
+        state = self.tsapp.state
         if state is None:
             return
         options = []
@@ -258,7 +276,7 @@ class MainScreen(Screen):
             when = f" (after {view.epoch} repair(s))" if view.epoch else ""
             options.append(((view.target, view.epoch), f"{view.label} — {view.outcome}{when}"))
         if not options:
-            self.app.say("No finding to retract or correct yet: the complaint starts the session.")
+            self.tsapp.say("No finding to retract or correct yet: the complaint starts the session.")
             return
 
         def chosen(result) -> None:
@@ -266,20 +284,20 @@ class MainScreen(Screen):
                 return
             verb, (target, epoch) = result
             if verb == "retract":
-                self.app.perform("retracting the finding",
-                                 lambda: self.app.session.retract_finding(target, epoch))
+                self.tsapp.perform("retracting the finding",
+                                 lambda: self.tsapp.session.retract_finding(target, epoch))
             else:
                 view = next(v for v in state.findings if v.target == target and v.epoch == epoch)
-                self.app.perform("correcting the finding",
-                                 lambda: self.app.session.correct_finding(target, 1 - view.outcome_index, epoch))
+                self.tsapp.perform("correcting the finding",
+                                 lambda: self.tsapp.session.correct_finding(target, 1 - view.outcome_index, epoch))
 
-        self.app.push_screen(FindingChoiceScreen(options), chosen)
+        self.tsapp.push_screen(FindingChoiceScreen(options), chosen)
 
     def action_repair(self) -> None:
-        state = self.app.state
+        state = self.tsapp.state
         if state is None:
             return
-        model = self.app.session.model
+        model = self.tsapp.session.model
         unit = model.cost_unit
         options, listed = [], set()
         for step in state.repair_order:
@@ -295,30 +313,30 @@ class MainScreen(Screen):
             options.append((event.id, f"{event.repair.label} — {cost_text(event.repair.cost, unit)} "
                                       f"· P {percent(p_of.get(event.id, 0.0))}"))
         if not options:
-            self.app.say("The model lists no repair left to record.")
+            self.tsapp.say("The model lists no repair left to record.")
             return
 
         def chosen(result) -> None:
             if result:
-                self.app.perform("recording the repair", lambda: self.app.session.record_repair(result[1]),
-                                 then=self.app.open_verification)
+                self.tsapp.perform("recording the repair", lambda: self.tsapp.session.record_repair(result[1]),
+                                 then=self.tsapp.open_verification)
 
-        self.app.push_screen(ChoiceScreen("Record a repair (repair order first)", options, "Record"), chosen)
+        self.tsapp.push_screen(ChoiceScreen("Record a repair (repair order first)", options, "Record"), chosen)
 
     def action_verify(self) -> None:
-        self.app.open_verification()
+        self.tsapp.open_verification()
 
     def action_note(self) -> None:
         def noted(text: str | None) -> None:
             if text is not None:
-                self.app.perform("adding the note", lambda: self.app.session.add_note(text),
+                self.tsapp.perform("adding the note", lambda: self.tsapp.session.add_note(text),
                                  done="Note added to the log.")
 
-        self.app.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
+        self.tsapp.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
 
     def action_escalate(self) -> None:
         """Hand the unit over: the escalation, its price and the reason go to the log as a note."""
-        session = self.app.session
+        session = self.tsapp.session
         model = session.model
         state = session.state
         what = model.escalation.label if model.escalation is not None else "hand the unit over beyond the model"
@@ -326,11 +344,11 @@ class MainScreen(Screen):
         why = state.decision.reasons[0].text if state.decision is not None and state.decision.reasons else ""
         text = (f"escalated: {what}{price}; cause outside the model with probability "
                 f"{state.outside_model_p:.2f}" + (f"; the tool said: {why}" if why else ""))
-        self.app.perform("recording the escalation", lambda: session.add_note(text),
+        self.tsapp.perform("recording the escalation", lambda: session.add_note(text),
                          done="Escalation recorded in the log; key q ends the session.")
 
     def action_help(self) -> None:
-        self.app.push_screen(HelpScreen())
+        self.tsapp.push_screen(HelpScreen(self.tsapp.session.engine.name))
 
 
 class CheckScreen(ModalScreen):
@@ -338,16 +356,34 @@ class CheckScreen(ModalScreen):
 
     BINDINGS = [
         Binding("a", "acknowledge", "Ack caution"),
-        Binding("1", "outcome(0)", "1st outcome"),
-        Binding("2", "outcome(1)", "2nd outcome"),
         Binding("s", "skip", "Skip"),
         Binding("escape", "back", "Back", key_display="esc"),
     ]
+
+    #: Footer columns the outcome keys share (80 less the other keys of this
+    #: screen); each name is cut to its share, the card lists every name whole.
+    FOOTER_OUTCOME_COLUMNS = 45
+
+    @property
+    def tsapp(self) -> TroubleshootApp:
+        """The running application, typed as ours: its session, its state and its actions."""
+        return cast("TroubleshootApp", self.app)
 
     def __init__(self, card: CheckCard) -> None:
         super().__init__(id="check-screen")
         self.card = card
         self.acknowledged = card.caution is None
+        # Keys 1..K, each named after its outcome in the footer (a key takes
+        # its name plus four columns: the key, spaces and padding).
+        width = max(4, self.FOOTER_OUTCOME_COLUMNS // len(card.outcomes) - 4)
+        for i, name in enumerate(card.outcomes):
+            self._bindings.bind(str(i + 1), f"outcome({i})", truncate(name, width))
+
+    @property
+    def keys_text(self) -> str:
+        """``key 1 or 2``, ``keys 1 to 3``: how to enter the outcome."""
+        k = len(self.card.outcomes)
+        return "key 1 or 2" if k == 2 else f"keys 1 to {k}"
 
     def compose(self) -> ComposeResult:
         card = self.card
@@ -376,9 +412,9 @@ class CheckScreen(ModalScreen):
     def _show_ack(self) -> None:
         message = self.query_one("#check-message", Static)
         if self.card.caution is None:
-            message.update("This check lists no safety caution. Enter its outcome with key 1 or 2.")
+            message.update(f"This check lists no safety caution. Enter its outcome with {self.keys_text}.")
         elif self.acknowledged:
-            message.update("✔ Caution acknowledged. Enter the outcome with key 1 or 2.")
+            message.update(f"✔ Caution acknowledged. Enter the outcome with {self.keys_text}.")
         else:
             message.update("Read the caution, then press a to acknowledge it before entering an outcome.")
         self.refresh_bindings()
@@ -391,6 +427,9 @@ class CheckScreen(ModalScreen):
         return True
 
     def action_acknowledge(self) -> None:
+        if not self.acknowledged and self.card.caution:
+            if not self.tsapp.acknowledge_caution(self.card.target):  # logged, for the supervisor's record
+                return
         self.acknowledged = True
         self._show_ack()
 
@@ -399,7 +438,7 @@ class CheckScreen(ModalScreen):
             self.query_one("#check-message", Static).update(
                 Text("✘ Refused: acknowledge the safety caution first (press a), then enter the outcome.",
                      style="bold"))
-            self.app.bell()
+            self.tsapp.bell()
             return
         self.dismiss(("outcome", self.card, index))
 
@@ -464,7 +503,7 @@ class ChoiceScreen(ModalScreen):
     """A list to choose one entry from; Enter takes it, Escape goes back."""
 
     BINDINGS = [Binding("escape", "cancel", "Back", key_display="esc")]
-    LIST = RecordList
+    LIST: type[OptionList] = RecordList
 
     def __init__(self, title: str, options: list[tuple[object, str]], verb: str = "take") -> None:
         super().__init__(classes="choice-screen")
@@ -565,9 +604,17 @@ class HelpScreen(ModalScreen):
         Binding("q", "close", "Close", show=False),
     ]
 
+    def __init__(self, engine: str = "") -> None:
+        super().__init__()
+        self.engine = engine
+
     def compose(self) -> ComposeResult:
         with VerticalScroll(classes="card", id="help-card"):
-            yield Markdown(HELP_TEXT)
+            text = HELP_TEXT
+            if self.engine:
+                text += (f"\nThe probabilities are computed exactly by the {self.engine} "
+                         "(a decision diagram is used where the model is too wide for a join tree).\n")
+            yield Markdown(text)
         yield Footer()
 
     def action_close(self) -> None:

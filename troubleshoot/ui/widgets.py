@@ -15,6 +15,7 @@ from collections.abc import Iterable
 from rich.text import Text
 from textual.binding import Binding
 from textual.containers import VerticalScroll
+from textual.coordinate import Coordinate
 from textual.widgets import DataTable, Static
 
 #: Eighths of a cell, for probability bars finer than one character.
@@ -63,10 +64,9 @@ def score_text(score: float, unit: str) -> str:
     return f"{score:.3f} bit/{unit}"
 
 
-def odds_text(p_outcomes: tuple[float, float]) -> str:
-    """Both outcome probabilities in percent, normal first, e.g. ``42/58 %``."""
-    normal, abnormal = p_outcomes
-    return f"{normal * 100:.0f}/{abnormal * 100:.0f} %"
+def odds_text(p_outcomes: tuple[float, ...]) -> str:
+    """Every outcome's probability in percent, normal first, e.g. ``42/58 %`` or ``60/25/15 %``."""
+    return "/".join(f"{p * 100:.0f}" for p in p_outcomes) + " %"
 
 
 def bar(p: float, width: int = 8) -> str:
@@ -270,7 +270,7 @@ class ChecksTable(DataTable):
         """Id of the check under the cursor, or None when the table is empty."""
         if self.row_count == 0:
             return None
-        row_key, _ = self.coordinate_to_cell_key((self.cursor_row, 0))
+        row_key, _ = self.coordinate_to_cell_key(Coordinate(self.cursor_row, 0))
         return row_key.value
 
 

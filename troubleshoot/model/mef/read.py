@@ -1,9 +1,10 @@
-"""Fault trees in the Open-PSA Model Exchange Format (MEF): import and export.
+"""Read the fault-tree part of an Open-PSA Model Exchange Format (MEF) file.
 
 :func:`read_mef` turns the fault-tree part of an MEF file into a
 :class:`~troubleshoot.model.Model` (gates and basic events; no checks, since a
 fault tree has none) and reports, line by line, everything it had to change or
-leave out. :func:`write_mef` writes the fault-tree part of any Model back to MEF.
+leave out. Expressions are evaluated by :mod:`troubleshoot.model.mef.expressions`;
+:mod:`troubleshoot.model.mef.write` writes a Model back to MEF.
 
 What the importer reads
 -----------------------
@@ -24,7 +25,10 @@ What the importer reads
 House events with a constant are propagated through the logic and the gates
 simplified; a gate that ends constant is removed. ``xor`` is rewritten exactly
 with and / or / not. Common-cause groups, substitutions, event trees and the
-like are reported and left out.
+like are reported and left out. Every gate the importer writes passes
+:func:`~troubleshoot.model.validate.validate_model`: repeated operands of an
+AND or OR are dropped (both are idempotent) and a repeated operand of an
+at-least gate (which counts it twice) goes through a one-input OR copy.
 
 References
 ----------
@@ -35,15 +39,17 @@ NUREG-0492, *Fault Tree Handbook*, U.S. NRC, 1981 (gate semantics).
 
 from __future__ import annotations
 
-import math
-import re
 from dataclasses import dataclass, field
 from graphlib import CycleError, TopologicalSorter
 from pathlib import Path
-from xml.sax.saxutils import escape, quoteattr
 
 from troubleshoot.errors import ModelError, Problem
-from troubleshoot.model import DERIVED, BasicEvent, Gate, Model, exponential_probability
+from troubleshoot.model import DERIVED, BasicEvent, Gate, Model
+from troubleshoot.model.mef.expressions import Expressions, body as _body, children as _children
+from troubleshoot.model.mef.expressions import strict_integer, strict_number, tag_of as _tag
+from troubleshoot.model.mef.write import ATTR_ID, ATTR_KIND, ATTR_MISSION_TIME, ATTR_TOP, ATTR_UNLISTED_OF
+from troubleshoot.model.validate import is_valid_id, is_valid_id_char
+from troubleshoot.model.xmlsafe import parse_xml_file
 
 #: Mission time assumed when a file uses ``<system-mission-time/>`` and nobody
 #: gives one: a year of operation, 8760 h (the default of the SCRAM analysis
@@ -53,17 +59,8 @@ DEFAULT_MISSION_TIME_HOURS = 8760.0
 #: Largest MEF file read, in bytes (a fault tree of a few thousand gates is ~1 MB).
 MAX_MEF_BYTES = 50 * 1024 * 1024
 
-#: Attributes our exporter writes so that an import of the export restores our
-#: own constructs exactly; other tools see ordinary MEF with extra attributes.
-ATTR_ID = "troubleshoot-id"
-ATTR_KIND = "troubleshoot-kind"
-ATTR_UNLISTED_OF = "troubleshoot-unlisted-of"
-ATTR_TOP = "troubleshoot-top"
-ATTR_MISSION_TIME = "troubleshoot-mission-time-hours"
-
 _FORMULA_OPS = ("and", "or", "atleast", "not", "xor", "nand", "nor", "iff", "imply", "cardinality")
 _REFERENCE_TAGS = ("gate", "basic-event", "house-event", "event")
-_MISSION_TIME_TAGS = ("system-mission-time", "mission-time")
 _IGNORED_QUIETLY = ("label", "attributes")
 _NOT_SUPPORTED = {
     "define-CCF-group": "common-cause failure group",
@@ -79,63 +76,10 @@ _NOT_SUPPORTED = {
     "define-extern-library": "external library",
 }
 
-_ID_PATTERN = re.compile(r"^[^\W\d][\w.-]*$")
-
 
 # ---------------------------------------------------------------------------
 # XML parsing
 # ---------------------------------------------------------------------------
-
-
-def _parse_xml(path: Path):
-    """Root element of an XML file, hardened (no DTD, no entities, no network)."""
-    try:
-        from troubleshoot.model.xmlsafe import parse_xml_file
-    except ImportError:
-        parse_xml_file = None
-    if parse_xml_file is not None:
-        return parse_xml_file(path, max_bytes=MAX_MEF_BYTES)
-    return _parse_xml_fallback(path)
-
-
-def _parse_xml_fallback(path: Path):
-    from lxml import etree
-
-    try:
-        size = path.stat().st_size
-    except OSError as exc:
-        raise ModelError([Problem(str(path), None, f"cannot read the file ({exc.strerror}); check the path")]) from None
-    if size > MAX_MEF_BYTES:
-        raise ModelError(
-            [Problem(str(path), None, f"file is {size} bytes, above the {MAX_MEF_BYTES} byte limit")]
-        )
-    parser = etree.XMLParser(
-        resolve_entities=False, no_network=True, load_dtd=False, huge_tree=False, remove_comments=True
-    )
-    try:
-        return etree.parse(str(path), parser).getroot()
-    except etree.XMLSyntaxError as exc:
-        line = exc.lineno if exc.lineno else None
-        raise ModelError([Problem(str(path), line, f"not well-formed XML: {exc.msg}; fix the XML")]) from None
-    except OSError as exc:
-        raise ModelError([Problem(str(path), None, f"cannot read the file ({exc}); check the path")]) from None
-
-
-def _tag(element) -> str | None:
-    """Local tag name, or None for comments and processing instructions."""
-    tag = element.tag
-    if not isinstance(tag, str):
-        return None
-    return tag.rsplit("}", 1)[-1]
-
-
-def _children(element) -> list:
-    return [c for c in element if _tag(c) is not None]
-
-
-def _body(element) -> list:
-    """Children of a definition without its label and attributes."""
-    return [c for c in _children(element) if _tag(c) not in _IGNORED_QUIETLY]
 
 
 def _label(element) -> str | None:
@@ -184,8 +128,7 @@ class _Reader:
     ccf_members: dict = field(default_factory=dict)  # member name -> group element
     tree_attributes: dict = field(default_factory=dict)
     uses_mission_time: bool = False
-    _parameter_values: dict = field(default_factory=dict)
-    _parameter_stack: list = field(default_factory=list)
+    _expressions: Expressions | None = None
 
     # -- reporting ---------------------------------------------------------
     def note(self, line, message):
@@ -222,6 +165,7 @@ class _Reader:
     def collect_container(self, container, tree):
         for child in _children(container):
             tag = _tag(child)
+            assert tag is not None, "_children keeps elements only"
             name = child.get("name")
             if tag in _IGNORED_QUIETLY:
                 continue
@@ -252,6 +196,7 @@ class _Reader:
 
     def not_supported(self, element):
         tag = _tag(element)
+        assert tag is not None, "called on elements of _children only"
         what = _NOT_SUPPORTED[tag]
         name = element.get("name")
         named = f" '{name}'" if name else ""
@@ -269,27 +214,12 @@ class _Reader:
             self.note(element.sourceline, f"{what}{named} is not supported; ignored")
 
     # -- expressions ---------------------------------------------------------
-    def parameter_value(self, name, line):
-        if name in self._parameter_values:
-            return self._parameter_values[name]
-        element = self.parameters.get(name)
-        if element is None:
-            self.error(line, f"parameter '{name}' is not defined; add a define-parameter")
-            return None
-        if name in self._parameter_stack:
-            cycle = " -> ".join(self._parameter_stack + [name])
-            self.error(line, f"parameters refer to each other in a cycle ({cycle}); break the cycle")
-            return None
-        self._parameter_stack.append(name)
-        body = _body(element)
-        if len(body) != 1:
-            self.error(element.sourceline, f"parameter '{name}' needs exactly one expression")
-            value = None
-        else:
-            value = self.evaluate(body[0])
-        self._parameter_stack.pop()
-        self._parameter_values[name] = value
-        return value
+    @property
+    def expressions(self) -> Expressions:
+        """The evaluator of this file's expressions (parameters memoised)."""
+        if self._expressions is None:
+            self._expressions = Expressions(self.parameters, self.mission_time_value, self.error, self.note)
+        return self._expressions
 
     def mission_time_value(self):
         self.uses_mission_time = True
@@ -297,142 +227,11 @@ class _Reader:
 
     def evaluate(self, element):
         """Number of an MEF expression, or None after reporting an error."""
-        tag = _tag(element)
-        line = element.sourceline
-        args_elements = _children(element)
-
-        def args():
-            values = [self.evaluate(a) for a in args_elements]
-            return None if any(v is None for v in values) else values
-
-        if tag in ("float", "int"):
-            text = element.get("value")
-            try:
-                return float(text)
-            except (TypeError, ValueError):
-                self.error(line, f"<{tag}> value {text!r} is not a number")
-                return None
-        if tag == "bool":
-            text = (element.get("value") or "").strip().lower()
-            if text not in ("true", "false"):
-                self.error(line, f"<bool> value {text!r} is neither true nor false")
-                return None
-            return 1.0 if text == "true" else 0.0
-        if tag == "parameter":
-            return self.parameter_value(element.get("name"), line)
-        if tag in _MISSION_TIME_TAGS:
-            return self.mission_time_value()
-        if tag == "pi":
-            return math.pi
-        arithmetic = {
-            "add": (1, None, lambda v: math.fsum(v)),
-            "mul": (1, None, lambda v: math.prod(v)),
-            "sub": (1, None, lambda v: v[0] - math.fsum(v[1:])),
-            "div": (1, None, None),
-            "neg": (1, 1, lambda v: -v[0]),
-            "exponential": (2, 2, lambda v: exponential_probability(v[0], v[1])),
-            "Weibull": (4, 4, _weibull),
-        }
-        if tag in arithmetic:
-            low, high, function = arithmetic[tag]
-            if len(args_elements) < low or (high is not None and len(args_elements) > high):
-                wanted = f"{low}" if low == high else f"at least {low}"
-                self.error(line, f"<{tag}> takes {wanted} argument(s), found {len(args_elements)}")
-                return None
-            values = args()
-            if values is None:
-                return None
-            if tag == "div":
-                result = values[0]
-                for divisor in values[1:]:
-                    if divisor == 0:
-                        self.error(line, "<div> divides by zero")
-                        return None
-                    result /= divisor
-                return result
-            return function(values)
-        means = {
-            "uniform-deviate": (2, lambda v: (v[0] + v[1]) / 2),
-            "normal-deviate": (2, lambda v: v[0]),
-            "lognormal-deviate": (None, _lognormal_mean),
-            "gamma-deviate": (2, lambda v: v[0] * v[1]),
-            "beta-deviate": (2, lambda v: v[0] / (v[0] + v[1])),
-        }
-        if tag in means:
-            count, function = means[tag]
-            if count is not None and len(args_elements) != count:
-                self.error(line, f"<{tag}> takes {count} arguments, found {len(args_elements)}")
-                return None
-            if tag == "lognormal-deviate" and len(args_elements) not in (2, 3):
-                self.error(line, f"<{tag}> takes 2 or 3 arguments, found {len(args_elements)}")
-                return None
-            values = args()
-            if values is None:
-                return None
-            mean = function(values)
-            self.note(line, f"<{tag}> is a random deviate: its mean {mean:.6g} is used as a point "
-                      "value and the uncertainty is dropped")
-            return mean
-        if tag == "histogram":
-            return self.histogram_mean(element)
-        self.error(line, f"expression <{tag}> is not supported and has no mean to fall back on; "
-                   "replace it by a <float value=...> probability")
-        return None
-
-    def histogram_mean(self, element):
-        line = element.sourceline
-        parts = _children(element)
-        if not parts or _tag(parts[0]) == "bin":
-            self.error(line, "<histogram> needs its lower boundary before the bins")
-            return None
-        lower = self.evaluate(parts[0])
-        total_weight = weighted = 0.0
-        for part in parts[1:]:
-            bounds = _children(part)
-            if _tag(part) != "bin" or len(bounds) != 2:
-                self.error(part.sourceline, "a histogram <bin> holds an upper boundary and a weight")
-                return None
-            upper, weight = self.evaluate(bounds[0]), self.evaluate(bounds[1])
-            if lower is None or upper is None or weight is None:
-                return None
-            weighted += weight * (lower + upper) / 2
-            total_weight += weight
-            lower = upper
-        if total_weight <= 0:
-            self.error(line, "<histogram> weights sum to zero")
-            return None
-        mean = weighted / total_weight
-        self.note(line, f"<histogram> is a distribution: its mean {mean:.6g} is used as a point "
-                  "value and the uncertainty is dropped")
-        return mean
+        return self.expressions.evaluate(element)
 
     def probability_law(self, element):
-        """(probability, rate, exposure) of a basic event's expression element.
-
-        rate (per hour) and exposure (hours; the mission time for
-        ``<system-mission-time/>``) are given when the expression is an
-        exponential law, directly or through parameters.
-        """
-        shape = element
-        while _tag(shape) == "parameter" and shape.get("name") in self.parameters:
-            body = _body(self.parameters[shape.get("name")])
-            if len(body) != 1:
-                break
-            shape = body[0]
-        if _tag(shape) == "exponential" and len(_children(shape)) == 2:
-            rate_element, time_element = _children(shape)
-            rate = self.evaluate(rate_element)
-            time = self.evaluate(time_element)
-            if rate is None or time is None:
-                return None
-            if rate < 0 or time < 0:
-                self.error(shape.sourceline, "an exponential law needs a rate and a time that are not negative")
-                return None
-            if time == 0:
-                return 0.0, None, None  # no exposure, no failure: a plain probability
-            return exponential_probability(rate, time), rate, time
-        probability = self.evaluate(element)
-        return None if probability is None else (probability, None, None)
+        """(probability, rate, exposure) of a basic event's expression, or None after an error."""
+        return self.expressions.probability_law(element)
 
     def house_value(self, name, line):
         element = self.house_events[name]
@@ -449,25 +248,10 @@ class _Reader:
         return text == "true"
 
 
-def _weibull(values):
-    """Weibull failure probability 1 - exp(-((t - t0)/alpha)^beta); MEF order alpha, beta, t0, t."""
-    alpha, beta, t0, time = values
-    if time <= t0:
-        return 0.0
-    return -math.expm1(-(((time - t0) / alpha) ** beta))
-
-
-def _lognormal_mean(values):
-    if len(values) == 3:  # mean, error factor, confidence level
-        return values[0]
-    mu, sigma = values  # parameters of the underlying normal
-    return math.exp(mu + sigma * sigma / 2)
-
-
 def _legal_id(name: str) -> str:
-    """An id our format accepts (an XML NCName without the derived separator)."""
-    cleaned = re.sub(r"[^\w.-]", "_", name.replace(DERIVED, "_"))
-    if not cleaned or not re.match(r"[^\W\d]", cleaned[0]):
+    """An id our format accepts: each character our id rule refuses becomes '_'."""
+    cleaned = "".join(c if c != DERIVED and is_valid_id_char(c) else "_" for c in name)
+    if not cleaned or not is_valid_id(cleaned[0]):
         cleaned = "_" + cleaned
     return cleaned
 
@@ -481,7 +265,7 @@ class _Ids:
         self.by_key: dict[tuple[str, str], str] = {}
 
     def assign(self, key, preferred, line, what):
-        base = preferred if _ID_PATTERN.match(preferred) and DERIVED not in preferred else _legal_id(preferred)
+        base = preferred if is_valid_id(preferred) else _legal_id(preferred)
         new = self.unique(base)
         self.by_key[key] = new
         if new != preferred and key[1] == preferred:
@@ -531,7 +315,7 @@ def read_mef(path, top: str | None = None, *, mission_time: float | None = None)
     Boolean formulas and expressions.
     """
     path = Path(path)
-    root = _parse_xml(path)
+    root = parse_xml_file(path, max_bytes=MAX_MEF_BYTES)
     reader = _Reader(path=path, mission_time=mission_time)
     reader.collect(root)
     reader.stop_if_errors()
@@ -542,10 +326,7 @@ def read_mef(path, top: str | None = None, *, mission_time: float | None = None)
     for attributes in reader.tree_attributes.values():
         recorded.update(attributes)
     if reader.mission_time is None and ATTR_MISSION_TIME in recorded:
-        try:
-            reader.mission_time = float(recorded[ATTR_MISSION_TIME])
-        except ValueError:
-            pass
+        reader.mission_time = strict_number(recorded[ATTR_MISSION_TIME])
     assumed_mission_time = reader.mission_time is None
     if assumed_mission_time:
         reader.mission_time = DEFAULT_MISSION_TIME_HOURS
@@ -874,7 +655,9 @@ class _Builder:
         """Operand id for a simplified formula; a _Node becomes a generated gate."""
         if isinstance(node, str):
             return node
-        inputs = tuple(self.materialize(a, None) for a in node.args)
+        inputs = self._distinct(node.kind, tuple(self.materialize(a, None) for a in node.args), node.line)
+        if node.kind in ("and", "or") and len(inputs) == 1:
+            return inputs[0]  # x and x, x or x: x itself
         key = (node.kind, inputs, node.k)
         if key in self.generated:
             return self.generated[key]
@@ -887,6 +670,39 @@ class _Builder:
         self._labels[gate_id] = label
         self.generated[key] = gate_id
         self.gates[gate_id] = Gate(gate_id, label, node.kind, inputs, node.k, line=node.line)
+        self.owned.setdefault(self._owner_name, []).append(gate_id)
+        self._generated_count += 1
+        return gate_id
+
+    def _distinct(self, kind, inputs, line):
+        """Inputs with no operand listed twice, the same function kept.
+
+        AND and OR are idempotent, so a repeat is dropped; an at-least gate
+        counts a repeated operand once per listing, so each repeat reads a
+        one-input OR copy of it (which the validator accepts).
+        """
+        if kind in ("and", "or"):
+            return tuple(dict.fromkeys(inputs))
+        if kind != "atleast" or len(set(inputs)) == len(inputs):
+            return inputs
+        seen: dict[str, int] = {}
+        out = []
+        for operand in inputs:
+            repeat = seen.get(operand, 0)
+            seen[operand] = repeat + 1
+            out.append(operand if repeat == 0 else self._copy(operand, repeat, line))
+        return tuple(out)
+
+    def _copy(self, operand, repeat, line):
+        """A one-input OR gate passing ``operand`` through (its ``repeat``-th listing)."""
+        key = ("copy", operand, repeat)
+        if key in self.generated:
+            return self.generated[key]
+        gate_id = self.ids.unique(f"{operand}_copy{repeat}")
+        label = f"copy of {self._labels.get(operand, operand)} (listed {repeat + 1} times)"
+        self._labels[gate_id] = label
+        self.generated[key] = gate_id
+        self.gates[gate_id] = Gate(gate_id, label, "or", (operand,), line=line)
         self.owned.setdefault(self._owner_name, []).append(gate_id)
         self._generated_count += 1
         return gate_id
@@ -914,14 +730,16 @@ class _Builder:
             return
         if isinstance(result, str):
             # A pass-through: a one-input OR is the identity (a one-input AND stays AND).
-            kind = _tag(body[0]) if _tag(body[0]) in ("and", "or") and not self._changed else "or"
-            inputs, k = (result,), None
+            first = _tag(body[0])
+            kind = first if first in ("and", "or") and not self._changed else "or"
+            inputs: tuple[str, ...] = (result,)
+            k = None
             if self._changed:
                 reader.note(element.sourceline, f"gate '{name}' reduces to its single input '{result}' "
                             "once house events are applied; kept as a one-input OR gate")
         else:
-            inputs = tuple(self.materialize(a, None) for a in result.args)
             kind, k = result.kind, result.k
+            inputs = self._distinct(kind, tuple(self.materialize(a, None) for a in result.args), result.line)
             if self._changed:
                 shape = f"at least {k} of {len(inputs)}" if kind == "atleast" else f"{kind.upper()} of {len(inputs)}"
                 reader.note(element.sourceline, f"gate '{name}' simplified by house events to {shape} inputs")
@@ -929,10 +747,11 @@ class _Builder:
             reader.note(element.sourceline, f"gate '{name}': xor has no gate of its own here and is "
                         "expressed exactly as or(and(a, not b), and(not a, b)), chained for more inputs "
                         f"({self._generated_count} gate(s) generated)")
-        condition = None
+        condition: str | None = None
         unlisted = None
         if attrs.get(ATTR_KIND) == "inhibit" and kind == "and" and len(inputs) == 2:
-            kind, inputs, condition = "inhibit", inputs[:1], inputs[1]
+            condition = inputs[1]
+            kind, inputs = "inhibit", inputs[:1]
         if kind == "or":
             kept = []
             for operand in inputs:
@@ -980,12 +799,11 @@ def _dedupe(items):
 
 def _int_attribute(reader: _Reader, element, name):
     text = element.get(name)
-    try:
-        return int(text)
-    except (TypeError, ValueError):
-        reader.error(element.sourceline, f"<{_tag(element)}> needs an integer {name}=\"...\" attribute, "
-                     f"found {text!r}")
-        return None
+    value = strict_integer(text)
+    if value is None:
+        reader.error(element.sourceline, f"<{_tag(element)}> needs an integer {name}=\"...\" attribute "
+                     f"in ASCII digits, found {text!r}")
+    return value
 
 
 def _basic_event(reader: _Reader, name, event_id):
@@ -1036,154 +854,3 @@ def _drop_unreachable(reader: _Reader, top_id, gates):
     return kept
 
 
-# ---------------------------------------------------------------------------
-# Export
-# ---------------------------------------------------------------------------
-
-
-def _mef_name(identifier: str) -> str:
-    """An MEF identifier: no dots (they are MEF paths), no leading, trailing or double dash."""
-    name = re.sub(r"[^\w-]", "_", identifier)
-    name = re.sub(r"--+", lambda m: "_" * len(m.group()), name)
-    if name.startswith("-"):
-        name = "_" + name[1:]
-    if name.endswith("-"):
-        name = name[:-1] + "_"
-    if not name or not re.match(r"[^\W\d]", name[0]):
-        name = "_" + name
-    return name
-
-
-def write_mef(model: Model, path) -> None:
-    """Write the fault-tree part of a Model as an Open-PSA MEF file.
-
-    Gates keep their kinds; an INHIBIT gate is written as an AND of its input
-    and condition, an OR gate's unlisted causes as an extra basic event under
-    it, and a basic event with a rate and an exposure as an exponential law.
-    Checks and symptoms have no place in an MEF fault tree and are left out
-    (a comment in the file says so). Extra ``troubleshoot-*`` attributes let
-    :func:`read_mef` restore the model exactly.
-
-    Parameters
-    ----------
-    model : Model
-        Any model.
-    path : str or Path
-        The file to write (UTF-8).
-
-    References
-    ----------
-    Open-PSA Model Exchange Format 2.0d (fault-tree definition, expressions).
-    """
-    names: dict[str, str] = {}
-    taken: set[str] = set()
-
-    def allocate(identifier):
-        base = _mef_name(identifier)
-        name, counter = base, 2
-        while name in taken:
-            name = f"{base}_{counter}"
-            counter += 1
-        taken.add(name)
-        return name
-
-    for gate in model.gates:
-        names[gate.id] = allocate(gate.id)
-    for event in model.basic_events:
-        names[event.id] = allocate(event.id)
-    unlisted_names = {g.id: allocate(f"{g.id}_unlisted") for g in model.gates if g.unlisted is not None}
-    tree_name = _mef_name(model.name or "fault-tree")
-
-    def attributes(pairs, indent):
-        pairs = [(k, v) for k, v in pairs if v is not None]
-        if not pairs:
-            return []
-        inner = [f'{indent}  <attribute name={quoteattr(k)} value={quoteattr(str(v))}/>' for k, v in pairs]
-        return [f"{indent}<attributes>", *inner, f"{indent}</attributes>"]
-
-    def ref(operand):
-        tag = "gate" if operand in model.gate_by_id else "basic-event"
-        return f'<{tag} name={quoteattr(names[operand])}/>'
-
-    lines = ['<?xml version="1.0" encoding="UTF-8"?>']
-    omitted = len(model.checks) + len(model.symptoms)
-    lines.append("<!-- Fault tree of the model " + _comment_text(model.name) + ". Checks and symptoms "
-                 "are not part of an MEF fault tree and are not written"
-                 + (f" ({len(model.checks)} check(s), {len(model.symptoms)} symptom(s) left out)" if omitted else "")
-                 + "; nor are costs and repairs. An INHIBIT gate is written as an AND of its input and "
-                 "condition; unlisted causes of an OR gate as an extra basic event under it. "
-                 "Attributes named troubleshoot-* let the same program read the model back exactly. -->")
-    lines.append("<opsa-mef>")
-    lines.append(f"  <define-fault-tree name={quoteattr(tree_name)}>")
-    if model.name:
-        lines.append(f"    <label>{escape(model.name)}</label>")
-    top_name = names.get(model.top)
-    lines += attributes(
-        [(ATTR_TOP, top_name if model.top in model.gate_by_id else None),
-         (ATTR_MISSION_TIME, repr(model.mission_time) if model.probability_basis == "mission-time"
-          and model.mission_time is not None else None)],
-        "    ",
-    )
-    for gate in model.gates:
-        lines.append(f"    <define-gate name={quoteattr(names[gate.id])}>")
-        lines.append(f"      <label>{escape(gate.label)}</label>")
-        lines += attributes([(ATTR_ID, gate.id if names[gate.id] != gate.id else None),
-                             (ATTR_KIND, "inhibit" if gate.kind == "inhibit" else None)], "      ")
-        operands = [ref(x) for x in gate.inputs]
-        if gate.kind == "inhibit":
-            operands.append(ref(gate.condition))
-        if gate.unlisted is not None and gate.kind == "or":
-            operands.append(f'<basic-event name={quoteattr(unlisted_names[gate.id])}/>')
-        if gate.kind == "atleast":
-            opening, closing = f'<atleast min="{gate.k}">', "</atleast>"
-        elif gate.kind == "not":
-            opening, closing = "<not>", "</not>"
-        elif gate.kind == "or":
-            opening, closing = "<or>", "</or>"
-        else:  # and, inhibit
-            opening, closing = "<and>", "</and>"
-        lines.append(f"      {opening}")
-        lines += [f"        {o}" for o in operands]
-        lines.append(f"      {closing}")
-        lines.append("    </define-gate>")
-    if model.top in model.event_by_id:
-        # A trivial tree (the top is a basic event): MEF needs a gate above it.
-        lines.append(f"    <define-gate name={quoteattr(allocate(model.top + '_top'))}>")
-        lines.append(f"      {ref(model.top)}")
-        lines.append("    </define-gate>")
-    lines.append("  </define-fault-tree>")
-    lines.append("  <model-data>")
-    for event in model.basic_events:
-        lines.append(f"    <define-basic-event name={quoteattr(names[event.id])}>")
-        lines.append(f"      <label>{escape(event.label)}</label>")
-        lines += attributes([(ATTR_ID, event.id if names[event.id] != event.id else None)], "      ")
-        lines.append(f"      {_law(event, model)}")
-        lines.append("    </define-basic-event>")
-    for gate in model.gates:
-        if gate.id in unlisted_names:
-            lines.append(f"    <define-basic-event name={quoteattr(unlisted_names[gate.id])}>")
-            lines.append(f"      <label>{escape(model.label_of(gate.id + DERIVED + 'unlisted'))}</label>")
-            lines += attributes([(ATTR_UNLISTED_OF, names[gate.id])], "      ")
-            lines.append(f'      <float value="{gate.unlisted!r}"/>')
-            lines.append("    </define-basic-event>")
-    lines.append("  </model-data>")
-    lines.append("</opsa-mef>")
-    Path(path).write_text("\n".join(lines) + "\n", encoding="utf-8")
-
-
-def _law(event: BasicEvent, model: Model) -> str:
-    """MEF expression of a basic event: an exponential law when it has a rate and exposure."""
-    exposure = event.exposure
-    if exposure is None and model.probability_basis == "mission-time":
-        exposure = model.mission_time
-    if event.rate is None or exposure is None:
-        return f'<float value="{event.probability!r}"/>'
-    if model.probability_basis == "mission-time" and exposure == model.mission_time:
-        time = "<system-mission-time/>"
-    else:
-        time = f'<float value="{exposure!r}"/>'
-    return f'<exponential><float value="{event.rate!r}"/>{time}</exponential>'
-
-
-def _comment_text(text: str) -> str:
-    return "'" + (text or "").replace("--", "- -").rstrip("-") + "'"

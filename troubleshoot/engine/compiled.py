@@ -1,0 +1,771 @@
+"""Exact diagnosis on a compiled decision diagram, for trees whose join tree is too wide.
+
+The gate logic is compiled once into a reduced ordered decision diagram over
+the root events (Bryant 1986), built with one if-then-else operation (Brace,
+Rudell & Bryant 1990). A set of findings becomes one more diagram, the
+*evidence diagram*: an algebraic decision diagram (real-valued leaves,
+Bahar et al. 1993) equal, for every joint state F of the roots, to
+P(findings | F).
+
+Why this is exact. A check's noise is a set of independent auxiliary causes
+(Pearl 1988 for noisy-OR, Díez 1993 for noisy-MAX): one "shows" cause per
+(cause, outcome) with the detection probability and one leak. A finding is a
+constraint over the auxiliary causes and the cause states: "normal" holds
+when no present cause shows and the leak is off, "abnormal" otherwise. Given
+the cause states c the auxiliary causes of one finding are independent of
+everything else, so summing them out in closed form gives P(outcome | c) at
+each leaf of the diagram of c: the constraint enters the compiled logic with
+its auxiliary causes already summed. That sum is taken from the model's
+likelihood table (:class:`~troubleshoot.engine.network.CheckFamily`), so a
+check with more outcomes only changes the table. An exact observation of a
+gate or event is the gate's own diagram (or its complement).
+
+One upward pass over the evidence diagram gives P(findings) (weighted model
+counting); one downward pass gives every root's posterior; a max pass gives
+the most probable joint state of the roots exactly (the auxiliary causes are
+already summed, so it is the MAP state of the roots, not of the noise). A
+check's cause states are conditioned on by one walk of the pair (evidence
+diagram, cause diagrams) restricted to the causes' levels: above them the
+downward pass, below them the upward pass already hold the answer.
+
+Repairs are interventions, as in the join-tree path: a finding made after the
+j-th repair reads the gate logic restricted to the first j repaired roots
+held working; the roots themselves are shared by every epoch.
+
+Roots and gates have two states; a check's likelihood is read from
+:meth:`CheckFamily.p_outcome`, the table P(outcome | c) over the 2^m cause
+states for any of its K outcomes (:mod:`troubleshoot.engine.observation`).
+
+References
+----------
+R. E. Bryant, "Graph-based algorithms for Boolean function manipulation",
+IEEE Trans. Computers C-35(8), 1986.
+K. S. Brace, R. L. Rudell and R. E. Bryant, "Efficient implementation of a
+BDD package", DAC 1990 (the if-then-else operation).
+R. I. Bahar et al., "Algebraic decision diagrams and their applications",
+ICCAD 1993.
+J. Pearl, *Probabilistic Reasoning in Intelligent Systems*, 1988 (noisy-OR
+as independent inhibitors).
+F. J. Díez, "Parameter adjustment in Bayes networks. The generalized noisy
+OR-gate", UAI 1993.
+A. Darwiche, "A differential approach to inference in Bayesian networks",
+JACM 50(3), 2003 (marginals from one upward and one downward pass).
+A. Rauzy, Reliability Engineering and System Safety 40(3), 1993
+(depth-first variable order for fault trees).
+"""
+
+from __future__ import annotations
+
+import math
+import operator
+import sys
+from contextlib import contextmanager
+
+import numpy as np
+
+from troubleshoot.errors import NetworkTooLarge
+from troubleshoot.engine.observation import CheckFamily, check_family
+from troubleshoot.model import Model
+from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective
+
+#: The name this path reports (``suggest --json`` key ``engine``).
+ENGINE_NAME = "decision diagram"
+#: Bytes one diagram node costs in this store: three list slots, the unique
+#: table's key tuple and entry, and a share of the operation caches (measured
+#: with tracemalloc on the generated hard trees: about 230 bytes).
+BYTES_PER_NODE = 256
+#: Operation-cache entries kept before a cache is dropped (recomputed on demand).
+CACHE_ENTRIES = 1_000_000
+#: A check with more distinct causes than this has its family grouped by
+#: likelihood (m + 1 entries for equal detections) instead of 2^m cause states.
+MAX_CAUSE_STATES_BITS = 12
+
+
+class ZeroEvidence(Exception):
+    """Internal: the findings have probability zero."""
+
+
+@contextmanager
+def _deep(depth: int):
+    # Apply recursion goes one frame per level; Python's default is 1,000.
+    previous = sys.getrecursionlimit()
+    if depth > previous:
+        sys.setrecursionlimit(depth)
+    try:
+        yield
+    finally:
+        sys.setrecursionlimit(previous)
+
+
+def root_order(model: Model) -> tuple[str, ...]:
+    """Every root event, depth-first from the top (Rauzy 1993), then any root the top does not read."""
+    order: list[str] = []
+    seen: set[str] = set()
+    stack = [model.top]
+    gates = model.gate_by_id
+    while stack:
+        node = stack.pop()
+        if node in seen:
+            continue
+        seen.add(node)
+        gate = gates.get(node)
+        if gate is None:
+            order.append(node)
+            continue
+        stack.extend(reversed(connective(gate).operands))
+    order += [r for r in model.hypotheses if r not in seen]
+    return tuple(order)
+
+
+class DiagramStore:
+    """Hash-consed decision-diagram nodes with real-valued leaves.
+
+    Node 0 is the leaf 0.0 (also "false"), node 1 the leaf 1.0 ("true"). An
+    inner node ``i`` tests the root at level ``var[i]``: ``high[i]`` when it
+    has failed, ``low[i]`` when it works. Leaves have level ``n_levels``.
+
+    Parameters
+    ----------
+    n_levels : int
+        Number of root events.
+    node_limit : int
+        Nodes the store may hold; one more raises NetworkTooLarge before it is made.
+    """
+
+    def __init__(self, n_levels: int, node_limit: int):
+        self.n_levels = n_levels
+        self.node_limit = node_limit
+        self.var: list[int] = [n_levels, n_levels]
+        self.low: list[int] = [-1, -1]
+        self.high: list[int] = [-1, -1]
+        self.value: list[float] = [0.0, 1.0]
+        self._unique: dict[tuple[int, int, int], int] = {}
+        self._leaves: dict[float, int] = {0.0: 0, 1.0: 1}
+        self._ite: dict[tuple[int, int, int], int] = {}
+        self._mul: dict[tuple[int, int], int] = {}
+
+    def __len__(self) -> int:
+        return len(self.var)
+
+    def _grow(self) -> int:
+        new = len(self.var)
+        if new >= self.node_limit:
+            raise NetworkTooLarge(
+                f"the decision diagram of the diagnosis passed {self.node_limit:,} nodes "
+                f"({self.node_limit * BYTES_PER_NODE / 1024**2:,.0f} MiB): too large for the memory budget; "
+                "raise the budget, or remove repeated events shared across distant gates")
+        return new
+
+    def leaf(self, value: float) -> int:
+        found = self._leaves.get(value)
+        if found is not None:
+            return found
+        new = self._grow()
+        self.var.append(self.n_levels)
+        self.low.append(-1)
+        self.high.append(-1)
+        self.value.append(float(value))
+        self._leaves[value] = new
+        return new
+
+    def node(self, level: int, low: int, high: int) -> int:
+        if low == high:
+            return low
+        key = (level, low, high)
+        found = self._unique.get(key)
+        if found is not None:
+            return found
+        new = self._grow()
+        self.var.append(level)
+        self.low.append(low)
+        self.high.append(high)
+        self.value.append(math.nan)
+        self._unique[key] = new
+        return new
+
+    def variable(self, level: int) -> int:
+        return self.node(level, 0, 1)
+
+    def _cofactors(self, f: int, level: int) -> tuple[int, int]:
+        if self.var[f] == level:
+            return self.low[f], self.high[f]
+        return f, f
+
+    def ite(self, f: int, g: int, h: int) -> int:
+        """If ``f`` (a 0/1 diagram) then ``g`` else ``h``; ``g``, ``h`` may have any leaves."""
+        if f == 1:
+            return g
+        if f == 0:
+            return h
+        if g == h:
+            return g
+        if g == 1 and h == 0:
+            return f
+        key = (f, g, h)
+        found = self._ite.get(key)
+        if found is not None:
+            return found
+        var = self.var
+        level = min(var[f], var[g], var[h])
+        f0, f1 = self._cofactors(f, level)
+        g0, g1 = self._cofactors(g, level)
+        h0, h1 = self._cofactors(h, level)
+        result = self.node(level, self.ite(f0, g0, h0), self.ite(f1, g1, h1))
+        if len(self._ite) >= CACHE_ENTRIES:
+            self._ite.clear()
+        self._ite[key] = result
+        return result
+
+    def and_(self, f: int, g: int) -> int:
+        return self.ite(f, g, 0)
+
+    def or_(self, f: int, g: int) -> int:
+        return self.ite(f, 1, g)
+
+    def not_(self, f: int) -> int:
+        return self.ite(f, 0, 1)
+
+    def times(self, a: int, b: int) -> int:
+        """Pointwise product of two diagrams."""
+        if a == 0 or b == 0:
+            return 0
+        if a == 1:
+            return b
+        if b == 1:
+            return a
+        if a > b:
+            a, b = b, a
+        key = (a, b)
+        found = self._mul.get(key)
+        if found is not None:
+            return found
+        var, n = self.var, self.n_levels
+        va, vb = var[a], var[b]
+        if va == n and vb == n:
+            result = self.leaf(self.value[a] * self.value[b])
+        else:
+            level = min(va, vb)
+            a0, a1 = self._cofactors(a, level)
+            b0, b1 = self._cofactors(b, level)
+            result = self.node(level, self.times(a0, b0), self.times(a1, b1))
+        if len(self._mul) >= CACHE_ENTRIES:
+            self._mul.clear()
+        self._mul[key] = result
+        return result
+
+    def restrict(self, f: int, working: frozenset, memo: dict) -> int:
+        """``f`` with the roots at levels ``working`` held working (a repair)."""
+        if self.var[f] == self.n_levels:
+            return f
+        found = memo.get(f)
+        if found is not None:
+            return found
+        level = self.var[f]
+        if level in working:
+            result = self.restrict(self.low[f], working, memo)
+        else:
+            result = self.node(level, self.restrict(self.low[f], working, memo),
+                               self.restrict(self.high[f], working, memo))
+        memo[f] = result
+        return result
+
+
+class CompiledModel:
+    """A model's gate logic as decision diagrams, compiled once.
+
+    Parameters
+    ----------
+    model : Model
+    memory_budget : int
+        Bytes the diagrams may take; the node store refuses the node that
+        would pass it, before making it.
+
+    Raises
+    ------
+    NetworkTooLarge
+        The gate logic alone does not fit in the budget.
+    """
+
+    def __init__(self, model: Model, memory_budget: int):
+        self.model = model
+        self.memory_budget = memory_budget
+        self.order = root_order(model)
+        self.level = {r: i for i, r in enumerate(self.order)}
+        self.priors = np.array([model.prior_of(r) for r in self.order], dtype=float)
+        # The store holds nodes; the passes' arrays (about ten floats per
+        # reachable node) are charged in BYTES_PER_NODE as well.
+        self.store = DiagramStore(len(self.order), max(16, memory_budget // BYTES_PER_NODE))
+        self._gates: dict[str, int] = {}
+        self._restrict_memo: dict[frozenset, dict] = {}
+        self._evidence: dict = {}
+        self._prior: dict[int, tuple[float, int]] = {}
+        with _deep(4 * len(self.order) + 2000):
+            for gate in model.gates:
+                self.function(gate.id)
+        # log max(p, 1 - p) by level, summed from the top: a max over free roots.
+        self._free_log = np.concatenate(([0.0], np.cumsum(np.log(np.maximum(self.priors, 1.0 - self.priors)))))
+
+    @property
+    def nodes(self) -> int:
+        return len(self.store)
+
+    def prior(self, f: int) -> tuple[float, int]:
+        """(P(f) under the priors alone, the deepest level f tests; -1 for a leaf), cached per node."""
+        found = self._prior.get(f)
+        if found is not None:
+            return found
+        s = self.store
+        stack = [f]
+        while stack:  # children first, without recursion
+            n = stack[-1]
+            if n in self._prior:
+                stack.pop()
+                continue
+            if s.var[n] == s.n_levels:
+                self._prior[n] = (s.value[n], -1)
+                stack.pop()
+                continue
+            lo, hi = s.low[n], s.high[n]
+            if lo in self._prior and hi in self._prior:
+                p = self.priors[s.var[n]]
+                (a, da), (b, db) = self._prior[lo], self._prior[hi]
+                self._prior[n] = ((1.0 - p) * a + p * b, max(s.var[n], da, db))
+                stack.pop()
+            else:
+                stack.extend(x for x in (lo, hi) if x not in self._prior)
+        return self._prior[f]
+
+    # -- gate logic ------------------------------------------------------
+    def function(self, node_id: str) -> int:
+        """The diagram of a gate or root (failed = 1) with no repair."""
+        s = self.store
+        if node_id in self.level:
+            return s.variable(self.level[node_id])
+        found = self._gates.get(node_id)
+        if found is not None:
+            return found
+        # Children first, without Python recursion; what a gate computes is
+        # read from model/gates.py, the one statement of gate semantics.
+        gates = self.model.gate_by_id
+        for gid in bottom_up(self.model, [node_id], skip=self._gates.__contains__):
+            conn = connective(gates[gid])
+            ins = [self.function(x) for x in conn.operands]
+            if conn.op == AND:
+                f = 1
+                for g in ins:
+                    f = s.and_(f, g)
+            elif conn.op == OR:
+                f = 0
+                for g in ins:
+                    f = s.or_(f, g)
+            elif conn.op == ATLEAST:
+                f = self._at_least(conn.threshold(), ins)
+            elif conn.op == NOT:
+                f = s.not_(ins[0])
+            else:  # pragma: no cover - connective() knows no other
+                raise ValueError(f"unknown connective {conn.op!r}")
+            self._gates[gid] = f
+        return self._gates[node_id]
+
+    def _at_least(self, k: int, ins: list[int]) -> int:
+        # S_j <- S_j or (f_i and S_(j-1)): k times n operations, never 2^n.
+        if k <= 0:
+            return 1
+        if k > len(ins):
+            return 0
+        s = self.store
+        if k in (1, len(ins)):  # an OR or an AND: n applies, not k times n
+            f = 1 if k > 1 else 0
+            for g in ins:
+                f = s.and_(f, g) if k > 1 else s.or_(f, g)
+            return f
+        at_least = [1] + [0] * k
+        for i, f in enumerate(ins, start=1):
+            for j in range(min(i, k), 0, -1):
+                at_least[j] = s.or_(at_least[j], s.and_(f, at_least[j - 1]))
+        return at_least[k]
+
+    def function_at(self, node_id: str, repairs: tuple[str, ...], epoch: int) -> int:
+        """The diagram of a gate or root as a finding made after ``epoch`` repairs reads it."""
+        f = self.function(node_id)
+        working = frozenset(self.level[r] for r in repairs[:epoch])
+        if not working:
+            return f
+        memo = self._restrict_memo.setdefault(working, {})
+        if len(memo) > CACHE_ENTRIES:
+            memo.clear()
+        with _deep(4 * len(self.order) + 2000):
+            return self.store.restrict(f, working, memo)
+
+    # -- findings --------------------------------------------------------
+    def family(self, check_id: str, repairs: tuple[str, ...], epoch: int) -> tuple[tuple[int, ...], CheckFamily]:
+        """The check's distinct non-constant cause diagrams at an epoch, and its likelihood table.
+
+        Constant causes fold as in the network (:func:`check_family`):
+        always present into the leak, never present dropped; two causes
+        with one diagram (canonical, so also two gates of one function)
+        have their cumulative tables multiplied.
+        """
+        def node_of(target: str) -> str | bool:
+            f = self.function_at(target, repairs, epoch)
+            return True if f == 1 else False if f == 0 else str(f)
+
+        fam = check_family(self.model.check_by_id[check_id], epoch, node_of)
+        return tuple(int(n) for n in fam.nodes), fam
+
+    def likelihood(self, causes: tuple[int, ...], table: np.ndarray) -> int:
+        """The diagram equal to table[c] where c is the state of the cause diagrams (C order)."""
+        s = self.store
+        flat = np.asarray(table, dtype=float).reshape(-1)
+        m = len(causes)
+
+        def build(i: int, index: int) -> int:
+            if i == m:
+                return s.leaf(float(flat[index]))
+            hi = build(i + 1, 2 * index + 1)
+            lo = build(i + 1, 2 * index)
+            return s.ite(causes[i], hi, lo)
+
+        return build(0, 0)
+
+    def finding_diagram(self, target: str, outcome: int, epoch: int, repairs: tuple[str, ...]) -> int:
+        """P(finding | root states) as a diagram."""
+        s = self.store
+        with _deep(4 * len(self.order) + 2000):
+            if target in self.model.check_by_id:
+                causes, fam = self.family(target, repairs, epoch)
+                return self.likelihood(causes, fam.p_outcome(outcome))
+            f = self.function_at(target, repairs, epoch)
+            return f if outcome == 1 else s.not_(f)
+
+    def evidence(self, findings, repairs: tuple[str, ...]) -> int:
+        """The evidence diagram of findings (in order) under repairs; prefixes are kept."""
+        key = (tuple(findings), tuple(repairs))
+        found = self._evidence.get(key)
+        if found is not None:
+            return found
+        prev = self.evidence(key[0][:-1], repairs) if key[0] else 1
+        f = key[0][-1] if key[0] else None
+        if f is None:
+            result = 1
+        else:
+            with _deep(4 * len(self.order) + 2000):
+                result = self.store.times(prev, self.finding_diagram(f.target, f.outcome, f.epoch, repairs))
+        if len(self._evidence) > 256:
+            self._evidence.pop(next(iter(self._evidence)))
+        self._evidence[key] = result
+        return result
+
+
+class Passes:
+    """The upward, downward and max passes over one evidence diagram.
+
+    Attributes
+    ----------
+    p_evidence : float
+        P(findings), the weighted model count of the evidence diagram.
+    root_marginals : numpy.ndarray
+        P(root failed | findings) by level.
+    """
+
+    def __init__(self, cm: CompiledModel, root: int):
+        s = cm.store
+        self.cm, self.root = cm, root
+        n_levels = s.n_levels
+        # Reachable nodes, bottom-up (by level, deepest first).
+        seen = {root}
+        stack = [root]
+        var, low, high = s.var, s.low, s.high
+        while stack:
+            n = stack.pop()
+            if var[n] == n_levels:
+                continue
+            for c in (low[n], high[n]):
+                if c not in seen:
+                    seen.add(c)
+                    stack.append(c)
+        ids = np.fromiter(seen, dtype=np.int64, count=len(seen))
+        lv = np.array([var[i] for i in ids], dtype=np.int64)
+        order = np.lexsort((ids, -lv))
+        ids, lv = ids[order], lv[order]
+        pos = {int(n): i for i, n in enumerate(ids)}
+        inner = lv < n_levels
+        lo = np.array([pos[low[i]] if inner_i else -1 for i, inner_i in zip(ids.tolist(), inner.tolist())], np.int64)
+        hi = np.array([pos[high[i]] if inner_i else -1 for i, inner_i in zip(ids.tolist(), inner.tolist())], np.int64)
+        self.ids, self.lv, self.lo, self.hi, self.pos = ids, lv, lo, hi, pos
+        count = len(ids)
+        up = np.zeros(count)
+        leaves = ~inner
+        up[leaves] = [s.value[i] for i in ids[leaves]]
+        # Groups of one level, deepest first.
+        bounds = np.flatnonzero(np.diff(lv)) + 1
+        starts = np.concatenate(([0], bounds))
+        ends = np.concatenate((bounds, [count]))
+        groups = [(int(lv[a]), a, b) for a, b in zip(starts, ends) if lv[a] < n_levels]
+        p = cm.priors
+        for level, a, b in groups:
+            up[a:b] = p[level] * up[hi[a:b]] + (1.0 - p[level]) * up[lo[a:b]]
+        deepest = np.full(count, -1, dtype=np.int64)
+        for level, a, b in groups:
+            deepest[a:b] = np.maximum(level, np.maximum(deepest[hi[a:b]], deepest[lo[a:b]]))
+        self.deepest = deepest
+        self.deepest_list = deepest.tolist()
+        self.up_list = up.tolist()
+        self._pairs: dict = {}
+        r = pos[root]
+        self.up = up
+        self.p_evidence = float(up[r])
+        if not self.p_evidence > 0.0:
+            raise ZeroEvidence
+        down = np.zeros(count)
+        down[r] = 1.0
+        for level, a, b in reversed(groups):
+            d = down[a:b]
+            np.add.at(down, hi[a:b], d * p[level])
+            np.add.at(down, lo[a:b], d * (1.0 - p[level]))
+        self.down = down
+        # Root marginals: mass through nodes of that level plus edges skipping it.
+        n_inner = int(inner.sum())
+        par = np.arange(count)[inner]
+        plv = lv[inner]
+        pw = p[plv]
+        self._edges = (np.concatenate((plv, plv)),
+                       np.concatenate((hi[inner], lo[inner])),
+                       np.concatenate((down[par] * pw, down[par] * (1.0 - pw))))
+        e_lv, e_child, e_flow = self._edges
+        c_lv = lv[e_child]
+        through = e_flow * up[e_child]
+        diff = np.zeros(n_levels + 2)
+        np.add.at(diff, e_lv + 1, through)
+        np.add.at(diff, c_lv, -through)
+        diff[0] += up[r]
+        diff[lv[r]] -= up[r]
+        skipped = np.cumsum(diff)[:n_levels]
+        failed = p * skipped
+        np.add.at(failed, plv, down[par] * pw * up[hi[inner]])
+        self.root_marginals = np.clip(failed / self.p_evidence, 0.0, 1.0)
+        del n_inner
+
+    def max_state(self) -> tuple[np.ndarray, float]:
+        """The most probable joint state of the roots with the findings, and log P(state, findings).
+
+        Max over the roots of prod prior * leaf, with every root the path skips
+        at its likelier value: one pass up, one walk down.
+        """
+        cm, lv, lo, hi, ids = self.cm, self.lv, self.lo, self.hi, self.ids
+        n_levels = cm.store.n_levels
+        p, free = cm.priors, cm._free_log
+        count = len(ids)
+        with np.errstate(divide="ignore"):
+            best = np.full(count, -np.inf)
+            leaves = lv == n_levels
+            vals = np.array([cm.store.value[i] for i in ids[leaves]])
+            best[leaves] = np.log(vals)
+            take_high = np.zeros(count, dtype=bool)
+            lp, lq = np.log(p), np.log1p(-p)
+        bounds = np.flatnonzero(np.diff(lv)) + 1
+        starts = np.concatenate(([0], bounds))
+        ends = np.concatenate((bounds, [count]))
+        for a, b in zip(starts, ends):
+            level = int(lv[a])
+            if level == n_levels:
+                continue
+            h, l_ = hi[a:b], lo[a:b]
+            via_h = lp[level] + free[lv[h]] - free[level + 1] + best[h]
+            via_l = lq[level] + free[lv[l_]] - free[level + 1] + best[l_]
+            take_high[a:b] = via_h > via_l
+            best[a:b] = np.maximum(via_h, via_l)
+        state = (p > 0.5).astype(np.int8)  # the likelier value wherever the path skips a root
+        n = self.pos[self.root]
+        while lv[n] < n_levels:
+            if take_high[n]:
+                state[lv[n]] = 1
+                n = hi[n]
+            else:
+                state[lv[n]] = 0
+                n = lo[n]
+        r = self.pos[self.root]
+        return state, float(best[r] + free[lv[r]])
+
+    def grouped(self, causes: tuple[int, ...], addends: tuple, zero=0, add=operator.add) -> dict:
+        """P(findings)-normalised mass of the cause states, grouped by the sum of the present causes' addends.
+
+        With addends 2^(m-1-i) the sum is the index of the cause state (C
+        order); with the log misses of a noisy-OR it is what the likelihood
+        depends on, so the family has as many entries as distinct sums.
+
+        Notes
+        -----
+        The walk starts where the first cause's top level cuts the evidence
+        diagram: the mass arriving there comes from the downward pass. It
+        pairs an evidence node with the causes still undecided; a cause that
+        is decided adds its addend (if present) and leaves the pair, so the
+        pairs never multiply by the number of causes. Once none is left, the
+        upward pass gives the rest.
+        """
+        s = self.cm.store
+        n_levels = s.n_levels
+        var, low, high = s.var, s.low, s.high
+        up, pos, ids, p = self.up, self.pos, self.ids, self.cm.priors
+        memo: dict = {}
+
+        def split(cs, level, branch):
+            kept, shift = [], zero
+            for c, w in cs:
+                if var[c] == level:
+                    c = branch[c]
+                if c == 1:
+                    shift = add(shift, w)
+                elif c != 0:
+                    kept.append((c, w))
+            return tuple(kept), shift
+
+        def walk(e: int, cs: tuple) -> dict:
+            key = (e, cs)
+            found = memo.get(key)
+            if found is not None:
+                return found
+            if not cs:
+                out = {zero: float(up[pos[e]])}
+            else:
+                level = min(var[e], min(var[c] for c, _ in cs))
+                pl = p[level]
+                e0, e1 = (low[e], high[e]) if var[e] == level else (e, e)
+                k0, s0 = split(cs, level, low)
+                k1, s1 = split(cs, level, high)
+                out = {}
+                for k, v in walk(e0, k0).items():
+                    out[add(k, s0)] = (1.0 - pl) * v
+                for k, v in walk(e1, k1).items():
+                    key1 = add(k, s1)
+                    out[key1] = out.get(key1, 0.0) + pl * v
+            memo[key] = out
+            return out
+
+        start, shift = split(tuple(zip(causes, addends)), -1, low)
+        if not start:
+            return {shift: 1.0}
+        inflow = self._inflow(min(var[c] for c, _ in start))
+        acc: dict = {}
+        with _deep(4 * n_levels + 2000):
+            for i in np.flatnonzero(inflow):
+                for k, v in walk(int(ids[i]), start).items():
+                    key1 = add(k, shift)
+                    acc[key1] = acc.get(key1, 0.0) + float(inflow[i]) * v
+        return {k: min(max(v / self.p_evidence, 0.0), 1.0) for k, v in acc.items()}
+
+    def joint_by_likelihood(self, causes: tuple[int, ...], log_cdfs) -> tuple[list[tuple], np.ndarray]:
+        """A wide check's family grouped by what its likelihood depends on: (sums of log Q, masses).
+
+        Under noisy-MAX the likelihood of a cause state depends on it only
+        through the sum of the present causes' log Q vectors, so grouping by
+        that sum gives as many entries as distinct sums (m + 1 when every
+        cause has the same Q), never 2^m.
+        """
+        width = len(log_cdfs[0]) if log_cdfs else 0
+
+        def add(a, b):
+            return tuple(x + y for x, y in zip(a, b))
+
+        acc = self.grouped(causes, tuple(tuple(q) for q in log_cdfs), (0.0,) * width, add)
+        keys = sorted(acc)
+        return keys, np.array([acc[k] for k in keys])
+
+    def _inflow(self, top: int) -> np.ndarray:
+        """Mass arriving at each evidence node from above level ``top`` (the downward pass cut there)."""
+        e_lv, e_child, e_flow = self._edges
+        cross = (e_lv < top) & (self.lv[e_child] >= top)
+        inflow = np.bincount(e_child[cross], weights=e_flow[cross], minlength=len(self.ids))
+        r = self.pos[self.root]
+        if self.lv[r] >= top:
+            inflow[r] += 1.0
+        return inflow
+
+    def both(self, g: int) -> float:
+        """P(g, findings) / P(findings) for a 0/1 diagram g.
+
+        Notes
+        -----
+        A walk of the pairs (evidence node, node of g) from where g's top
+        level cuts the evidence diagram. A pair whose two parts test disjoint
+        ranges of levels is independent: its mass is the evidence node's
+        upward value times g's prior probability, so the walk stops there.
+        """
+        s, cm = self.cm.store, self.cm
+        var, low, high = s.var, s.low, s.high
+        if g in (0, 1):
+            return float(g)
+        if low[g] == 0 and high[g] == 1:
+            return float(self.root_marginals[var[g]])
+        up, pos, p, deepest = self.up_list, self.pos, cm.priors, self.deepest_list
+        prior, known = cm.prior, cm._prior
+        # One memo for every walk over this evidence: the gates' diagrams
+        # share their lower nodes, so a pair met for one gate is met again.
+        memo = self._pairs
+
+        def walk(e: int, f: int) -> float:
+            if f == 0 or e == 0:
+                return 0.0
+            i = pos[e]
+            if f == 1:
+                return up[i]
+            key = (e, f)
+            found = memo.get(key)
+            if found is not None:
+                return found
+            pf, df = known.get(f) or prior(f)
+            ve, vf = var[e], var[f]
+            if df < ve or deepest[i] < vf:  # disjoint levels: independent
+                result = up[i] * pf
+            elif ve == vf:
+                pl = p[ve]
+                result = (1.0 - pl) * walk(low[e], low[f]) + pl * walk(high[e], high[f])
+            elif ve < vf:
+                pl = p[ve]
+                result = (1.0 - pl) * walk(low[e], f) + pl * walk(high[e], f)
+            else:
+                pl = p[vf]
+                result = (1.0 - pl) * walk(e, low[f]) + pl * walk(e, high[f])
+            memo[key] = result
+            return result
+
+        inflow = self._inflow(var[g])
+        total = 0.0
+        with _deep(4 * s.n_levels + 2000):
+            for i in np.flatnonzero(inflow):
+                total += float(inflow[i]) * walk(int(self.ids[i]), g)
+        return min(max(total / self.p_evidence, 0.0), 1.0)
+
+    def joint(self, causes: tuple[int, ...]) -> np.ndarray:
+        """P(c | findings) over the 2^m joint states of the cause diagrams (C order).
+
+        Up to four causes: from P(every cause of S present, findings) for
+        each non-empty subset S (one walk each, on the conjunction's
+        diagram), by Moebius inversion; more: one walk over all causes at once.
+        """
+        m = len(causes)
+        s = self.cm.store
+        if m == 0:
+            return np.ones(1)
+        if m <= 4:
+            # all_of[S] = P(c_i = 1 for i in S | e); bit i of S is cause m-1-i (C order).
+            all_of = np.ones(1 << m)
+            with _deep(4 * s.n_levels + 2000):
+                for subset in range(1, 1 << m):
+                    f = 1
+                    for i in range(m):
+                        if subset >> (m - 1 - i) & 1:
+                            f = s.and_(f, causes[i])
+                    all_of[subset] = self.both(f)
+            # P(exactly the state x) = sum over S superset of x of (-1)^|S - x| all_of[S].
+            out = all_of.copy()
+            for bit in range(m):
+                step = 1 << bit
+                for x in range(1 << m):
+                    if not x & step:
+                        out[x] -= out[x | step]
+            return np.clip(out, 0.0, 1.0)
+        out = np.zeros(1 << m)
+        for k, v in self.grouped(causes, tuple(1 << (m - 1 - i) for i in range(m))).items():
+            out[k] = v
+        return out
