@@ -240,7 +240,7 @@ def cost_to_finish(engine: Engine, posterior: AnyPosterior, candidates: tuple[st
     Heckerman, Breese & Rommelse 1995 (observation versus repair; the
     myopic rule is depth 1).
     """
-    best = finish_plan(posterior.model, suspects(posterior), settings).best
+    best = finish_plan(posterior.model, suspects(posterior), settings).going_on
     if depth <= 0:
         return best
     for row in rank(posterior, candidates).worth_doing(settings.min_bits)[: settings.value_lookahead]:
@@ -451,7 +451,15 @@ def decide(engine: Engine, posterior: AnyPosterior, settings: Settings, candidat
 
     check_row, check_cost, bits_only = None, math.inf, False
     if isolated is None:
-        check_row, check_cost, bits_only = _best_check(engine, posterior, ranking, candidates, settings, plan.best)
+        check_row, check_cost, bits_only = _best_check(engine, posterior, ranking, candidates, settings, plan.going_on)
+        worth = ranking.worth_doing(settings.min_bits)
+        if check_row is None and worth and price is not None and plan.escalate_cost < plan.going_on:
+            # Handing over looks cheaper than repairing, but one step ahead
+            # undervalues a run of checks: before paying for a specialist,
+            # the check with the most bits per cost is done first.
+            check_row = worth[0]
+            check_cost = cost_of_check_then(engine, posterior, check_row, candidates, 1, settings)
+            bits_only = True
 
     alts = ([repair] if repair is not None else []) + ([escalate] if price is not None else [])
     if check_row is not None:
@@ -540,7 +548,7 @@ def _best_check(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candi
 def _check_reason(model: Model, row: RankRow, ahead: float, plan: RepairPlan, repair: Alternative | None,
                   price: float | None, bits_only: bool, unit: str, group: tuple[str, ...]) -> Reason:
     odds = tuple(zip(row.outcomes, row.p_outcomes))
-    finish = plan.best
+    finish = plan.going_on
     if bits_only:
         text = f"{_money(row.cost, unit)} for {row.bits:.2f} bits about the fault ({row.label})"
         return Reason("bits-only", text, costs=(("check", row.cost),), probabilities=odds, suspects=group)
