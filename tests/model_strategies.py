@@ -3,7 +3,8 @@
 ``models()`` draws small valid :class:`~troubleshoot.model.Model` objects:
 every gate kind (AND, OR, at-least-k, NOT, INHIBIT), events and gates feeding
 several gates (repeated events), OR gates with unlisted causes, checks with
-several causes and two to four outcomes (format 1.0 and 1.1 forms), symptoms, repairs (some verified by a check), rates with
+several causes and two to four outcomes (format 1.0 and 1.1 forms), symptoms,
+repairs (some verified by a check), an escalation (format 1.1) or none, rates with
 exposure times, and text that needs escaping in XML. Every event and gate
 lies under the top event, so a drawn model has no warnings either.
 """
@@ -17,6 +18,7 @@ from troubleshoot.model import (
     BasicEvent,
     Cause,
     Check,
+    Escalation,
     Gate,
     Model,
     Repair,
@@ -190,5 +192,6 @@ def models(draw, max_events: int = 6, max_gates: int = 5, max_checks: int = 4, m
         mission_time=draw(st.floats(min_value=1.0, max_value=1e5)) if mission else None,
         top_label=draw(st.just("") | one_line()),
         verification=verification,
+        escalation=draw(st.none() | st.builds(Escalation, label=one_line(), cost=costs, instructions=paragraph())),
         isolation_threshold=draw(st.floats(min_value=0.0, max_value=1.0, exclude_min=True)),
     )

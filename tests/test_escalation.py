@@ -77,14 +77,6 @@ def test_escalation_round_trips_and_needs_format_1_1(tmp_path):
         load_model(path)
 
 
-def test_an_escalation_cheaper_than_the_dearest_repair_is_warned_about(tmp_path):
-    from troubleshoot.model.validate import validate_model
-
-    problems = validate_model(dataclasses.replace(unit(), escalation=Escalation("swap the unit", 20.0)))
-    assert any(p.severity == "warning" and "dearest" not in p.message and "most expensive repair" in p.message
-               for p in problems)
-
-
 def test_a_1_0_file_means_what_it_meant():
     from troubleshoot.model.demos import demo_path
 

@@ -31,7 +31,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 
 import numpy as np
 
@@ -96,28 +96,65 @@ class RankRow:
         return dict(zip(self.outcomes, self.p_outcomes))
 
 
-@dataclass(frozen=True)
 class Ranking:
     """Every candidate check, best first.
 
-    Attributes
+    Parameters
     ----------
     rows : tuple of RankRow
         Sorted by score (descending), then cost (ascending), then id.
     epoch : int
         The repairs made so far: the checks are scored as done now.
+
+    Notes
+    -----
+    :func:`rank` scores and orders every check in whole arrays and builds
+    the Python rows only when they are read (``rows``, ``best``, ``row``,
+    ``worth_doing``): a caller that needs the best few of 20,000 checks does
+    not pay for the other rows. Immutable once made.
     """
 
-    rows: tuple[RankRow, ...]
-    epoch: int
+    __slots__ = ("epoch", "_rows", "_make", "_bits", "_position")
+
+    def __init__(self, rows: tuple[RankRow, ...] = (), epoch: int = 0):
+        self.epoch = epoch
+        self._rows: list[RankRow | None] = list(rows)
+        self._make: Callable[[int], RankRow] | None = None
+        self._bits: np.ndarray | None = None
+        self._position: dict[str, int] | None = None
+
+    @classmethod
+    def _deferred(cls, make, checks: list[str], bits: np.ndarray, epoch: int) -> Ranking:
+        """A ranking of ``len(checks)`` rows, best first; row i is ``make(i)``, built on first read."""
+        ranking = cls((), epoch)
+        ranking._rows = [None] * len(checks)
+        ranking._make = make
+        ranking._bits = bits
+        ranking._position = {c: i for i, c in enumerate(checks)}
+        return ranking
+
+    def _row(self, i: int) -> RankRow:
+        row = self._rows[i]
+        if row is None:
+            assert self._make is not None  # only a deferred ranking has rows still to build
+            row = self._rows[i] = self._make(i)
+        return row
+
+    @property
+    def rows(self) -> tuple[RankRow, ...]:
+        """Every row, best first."""
+        return tuple(self._row(i) for i in range(len(self._rows)))
 
     @property
     def best(self) -> RankRow | None:
         """The recommended next check, or None when no check is left."""
-        return self.rows[0] if self.rows else None
+        return self._row(0) if self._rows else None
 
     def row(self, check_id: str) -> RankRow | None:
         """The row of one check, or None when it is not a candidate."""
+        if self._position is not None:
+            i = self._position.get(check_id)
+            return None if i is None else self._row(i)
         for r in self.rows:
             if r.check == check_id:
                 return r
@@ -125,10 +162,22 @@ class Ranking:
 
     def worth_doing(self, min_bits: float) -> tuple[RankRow, ...]:
         """Rows giving at least ``min_bits`` bits."""
+        if self._bits is not None:
+            return tuple(self._row(i) for i in np.flatnonzero(self._bits >= min_bits).tolist())
         return tuple(r for r in self.rows if r.bits >= min_bits)
 
     def __len__(self) -> int:
-        return len(self.rows)
+        return len(self._rows)
+
+    def __eq__(self, other) -> bool:
+        if not isinstance(other, Ranking):
+            return NotImplemented
+        return self.epoch == other.epoch and self.rows == other.rows
+
+    __hash__ = None  # type: ignore[assignment]
+
+    def __repr__(self) -> str:
+        return f"Ranking(rows={self.rows!r}, epoch={self.epoch!r})"
 
 
 _FIELDS = ("check", "label", "cost", "bits", "score", "outcomes", "p_outcomes", "caution")
@@ -215,18 +264,20 @@ def outcome_information(posterior: AnyPosterior, check_ids: Iterable[str]) -> di
     return out
 
 
-def _ordered(rows: list[RankRow]) -> list[RankRow]:
-    """Rows best first: by score, ties (within the tolerance) by cost, then id.
+def _order(checks: list[str], costs: np.ndarray, scores: np.ndarray, bits: np.ndarray) -> np.ndarray:
+    """Indices best first: by score, ties (within the tolerance) by cost, then id.
 
     Free informative checks (infinite score) are ordered among themselves by
     bits. Scores are compared with :func:`~troubleshoot.advice.ties.tie_ranks`,
     so checks whose scores agree analytically but differ in the last bits
-    still fall to the cost/id tie-break.
+    still fall to the cost/id tie-break. One lexicographic sort in numpy
+    (last key first).
     """
-    score_rank = tie_ranks([r.score for r in rows])
-    bits_rank = tie_ranks([r.bits if math.isinf(r.score) else 0.0 for r in rows])
-    keyed = sorted(range(len(rows)), key=lambda i: (score_rank[i], bits_rank[i], rows[i].cost, rows[i].check))
-    return [rows[i] for i in keyed]
+    if not checks:
+        return np.zeros(0, dtype=np.int64)
+    score_rank = tie_ranks(scores)
+    bits_rank = tie_ranks(np.where(np.isinf(scores), bits, 0.0))
+    return np.lexsort((np.array(checks), costs, bits_rank, score_rank))
 
 
 def rank(posterior: AnyPosterior, checks: Iterable[str | Check]) -> Ranking:
@@ -256,12 +307,26 @@ def rank(posterior: AnyPosterior, checks: Iterable[str | Check]) -> Ranking:
     """
     model = posterior.model
     ids = [c.id if isinstance(c, Check) else c for c in checks]
-    rows = []
+    names: list[str] = []
+    bits_parts: list[np.ndarray] = []
+    p_parts: list[np.ndarray] = []
     for batch in posterior.family_batches(ids):
         bits, p_t = batch_information(batch.joint, batch.likelihood)
-        for check_id, b, p in zip(batch.checks, bits.tolist(), p_t.tolist()):
-            check = model.check_by_id[check_id]
-            cost = float(check.cost)
-            rows.append(_new_row(check_id, check.label, cost, b, score_of(b, cost), tuple(check.outcomes),
-                                 tuple(p), check.caution))
-    return Ranking(tuple(_ordered(rows)), posterior.epoch)
+        names.extend(batch.checks)
+        bits_parts.append(bits)
+        p_parts.extend(p_t)  # one row of P(outcome) per check
+    bits = np.concatenate(bits_parts) if bits_parts else np.zeros(0)
+    found = [model.check_by_id[c] for c in names]
+    costs = np.array([c.cost for c in found], dtype=float)
+    paid = costs > 0
+    # score_of in whole arrays: bits / cost, infinite for an informative free check, 0 otherwise.
+    scores = np.where(paid, bits / np.where(paid, costs, 1.0), np.where(bits > 0, np.inf, 0.0))
+    order = _order(names, costs, scores, bits).tolist()
+
+    def make(i: int) -> RankRow:
+        j = order[i]
+        check = found[j]
+        return _new_row(names[j], check.label, float(costs[j]), float(bits[j]), float(scores[j]),
+                        tuple(check.outcomes), tuple(p_parts[j].tolist()), check.caution)
+
+    return Ranking._deferred(make, [names[j] for j in order], bits[order], posterior.epoch)

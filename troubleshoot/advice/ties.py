@@ -66,13 +66,13 @@ def tie_ranks(values: Sequence[float] | np.ndarray, descending: bool = True) -> 
         return ranks
     key = np.where(np.isnan(v), -np.inf if descending else np.inf, v)
     order = np.argsort(-key if descending else key, kind="stable")
-    rank = 0
-    previous = key[order[0]]
-    for i in order:
-        if not tied(float(key[i]), float(previous)):
-            rank += 1
-        ranks[i] = rank
-        previous = key[i]
+    ordered = key[order]
+    # A new rank wherever a value is not tied with the one before it (whole arrays, as tied() says).
+    a, b = ordered[1:], ordered[:-1]
+    with np.errstate(invalid="ignore"):
+        close = np.abs(a - b) <= np.maximum(TIE_RTOL * np.maximum(np.abs(a), np.abs(b)), TIE_ATOL)
+    same = (a == b) | (np.isfinite(a) & np.isfinite(b) & close)
+    ranks[order] = np.concatenate(([0], np.cumsum(~same)))
     return ranks
 
 

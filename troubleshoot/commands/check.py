@@ -50,7 +50,21 @@ def summary(model: Model) -> dict:
         "unlisted_causes": sum(1 for g in model.gates if g.unlisted is not None),
         "cost_unit": model.cost_unit,
         "source": model.source,
+        "escalation": None if model.escalation is None else {
+            "label": model.escalation.label,
+            "cost": model.escalation.cost,
+            "instructions": model.escalation.instructions,
+        },
     }
+
+
+def escalation_line(model: Model) -> str:
+    """The escalation in words with its price, or what applies without one."""
+    if model.escalation is None:
+        # The documented default (troubleshoot.advice.policy): no price, so
+        # never chosen by cost, but advised once the cause is outside the model.
+        return f"none: advised only when P(outside the model) >= {model.isolation_threshold:g}"
+    return f"{model.escalation.label} ({model.escalation.cost:g} {model.cost_unit})"
 
 
 def run(args) -> int:
@@ -71,6 +85,7 @@ def run(args) -> int:
     print(f"  checks           {facts['checks']}")
     print(f"  symptoms         {facts['symptoms']}")
     print(f"  cost unit        {model.cost_unit}")
+    print(f"  escalation       {escalation_line(model)}")
     if warnings:
         print(f"  warnings         {len(warnings)}")
         for warning in warnings:

@@ -946,7 +946,7 @@ class JoinTree:
         """Index plan for the joints of many variable sets of one size m, read in two calls.
 
         Each set is read from the smallest calibrated table holding it (a
-        clique or a separator). Returns (clique gather, clique target,
+        clique or a separator); a single variable from its marginal. Returns (clique gather, clique target,
         separator gather, separator target, states): the sum of
         ``bincount(target, buffer[gather])`` over both buffers, reshaped to
         (len(groups), 2**m), is every joint, states in C order over each
@@ -957,6 +957,10 @@ class JoinTree:
             return plan
         m = len(groups[0]) if groups else 0
         states = 1 << m
+        if m == 1:  # one variable: its marginal, already read by the propagation
+            plan = (None, np.array([self.index[v] for (v,) in groups], dtype=np.int64), None, None, states)
+            self._batch_plans[groups] = plan
+            return plan
         parts: dict[bool, tuple[list, list]] = {False: ([], []), True: ([], [])}
         for row, variables in enumerate(groups):
             idx = [self.index[v] for v in variables]
@@ -1120,6 +1124,9 @@ class Calibrated:
     def joints(self, plan, count: int) -> np.ndarray:
         """Joints of ``count`` variable sets of one size from :meth:`JoinTree.joints_plan`, shape (count, states)."""
         gather_c, target_c, gather_s, target_s, states = plan
+        if gather_c is None:  # single variables: [P(v = 0), P(v = 1)] from the marginals
+            p = self.marginals()[target_c]
+            return np.stack([1.0 - p, p], axis=1)
         out = np.bincount(target_c, weights=self.work[gather_c], minlength=count * states).astype(float, copy=False)
         if len(gather_s):
             out += np.bincount(target_s, weights=self.separators[gather_s], minlength=count * states)

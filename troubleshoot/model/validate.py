@@ -122,7 +122,8 @@ def validate_model(model: Model, path: str | None = None) -> list[Problem]:
     failure rate has an exposure time and agrees with the probability
     p = 1 - exp(-rate * exposure); costs are finite and not negative,
     symptoms cost nothing; each check has at least one cause; the mission
-    time is given for a mission-time basis. Events and gates not under the
+    time is given for a mission-time basis; an escalation (format 1.1) has a
+    label and a finite cost >= 0. Events and gates not under the
     top event are warnings.
 
     References
@@ -516,21 +517,25 @@ class _Checker:
         self.check_outcomes(verification.outcomes, line, "verification")
 
     def check_escalation(self) -> None:
+        """Format 1.1: a label in words and a finite cost, 0 or more, in the model's unit."""
         escalation = self.model.escalation
         if escalation is None:
             return
         line = self.line(("escalation",), self.line(("top",)))
+        if not isinstance(escalation.label, str) or not escalation.label.strip():
+            self.error(
+                self.line(("escalation", "label"), line),
+                "the escalation has no label; say in <label> what handing the unit over means "
+                "(for example: call the manufacturer's field engineer)",
+            )
         if not _is_cost(escalation.cost):
-            self.error(line, f"escalation cost {escalation.cost!r} {self.model.cost_unit} is not a finite number "
-                             ">= 0; give what handing the unit over costs")
-        if not (escalation.label or "").strip():
-            self.error(line, "the escalation has no <label>; say in words what escalating means "
-                             "(\"call the manufacturer's field engineer\", \"swap the whole unit\")")
-        costs = [e.repair.cost for e in self.model.basic_events if e.repair is not None and _is_cost(e.repair.cost)]
-        if costs and _is_cost(escalation.cost) and escalation.cost < max(costs):
-            self.warning(line, f"escalation costs {escalation.cost:g} {self.model.cost_unit}, less than the most "
-                               f"expensive repair ({max(costs):g} {self.model.cost_unit}); a specialist's visit or "
-                               "a unit swap usually costs at least as much")
+            self.error(
+                line,
+                f"escalation cost {escalation.cost!r} {self.model.cost_unit} is not a finite number >= 0; "
+                "give what handing the unit over costs, in the model's cost unit",
+            )
+        if not isinstance(escalation.instructions, str):
+            self.error(line, f"escalation instructions {escalation.instructions!r} are not text; write them as text")
 
     def check_cycles(self) -> None:
         graph = nx.DiGraph()

@@ -1,7 +1,8 @@
 """The XML model format: read a model file into a :class:`Model`, write one back.
 
 The format is documented element by element in ``faulttrees/FORMAT.md`` and
-fixed by the XML Schema ``troubleshoot/schema/model-1.0.xsd``. Reading goes
+fixed by the XML Schema ``troubleshoot/model/schema/model-1.1.xsd`` (which
+also reads every file of version 1.0). Reading goes
 through the hardened parser of :mod:`troubleshoot.model.xmlsafe`, then the schema,
 then the semantic checks of :mod:`troubleshoot.model.validate`; every problem found
 is reported in one :class:`~troubleshoot.errors.ModelError`, each with its
@@ -111,6 +112,10 @@ def load_model_with_warnings(path: str | os.PathLike) -> tuple[Model, list[Probl
     if problems:
         raise ModelError(problems)
     schema_found = validation_problems(model_schema(), root, name, _SCHEMA_HINTS)
+    placed, covered = _escalation_placement(root, name)
+    if placed:
+        # Our sentence says where <escalation> belongs; the schema's says less.
+        schema_found = [p for p in schema_found if p.line not in covered] + placed
     builder = _Builder(root, name)
     model = builder.build()
     semantic = builder.problems + check_model(model, name, builder.lines)
@@ -166,12 +171,45 @@ def _root_problems(root: etree._Element, name: str) -> list[Problem]:
     return []
 
 
+def _escalation_placement(root: etree._Element, name: str) -> tuple[list[Problem], set[int | None]]:
+    """<escalation> elements out of place, or more than one: where each belongs.
+
+    Returns the problems and the lines whose schema messages they replace.
+    """
+    problems = []
+    covered: set[int | None] = set()
+    first: int | None = None
+    for element in root.iter("escalation"):
+        parent = element.getparent()
+        if parent is None or parent.tag != "top-event" or parent.getparent() is not root:
+            where = f"inside <{parent.tag}>" if parent is not None else "at the root"
+            problems.append(Problem(name, element.sourceline,
+                                    f"<escalation> is {where}; it belongs inside <top-event>, after <label> and "
+                                    "<verification>: move it there"))
+        elif first is None:
+            first = element.sourceline
+            after = [s for s in element.itersiblings() if isinstance(s.tag, str) and s.tag != "escalation"]
+            if after:
+                problems.append(Problem(name, element.sourceline,
+                                        f"<escalation> comes before <{after[0].tag}>; it is the last element "
+                                        "inside <top-event>, after <label> and <verification>: move it down"))
+                # The schema then finds the later elements out of place: one sentence is enough.
+                covered.update(s.sourceline for s in after)
+        else:
+            problems.append(Problem(name, element.sourceline,
+                                    f"a second <escalation> (the first is at line {first}); a model gives at most "
+                                    "one way to hand the unit over: keep one"))
+    covered.update(p.line for p in problems)
+    return problems, covered
+
+
 #: Extra words for schema messages about our elements.
 _SCHEMA_HINTS = {
     "id": "an id: letters, digits, '-', '_' or '.', starting with a letter or '_' (no spaces, ':' or '~')",
     "xs:NCName": "an id: letters, digits, '-', '_' or '.', starting with a letter or '_' (no spaces, ':' or '~')",
     "number": "a number (such as 0.02 or 1e-5)",
     "xs:double": "a number (such as 0.02 or 1e-5)",
+    "finite-cost": "a number, 0 or more (such as 30 or 2.5)",
     "xs:integer": "a whole number",
 }
 
@@ -208,7 +246,6 @@ class _Builder:
         self.name = name
         self.problems: list[Problem] = []
         self.lines: dict[tuple, int] = {}
-        self.escalation: Escalation | None = None
 
     # -- small readers ---------------------------------------------------
     def error(self, line: int | None, message: str) -> None:
@@ -263,7 +300,9 @@ class _Builder:
         root = self.root
         meta = self.child(root, "metadata")
         fields = self.metadata(meta) if meta is not None else {"name": ""}
-        top, top_label, verification = self.top_event(self.child(root, "top-event"))
+        top_element = self.child(root, "top-event")
+        top, top_label, verification = self.top_event(top_element)
+        escalation = self.escalation(top_element)
         gates: list[Gate] = []
         events: list[BasicEvent] = []
         tree = self.child(root, "fault-tree")
@@ -288,7 +327,7 @@ class _Builder:
             symptoms=tuple(symptoms),
             top_label=top_label,
             verification=verification,
-            escalation=self.escalation,
+            escalation=escalation,
             source=self.name,
             **fields,
         )
@@ -336,15 +375,22 @@ class _Builder:
                 instructions=self.child_text(found, "instructions"),
                 outcomes=self.outcomes(outcomes) if outcomes is not None else ("works", "still fails"),
             )
-        found = self.child(element, "escalation")
-        if found is not None:
-            self.lines[("escalation",)] = found.sourceline
-            self.escalation = Escalation(
-                label=self.child_text(found, "label"),
-                cost=self.number(found.get("cost"), found.sourceline, "escalation cost", 0.0),
-                instructions=self.child_text(found, "instructions"),
-            )
         return (element.get("ref") or "").strip(), self.child_text(element, "label"), verification
+
+    def escalation(self, top: etree._Element | None) -> Escalation | None:
+        """The first <escalation> under the top event (format 1.1), or None."""
+        found = self.child(top, "escalation") if top is not None else None
+        if found is None:
+            return None
+        self.lines[("escalation",)] = found.sourceline
+        label = self.child(found, "label")
+        if label is not None:
+            self.lines[("escalation", "label")] = label.sourceline
+        return Escalation(
+            label=self.text(label),
+            cost=self.number(found.get("cost"), found.sourceline, "escalation cost", 0.0),
+            instructions=self.child_text(found, "instructions"),
+        )
 
     def refs(self, owner: str, element: etree._Element, tag: str) -> tuple[str, ...]:
         refs = []

@@ -342,6 +342,13 @@ def plain_schema_message(message: str, type_hints: dict[str, str]) -> str:
          lambda m: f"<{m[1]}> {m[2]}=\"{m[3]}\" is not allowed; use one of {m[4]}"),
         (_E + r": \[facet 'enumeration'\] The value '(.*)' is not an element of the set \{(.*)\}\.",
          lambda m: f"<{m[1]}> holds '{m[2]}', which is not allowed; use one of {m[3]}"),
+        (_E + _A + r": \[facet 'minInclusive'\] The value '(.*)' is less than the minimum value allowed \('(.*)'\)\.",
+         lambda m: f"<{m[1]}> {m[2]}=\"{m[3]}\" is below {m[4]}; give a number of {m[4]} or more"),
+        (_E + _A + r": \[facet 'maxExclusive'\] The value '(.*)' must be less than 'INF'\.",
+         lambda m: f"<{m[1]}> {m[2]}=\"{m[3]}\" is not a finite number; give a finite number such as 30"),
+        # The one pattern of the model schema asks for text that is not blank.
+        ("(?s)" + _E + r": \[facet 'pattern'\] The value '(.*)' is not accepted by the pattern '.*'\.",
+         lambda m: f"<{m[1]}> is blank; write it in words"),
         (_E + r": Element content is not allowed, because the type definition is simple\.",
          lambda m: f"<{m[1]}> holds text only; remove the elements inside it"),
         (_E + r": Element content is not allowed, because the content type is empty\.",

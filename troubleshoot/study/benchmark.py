@@ -72,6 +72,7 @@ class SizeResult:
     pyagrum_infer_s: float | None
     touched_entries: int
     depth: int
+    compile_cpu_s: float
     #: With ``three_outcomes``: the step on the same tree with that share of
     #: its checks given three outcomes, timed alternately with the two-outcome
     #: step in the same run, and the ratio of the two medians.
@@ -81,9 +82,15 @@ class SizeResult:
     three_outcome_step_ratio: float | None = None
 
 
-def _median_time(fn: Callable[[], object], repeats: int) -> float:
-    times = []
-    for _ in range(repeats):
+#: Seconds one timing may take: past it, the median of the runs made so far (at least one) is kept.
+TIMING_BUDGET_S = 20.0
+
+
+def _median_time(fn: Callable[[], object], repeats: int, budget: float = TIMING_BUDGET_S) -> float:
+    """Median seconds of up to ``repeats`` runs, stopping once ``budget`` seconds are spent."""
+    times: list[float] = []
+    start = time.perf_counter()
+    while len(times) < repeats and (not times or time.perf_counter() - start < budget):
         t0 = time.perf_counter()
         fn()
         times.append(time.perf_counter() - t0)
@@ -112,22 +119,43 @@ def _evidence_names(model, findings) -> dict[str, str]:
     return out
 
 
-def floor_seconds(entries: int, repeats: int) -> float:
-    """Median seconds of one vectorised multiply-add pass, out = a * b + c, over ``entries`` float64 entries.
+def floor_pass(entries: int, table_entries: int) -> Callable[[], None]:
+    """One vectorised multiply-add pass, out = a * b + c, over ``entries`` float64 entries.
 
-    The arithmetic a propagation cannot avoid, at numpy's speed on this
-    machine now: the benchmark divides the propagation time by it.
+    The pass runs over buffers as large as the join tree's tables (its
+    working set, in the same caches), as many times as it takes to cover
+    ``entries``: the arithmetic a propagation cannot avoid, at numpy's speed
+    on this machine now. The benchmark divides the propagation time by it.
     """
+    size = max(1, min(entries, table_entries))
+    passes, rest = divmod(entries, size)
     rng = np.random.default_rng(0)
-    a, b, c = rng.random(entries), rng.random(entries), rng.random(entries)
-    out = np.empty(entries)
+    a, b, c = rng.random(size), rng.random(size), rng.random(size)
+    out = np.empty(size)
 
-    def multiply_add():
-        np.multiply(a, b, out=out)
-        np.add(out, c, out=out)
+    def multiply_add() -> None:
+        for _ in range(passes):
+            np.multiply(a, b, out=out)
+            np.add(out, c, out=out)
+        if rest:
+            np.multiply(a[:rest], b[:rest], out=out[:rest])
+            np.add(out[:rest], c[:rest], out=out[:rest])
 
     multiply_add()
-    return _median_time(multiply_add, repeats)
+    return multiply_add
+
+
+def _paired_medians(first: Callable[[], object], second: Callable[[], object], repeats: int,
+                    budget: float = TIMING_BUDGET_S) -> tuple[float, float]:
+    """Median seconds of two jobs timed in alternation, so both meet the same load on a shared machine."""
+    times: tuple[list[float], list[float]] = ([], [])
+    start = time.perf_counter()
+    while len(times[0]) < repeats and (not times[0] or time.perf_counter() - start < budget):
+        for fn, out in ((first, times[0]), (second, times[1])):
+            t0 = time.perf_counter()
+            fn()
+            out.append(time.perf_counter() - t0)
+    return statistics.median(times[0]), statistics.median(times[1])
 
 
 def run_reference(library: str, spec: dict, budget: float, jobs: tuple[str, ...],
@@ -235,9 +263,9 @@ def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats:
     model = synthetic_model(basic_events, seed=seed)
     progress(f"{basic_events:,} basic events: compiling")
     gc.collect()
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     engine = Engine(model)
-    compile_s = time.perf_counter() - t0
+    compile_s, compile_cpu_s = time.perf_counter() - t0, time.process_time() - c0
     tree = engine.tree
     if tree is None:  # the engine went over to the compiled path: no join tree to measure
         raise NetworkTooLarge(f"{basic_events:,} basic events: the join tree does not fit in "
@@ -252,8 +280,8 @@ def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats:
         engine.forget()  # a posterior kept in memory would make the timing free
         return engine.propagate(findings)
 
-    propagate_s = _median_time(propagate, repeats)
-    floor_s = floor_seconds(tree.touched_entries, repeats)
+    propagate_s, floor_s = _paired_medians(propagate, floor_pass(tree.touched_entries, tree.table_entries),
+                                           2 * repeats + 1)
     step_s = _median_time(lambda: rank(propagate(), candidates), repeats)
     progress(f"{basic_events:,} basic events: session steps")
     session_step_s = _session_step_time(model, engine, findings, repeats)
@@ -318,7 +346,7 @@ def run_size(basic_events: int, seed: int = 1, references: bool = True, repeats:
         pgmpy_s=pgmpy_s, pyagrum_s=pyagrum_s, pgmpy_step_s=pgmpy_step_s,
         floor_ms=floor_s * 1000, floor_ratio=propagate_s / floor_s if floor_s > 0 else math.inf,
         pyagrum_infer_ratio=ratio(pyagrum_infer_s, propagate_s), pyagrum_infer_s=pyagrum_infer_s,
-        touched_entries=tree.touched_entries, depth=tree.depth, **graded,
+        touched_entries=tree.touched_entries, depth=tree.depth, compile_cpu_s=compile_cpu_s, **graded,
     )
 
 
@@ -352,7 +380,8 @@ def as_table(results: list[SizeResult], budget: float = REFERENCE_BUDGET_S) -> s
             lines.append(f"{r.basic_events:,} basic events, {r.three_outcome_share:.0%} of the checks with three "
                          f"outcomes: step {r.step_three_outcomes_ms:.1f} ms against {r.step_two_outcomes_ms:.1f} ms "
                          f"with two outcomes ({r.three_outcome_step_ratio:.2f}x, timed alternately)")
-    lines.append("propagate: median of one propagation with every marginal; step: propagate + rank every check; "
+    lines.append("propagate: median of one propagation with every marginal (timed alternately with the floor); "
+                 "step: propagate + rank every check; "
                  "session: a whole action as the UI does it (step, then weighing the best 3 checks "
                  "against repairing now).")
     lines.append("floor: one vectorised multiply-add pass over as many entries as a propagation touches, "

@@ -47,8 +47,10 @@ def write_mef(model: Model, path) -> None:
     and condition, an OR gate's unlisted causes as an extra basic event under
     it, and a basic event with a rate and an exposure as an exponential law.
     Checks and symptoms have no place in an MEF fault tree and are left out
-    (a comment in the file says so). Extra ``troubleshoot-*`` attributes let
-    :func:`read_mef` restore the model exactly.
+    (a comment in the file says so), as are costs, repairs, the verification
+    and the escalation (MEF has no element for them). Extra
+    ``troubleshoot-*`` attributes let :func:`read_mef` restore the fault tree
+    exactly.
 
     Parameters
     ----------
@@ -96,7 +98,8 @@ def write_mef(model: Model, path) -> None:
     lines.append("<!-- Fault tree of the model " + _comment_text(model.name) + ". Checks and symptoms "
                  "are not part of an MEF fault tree and are not written"
                  + (f" ({len(model.checks)} check(s), {len(model.symptoms)} symptom(s) left out)" if omitted else "")
-                 + "; nor are costs and repairs. An INHIBIT gate is written as an AND of its input and "
+                 + "; nor are costs, repairs, the verification and the escalation. An INHIBIT gate is written "
+                 "as an AND of its input and "
                  "condition; unlisted causes of an OR gate as an extra basic event under it. "
                  "Attributes named troubleshoot-* let the same program read the model back exactly. -->")
     lines.append("<opsa-mef>")
