@@ -101,3 +101,17 @@ def test_rates_give_the_exponential_probability(demo):
         # p = 1 - exp(-lambda t): NUREG-0492 chapter VI.
         assert event.probability == pytest.approx(exponential_probability(event.rate, event.exposure), rel=1e-12)
         assert 0 < event.probability < 0.1
+
+
+@pytest.mark.parametrize("demo", sorted(DEMOS))
+def test_escalation_costs_at_least_the_most_expensive_repair(demo):
+    # Common practice: a specialist's visit or a unit swap costs at least as
+    # much as the dearest repair the technician could make on site.
+    model, _warnings = load(demo)
+    assert model.escalation is not None and model.escalation.label
+    dearest = max(e.repair.cost for e in model.basic_events if e.repair is not None)
+    assert model.escalation.cost >= dearest
+    # Its price is marked illustrative in the file, as every demo figure is.
+    text = demo_path(demo).read_text(encoding="utf-8")
+    block = text[text.rindex("<!--", 0, text.index("<escalation")):text.index("<escalation")]
+    assert "Illustrative price" in block

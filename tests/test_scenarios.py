@@ -9,6 +9,11 @@ isolates, and verifies as the script says. The scripted outcomes are checked
 against the fault tree itself: a check reads abnormal exactly when one of its
 causes has occurred with the true faults (and the repairs made), evaluated
 by tests/bruteforce.evaluate, independent of the engine.
+
+A scenario with ``"escalation": false`` runs its demo without the model's
+escalation (the default of format 1.0 applies: escalation is never chosen
+by cost): it scripts a technician who repairs where, with the escalation's
+price, the tool would hand the unit over; its description says so.
 """
 
 from __future__ import annotations
@@ -63,6 +68,8 @@ def noise_free_outcomes(model, faults, repairs) -> dict[str, str]:
 def run_scenario(doc: dict) -> tuple[Session, list, list]:
     """Drive a session from a scenario script; returns it, the isolated suspects and the repairs."""
     model = load_demo(doc["model"])
+    if doc.get("escalation", True) is False:
+        model = dataclasses.replace(model, escalation=None)
     settings = settings_for(model, **doc.get("settings", {}))
     session = Session(model, settings)
     isolated, repairs = [], []

@@ -27,6 +27,7 @@ from troubleshoot.ui.screens import (
     SAFETY_NOTICE,
     ChoiceScreen,
     CheckScreen,
+    ConfirmScreen,
     FindingChoiceScreen,
     HelpScreen,
     MainScreen,
@@ -146,7 +147,8 @@ async def diagnose_to_the_end(app, pilot, technician, max_steps=60) -> None:
             return
         if state.status == "diagnosing":
             assert isinstance(app.screen, MainScreen)
-            check_id = state.ranking[0].check
+            check_id = state.next_check.check  # the recommended check is the first row
+            assert rows(app)[0] == check_id
             await pilot.press("home", "enter")
             await pilot.pause()
             assert app.screen.card.target == check_id
@@ -165,6 +167,11 @@ async def diagnose_to_the_end(app, pilot, technician, max_steps=60) -> None:
             assert isinstance(screen, CheckScreen) and screen.card.verification
             await enter_outcome(app, pilot, technician.outcome(screen.card.target, state.repairs))
     raise AssertionError(f"no confirmed repair after {max_steps} steps; status {app.state.status}")
+
+
+def rows(app) -> list[str]:
+    """The check ids in the order the main screen lists them."""
+    return app.screen.query_one("#checks").row_ids()
 
 
 def replay_ok(log: Path) -> None:
@@ -198,7 +205,8 @@ def test_whole_session_to_confirmed_repair(tmp_path):
 
             # The first check with a caution: an outcome before acknowledging is refused.
             state = app.state
-            with_caution = next(i for i, r in enumerate(state.ranking) if r.caution)
+            cautions = {r.check for r in state.ranking if r.caution}
+            with_caution = next(i for i, c in enumerate(rows(app)) if c in cautions)
             await pilot.press("home", *["down"] * with_caution, "enter")
             await pilot.pause()
             screen = app.screen
@@ -214,11 +222,12 @@ def test_whole_session_to_confirmed_repair(tmp_path):
             assert "acknowledged" in screen.message
             await pilot.press(str(technician.outcome(screen.card.target, ()) + 1))
             await settle(app, pilot)
-            assert len(app.session.actions) == actions_before + 2  # the acknowledgement is logged too
-            assert [a.kind for a in app.session.actions[-2:]] == ["acknowledge", "finding"]
+            # The acknowledgement is logged, then the finding.
+            assert [a.kind for a in app.session.actions[actions_before:]] == ["acknowledge", "finding"]
+            assert app.session.actions[actions_before].check == screen.card.target
 
             await diagnose_to_the_end(app, pilot, technician)
-            assert isinstance(app.screen, SummaryScreen)
+            assert isinstance(app.screen, SummaryScreen), app.messages
             assert fault in app.session.repairs
             shown = screen_text(app)
             assert "Diagnosis summary" in shown
@@ -230,9 +239,11 @@ def test_whole_session_to_confirmed_repair(tmp_path):
     summary = summary_path(log).read_text(encoding="utf-8")
     assert summary_path(log) == log.with_suffix(".md")
     assert model.top_label in summary
-    assert f"Fault isolated and repaired:** {model.label_of(fault)}" in summary
+    assert f"Fault repaired and confirmed:** {model.label_of(fault)}" in summary
+    assert "**Ending:** Confirmed" in summary
     assert str(log) in summary
-    assert f"Total cost:** {app.state.cost_spent:g} {model.cost_unit}" in summary
+    assert f"Cost of the steps, by the model's figures:** {app.state.cost_spent:g} {model.cost_unit}" in summary
+    assert "Caution acknowledged" in summary  # the acknowledgement is logged and listed
     for view in app.state.findings:
         if view.kind == "finding":
             assert view.label in summary and view.outcome in summary
@@ -251,7 +262,7 @@ def test_second_demo_checks_repair_and_verification(tmp_path):
             await settle(app, pilot)
             await mark_symptoms_and_begin(app, pilot, technician)
             for _ in range(2):
-                check_id = app.state.ranking[0].check
+                check_id = rows(app)[0]
                 await pilot.press("home", "enter")
                 await pilot.pause()
                 await enter_outcome(app, pilot, technician.outcome(check_id, ()))
@@ -294,7 +305,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
             assert any("nothing to undo" in m for m in app.messages)
 
             # Skip the top check with a reason: it leaves the ranking; an empty reason is refused.
-            top = app.state.ranking[0]
+            top = next(r for r in app.state.ranking if r.check == rows(app)[0])
             await pilot.press("home", "s")
             await pilot.pause()
             assert isinstance(app.screen, PromptScreen)
@@ -312,7 +323,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
             await pilot.press("u")
             await settle(app, pilot)
             assert app.state.skipped == ()
-            assert app.state.ranking[0].check == top.check
+            assert rows(app)[0] == top.check
 
             # Record an outcome, then retract it: the finding is gone, the check is back.
             await pilot.press("home", "enter")
@@ -340,7 +351,7 @@ def test_undo_skip_retract_correct_and_note(tmp_path):
             assert finding.outcome_index == 0
 
             # A note goes to the log and the findings panel.
-            await pilot.press("n")
+            await pilot.press("m")
             await pilot.pause()
             await pilot.press(*"flat roof")
             await pilot.press("enter")
@@ -390,7 +401,7 @@ def test_wrong_repair_fault_persists_and_diagnosis_goes_on(tmp_path):
             assert any("persists" in m for m in app.messages)
             assert isinstance(app.screen, MainScreen)
             # The diagnosis goes on: the next check is recorded after the repair.
-            check_id = app.state.ranking[0].check
+            check_id = rows(app)[0]
             await pilot.press("home", "enter")
             await pilot.pause()
             await enter_outcome(app, pilot, technician.outcome(check_id, app.state.repairs))
@@ -457,18 +468,26 @@ def test_every_panel_and_footer_key_fits_80_by_24(tmp_path, theme):
             for key in keys:
                 assert _inside(key.region, *SIZE), f"footer key {key.description!r} does not fit in 80 columns"
             text = screen_text(app)
-            # Every number has its unit: costs, bits, scores, odds and suspects.
+            # Every number has its unit: costs, chances and suspects; no bits by default.
             row = app.state.ranking[1]
             assert f"{row.cost:g} {app.state.cost_unit}" in text
-            assert " bit" in text and "bit/" in text and " %" in text
+            assert " %" in text and "bit" not in text
             top = app.state.suspects[0]
             assert f"{top.p * 100:.1f} %" in text
+            # The figures are one key away, with their units.
+            await pilot.press("f")
+            await pilot.pause()
+            text_figures = screen_text(app)
+            assert " bit" in text_figures and "bit/" in text_figures
+            await pilot.press("f")
+            await pilot.pause()
             # The status is said in a word, not only a colour.
             assert "DIAGNOSING" in text
 
             # The check dialog fits too, caution and message included.
             await pilot.press("home")
-            index = next(i for i, r in enumerate(app.state.ranking) if r.caution)
+            cautions = {r.check for r in app.state.ranking if r.caution}
+            index = next(i for i, c in enumerate(rows(app)) if c in cautions)
             await pilot.press(*["down"] * index, "enter")
             await pilot.pause()
             for widget_id in ("check-title", "check-caution", "check-outcomes", "check-message"):
@@ -490,10 +509,11 @@ def test_larger_terminal_shows_whole_labels_and_marks_the_recommended_check(tmp_
             await pilot.press("b")
             await settle(app, pilot)
             assert app.state.ranking[0].label in screen_text(app)
-            # The recommended check is marked and under the cursor.
+            # The recommended check is marked, first and under the cursor.
             recommended = app.state.next_check
             assert recommended is not None
             assert app.screen.query_one("#checks").highlighted_check() == recommended.check
+            assert rows(app)[0] == recommended.check
             assert "► " + ("⚠ " if recommended.caution else "") + recommended.label in screen_text(app)
             await pilot.press("q")
         return app.return_code
@@ -516,7 +536,7 @@ def test_summary_markdown_from_session_data(tmp_path):
     assert model.symptoms[0].label in text and model.symptoms[0].outcomes[1] in text
     assert "no meter" in text and "roof hatch locked" in text
     assert f"{session.state.cost_spent:g} {model.cost_unit}" in text
-    assert "not finished" in text
+    assert "not finished" in text and "Abandoned" in text
     assert summary_path("a/b.jsonl") == Path("a/b.md")
     assert summary_path("a/b.md") == Path("a/b.md.md")  # never overwrites the log
 
@@ -558,6 +578,176 @@ def test_safety_notice_names_what_it_does_not_replace():
         assert words in SAFETY_NOTICE
 
 
+# ---------------------------------------------------------------------- plain words, keys, confirmation
+
+
+def test_main_screen_speaks_plainly_with_the_recommendation_first(tmp_path):
+    app, log = new_app(tmp_path, "booster")
+    from textual.widgets._footer import FooterKey
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await settle(app, pilot)
+            await pilot.press("b")
+            await settle(app, pilot)
+            state = app.state
+            text = flat(screen_text(app))
+            # The recommended action is the first row, and its why-line is on screen.
+            assert state.next_check is not None and rows(app)[0] == state.next_check.check
+            assert state.why is not None and flat(state.why.text) in text
+            # No bits, scores or entropy by default.
+            assert "bit" not in screen_text(app)
+            # The full name of the row under the cursor, however long, is on screen.
+            labels = {r.check: r.label for r in state.ranking}
+            longest = max(range(len(rows(app))), key=lambda i: len(labels.get(rows(app)[i], "")))
+            assert len(labels[rows(app)[longest]]) > 40  # longer than the column at 80 columns
+            await pilot.press("home", *["down"] * longest)
+            await pilot.pause()
+            assert flat(labels[rows(app)[longest]]) in flat(screen_text(app))
+
+            # The recommended check's card: outcome names in the footer, the suspects it separates.
+            await pilot.press("home", "enter")
+            await pilot.pause()
+            card = app.screen
+            assert isinstance(card, CheckScreen) and card.card.why is not None
+            descriptions = {k.description for k in card.query(FooterKey)}
+            outcomes = tuple(app.session.model.check_by_id[card.card.target].outcomes)
+            assert all(any(d and name.startswith(d.rstrip("…")) for d in descriptions) for name in outcomes)
+            why_text = str(card.query_one("#check-why").render())
+            for shift in card.card.why.suspects:
+                assert shift.label in why_text
+            # q closes the card, as Escape does.
+            await pilot.press("q")
+            await pilot.pause()
+            assert isinstance(app.screen, MainScreen)
+
+            # A skipped check stays listed, dimmed, at the end; k brings it back.
+            first = rows(app)[0]
+            await pilot.press("home", "s")
+            await pilot.pause()
+            await pilot.press(*"no key to the room", "enter")
+            await settle(app, pilot)
+            assert app.state.skipped == ((first, "no key to the room"),) and rows(app)[-1] == first
+            assert "skipped" in screen_text(app)
+            await pilot.press("end", "k")
+            await settle(app, pilot)
+            assert app.state.skipped == () and first in [r.check for r in app.state.ranking]
+            assert app.session.actions[-1].to_record() == {"action": "unskip", "check": first}
+
+            # Ctrl+C quits as safely as q: the log is kept and the summary written.
+            await pilot.press("ctrl+c")
+            await pilot.pause()
+        return app.return_code
+
+    assert run(scenario()) == 0
+    assert summary_path(log).exists()
+    replay_ok(log)
+
+
+def test_a_repair_of_an_unlikely_part_asks_for_confirmation(tmp_path):
+    # A lower isolation threshold, so the run capacitor stands isolated after a few checks.
+    app, log = new_app(tmp_path, "rooftop", isolation_threshold=0.6)
+    model = app.session.model
+    technician = Technician(model, "run_capacitor_failed")
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await settle(app, pilot)
+            await mark_symptoms_and_begin(app, pilot, technician)
+            for _ in range(30):
+                if app.state.status != "diagnosing":
+                    break
+                check_id = rows(app)[0]
+                await pilot.press("home", "enter")
+                await pilot.pause()
+                await enter_outcome(app, pilot, technician.outcome(check_id, ()))
+            state = app.state
+            assert state.status == "isolated" and state.isolated.id == technician.fault
+            # The why-line says what to do in words: the part, its chance, the repair.
+            shown = flat(screen_text(app))
+            assert f"{state.isolated.label} stands at {state.isolated.p * 100:.1f} %: repair it" in shown
+            await pilot.press("r")
+            await pilot.pause()
+            choice = app.screen
+            assert isinstance(choice, ChoiceScreen)
+            # Repairs with the same words show the part they concern.
+            compressor = [text for _, text in choice.options if text.startswith("Replace the compressor (")]
+            assert len(compressor) == 2 and all("[" in t and "]" in t for t in compressor)
+            parts = {model.event_by_id[e].label for e, _ in choice.options
+                     if model.event_by_id[e].repair.label.startswith("Replace the compressor (")}
+            assert all(any(p in t for t in compressor) for p in parts)
+            # The last entry is a part with a chance below 10 %: it asks first; n goes back.
+            p_of = {s.id: s.p for s in state.suspects}
+            unlikely = choice.options[-1][0]
+            assert p_of.get(unlikely, 0.0) < 0.10
+            await pilot.press("end", "enter")
+            await pilot.pause()
+            assert isinstance(app.screen, ConfirmScreen)
+            assert state.isolated.label in flat(screen_text(app))
+            await pilot.press("n")
+            await settle(app, pilot)
+            assert isinstance(app.screen, MainScreen) and app.state.repairs == ()
+            # y records it.
+            await pilot.press("r")
+            await pilot.pause()
+            await pilot.press("end", "enter")
+            await pilot.pause()
+            await pilot.press("y")
+            await settle(app, pilot)
+            assert app.state.repairs == (unlikely,)
+            # The repaired part leaves the suspects and shows under the findings.
+            suspects_text = str(app.screen.query_one("#suspects-text").render()) if isinstance(
+                app.screen, MainScreen) else ""
+            assert model.label_of(unlikely) not in suspects_text
+            await pilot.press("escape")
+            await pilot.pause()
+            findings_text = str(app.screen.query_one("#findings-text").render())
+            assert "repaired: " + model.label_of(unlikely) in findings_text
+            assert model.label_of(unlikely) not in str(app.screen.query_one("#suspects-text").render())
+            await pilot.press("q")
+        return app.return_code
+
+    assert run(scenario()) == 0
+    replay_ok(log)
+
+
+def test_start_screen_fields_go_to_the_log_and_the_summary(tmp_path):
+    app, log = new_app(tmp_path, "rooftop", job={"site": "Roof C"})
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await settle(app, pilot)
+            assert isinstance(app.screen, StartScreen)
+            assert app.screen.query_one("#job-site").value == "Roof C"  # given on the command line
+            app.screen.query_one("#job-technician").focus()
+            await pilot.press(*"Kim Lee", "tab", *"SN-88")
+            app.screen.query_one("#symptoms").focus()
+            await pilot.press("b")
+            await settle(app, pilot)
+            assert isinstance(app.screen, MainScreen)
+            await pilot.press("q")
+        return app.return_code
+
+    assert run(scenario()) == 0
+    assert app.session.actions[0].to_record() == {"action": "job", "technician": "Kim Lee", "unit": "SN-88"}
+    text = summary_path(log).read_text(encoding="utf-8")
+    assert "**Technician:** Kim Lee" in text and "**Unit (serial or tag):** SN-88" in text
+    assert "**Site:** Roof C" in text
+    replay_ok(log)
+
+
+def test_every_key_is_in_the_help():
+    from troubleshoot.ui.screens import HELP_TEXT
+
+    names = {"question_mark": "?", "escape": "esc", "minus": "-", "ctrl+c": "Ctrl+C", "ctrl+q": "Ctrl+Q",
+             "ctrl+t": "Ctrl+T"}
+    for owner in (TroubleshootApp, StartScreen, MainScreen, CheckScreen):
+        for binding in owner.BINDINGS:
+            key = names.get(binding.key, binding.key)
+            assert f"`{key}`" in HELP_TEXT or f"| {key} |" in HELP_TEXT, (owner.__name__, binding.key)
+    assert "`1`, `2`" in HELP_TEXT  # the outcome keys, named on the card
+
+
 @pytest.mark.parametrize("demo, check_id", [("rooftop", "suction_pressure"), ("booster", "pt_vs_gauge"),
                                            ("booster", "p1_hydraulic")])
 def test_three_outcome_check_keys_are_named_in_the_footer_and_card(tmp_path, demo, check_id):
@@ -571,7 +761,7 @@ def test_three_outcome_check_keys_are_named_in_the_footer_and_card(tmp_path, dem
             await pilot.press("b")
             await settle(app, pilot)
             await pilot.press("home")
-            index = next(i for i, r in enumerate(app.state.ranking) if r.check == check_id)
+            index = rows(app).index(check_id)  # the rows as the screen lists them
             await pilot.press(*["down"] * index, "enter")
             await pilot.pause()
             screen = app.screen

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 from collections import Counter
+from troubleshoot.analysis.observability import observability_warnings
 from troubleshoot.model.demos import DEMOS
 from troubleshoot.model import Model
 from troubleshoot.model.source import model_path
@@ -70,6 +71,7 @@ def escalation_line(model: Model) -> str:
 def run(args) -> int:
     path = model_path(args.model)  # a missing or unreadable file is the loader's to report, with its words
     model, warnings = load_model_with_warnings(path)
+    warnings = list(warnings) + observability_warnings(model)
     facts = summary(model)
     if args.json:
         facts["warnings"] = [str(w) for w in warnings]

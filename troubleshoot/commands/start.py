@@ -35,7 +35,17 @@ def add_parser(subparsers, name):
                              "(a probability, 0 < P <= 1); default: the model's")
     parser.add_argument("--plain", action="store_true", help="read commands line by line instead of "
                         "opening the terminal UI (the default when not at a terminal)")
+    job = parser.add_argument_group("the record (optional; logged in the header and shown in the summary)")
+    job.add_argument("--technician", metavar="NAME", help="who does the diagnosis")
+    job.add_argument("--unit", metavar="SERIAL", help="the unit's serial number or tag")
+    job.add_argument("--site", metavar="SITE", help="where the unit is")
+    job.add_argument("--work-order", metavar="NUMBER", dest="work_order", help="the work order")
     return parser
+
+
+def job_of(args) -> dict:
+    """The job fields given on the command line (None for those not given)."""
+    return {key: getattr(args, key, None) for key in ("technician", "unit", "site", "work_order")}
 
 
 def run(args) -> int:
@@ -46,7 +56,7 @@ def run(args) -> int:
         raise SessionError(f"--threshold must be a probability above 0 and at most 1, not {args.threshold:g}; "
                            "for example --threshold 0.9")
     path = resolve_model_path(args.model or DEFAULT_DEMO)
-    session = new_session(str(path), log_path=args.log, isolation_threshold=args.threshold)
+    session = new_session(str(path), log_path=args.log, isolation_threshold=args.threshold, job=job_of(args))
     if not args.plain and sys.stdin.isatty() and sys.stdout.isatty():
         from troubleshoot.ui.app import run_app
 

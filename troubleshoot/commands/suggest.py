@@ -117,7 +117,7 @@ def _finite(x):
 
 def suggestion_json(session: Session, model_spec: str) -> dict:
     """The ``suggest --json`` document (see docs/suggest-contract.md)."""
-    state = session.state
+    state = session.explained_state()
     model = session.model
     explanation = session.explanation
     return {
@@ -136,6 +136,7 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
             for r in state.ranking
         ],
         "next_check": state.next_check.check if state.next_check else None,
+        "why": state.why.to_dict() if state.why is not None else None,
         "explanation": {"failed": list(explanation.failed), "p": explanation.p, "exact": explanation.exact},
         "isolated": state.isolated.id if state.isolated else None,
         "ambiguity_group": [s.id for s in state.ambiguity_group] if state.ambiguity_group is not None else None,
@@ -160,8 +161,17 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
 
 
 def render_text(session: Session) -> str:
-    """The readable table: ranking, suspects, explanation, status (:func:`troubleshoot.session.render.render_state`)."""
-    return render_state(session.model, session.state, session.explanation, engine_name=session.engine.name)
+    """The readable table: ranking, suspects, explanation, status (:func:`troubleshoot.session.render.render_state`),
+    then why the next check is recommended."""
+    text = render_state(session.model, session.state, session.explanation, engine_name=session.engine.name)
+    why = session.explained_state().why
+    if why is None:
+        return text
+    lines = [f"Why: {why.text}"]
+    for shift in why.suspects:
+        after = ", ".join(f"if {o}: {p:.3f}" if p is not None else f"if {o}: impossible" for o, p in shift.p_if)
+        lines.append(f"  {shift.id}: now {shift.p_now:.3f}; {after}")
+    return text + "\n".join(lines) + "\n"
 
 
 def run(args) -> int:

@@ -9,6 +9,7 @@ _SHAPES = {ROOT: "ellipse", GATE: "box", AUX: "box", CHECK: "diamond", CHECK_AUX
 
 
 def _quote(text: str) -> str:
+    """A DOT quoted string: backslashes and quotes escaped, a line break written as DOT's ``\\n``."""
     return '"' + text.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n") + '"'
 
 
@@ -19,11 +20,11 @@ def network_to_dot(network: Network) -> str:
     for node, data in network.graph.nodes(data=True):
         label = data.get("label") or node
         if node in model.gate_by_id:
-            label = f"{label}\\n{model.gate_by_id[node].kind.upper()}"
+            label = f"{label}\n{model.gate_by_id[node].kind.upper()}"
         elif data["role"] == ROOT:
-            label = f"{label}\\np = {model.prior_of(node):.3g}"
+            label = f"{label}\np = {model.prior_of(node):.3g}"
         elif data["role"] == CHECK:  # its outcomes, normal first, so a graded reading shows its scale
-            label = f"{label}\\n{' | '.join(data['states'])}"
+            label = f"{label}\n{' | '.join(data['states'])}"
         style = ', style=dashed' if data["role"] in (AUX, CHECK_AUX) else ""
         lines.append(f"  {_quote(node)} [label={_quote(label)}, shape={_SHAPES[data['role']]}{style}];")
     for a, b in network.graph.edges:

@@ -22,6 +22,7 @@ class                      log record ``action``    line-mode text
 :class:`AcknowledgeCaution`  ``acknowledge``        ``ack CHECK``
 :class:`Undo`              ``undo``                 ``undo``
 :class:`Resume`            ``resume``               (written by ``resume`` itself)
+:class:`JobDetails`        ``job``                  (typed on the start screen)
 =========================  =======================  ==============================
 
 An outcome is given by name (as the model spells it, case and spaces
@@ -176,13 +177,30 @@ class Resume(Action):
     kind: ClassVar[str] = "resume"
 
 
+@dataclass(frozen=True)
+class JobDetails(Action):
+    """Who does the diagnosis, on which unit, where, for which work order (any may be missing).
+
+    Given on the command line they go to the log's header; typed later (the
+    start screen of the terminal UI) they are logged as this action.
+    """
+
+    technician: str | None = None
+    unit: str | None = None
+    site: str | None = None
+    work_order: str | None = None
+    kind: ClassVar[str] = "job"
+    FIELDS: ClassVar[tuple[str, ...]] = ("technician", "unit", "site", "work_order")
+
+
 ACTION_TYPES: dict[str, type[Action]] = {
     cls.kind: cls for cls in (RecordFinding, CorrectFinding, RetractFinding, SkipCheck, UnskipCheck,
-                              RecordRepair, RecordVerification, AddNote, AcknowledgeCaution, Undo, Resume)
+                              RecordRepair, RecordVerification, AddNote, AcknowledgeCaution, Undo, Resume,
+                              JobDetails)
 }
 
 #: Actions that change neither the findings nor the posterior and are not taken back by undo.
-EVENTS = (AcknowledgeCaution, Resume)
+EVENTS = (AcknowledgeCaution, Resume, JobDetails)
 
 
 # ---------------------------------------------------------------------- records
@@ -195,7 +213,7 @@ def _field_type_ok(name: str, value: Any) -> bool:
         return isinstance(value, (str, int)) and not isinstance(value, bool)
     if name == "epoch":
         return value is None or (isinstance(value, int) and not isinstance(value, bool) and value >= 0)
-    if name in ("caution", "model_path", "tool_version"):
+    if name in ("caution", "model_path", "tool_version", "technician", "unit", "site", "work_order"):
         return value is None or isinstance(value, str)
     if name == "model_sha256":
         return value is None or (isinstance(value, str) and re.fullmatch(r"[0-9a-f]{64}", value) is not None)
@@ -209,6 +227,7 @@ _FIELD_WORDS = {
     "outcome": "an outcome name (text) or number", "epoch": "a whole number of repairs, 0 or more",
     "caution": "text", "model_path": "a path (text)", "tool_version": "text",
     "model_sha256": "64 lowercase hexadecimal digits", "model_changed": "true or false",
+    "technician": "text", "unit": "text", "site": "text", "work_order": "text",
 }
 
 
@@ -284,6 +303,8 @@ def describe(action: Action | dict) -> str:
         return f"acknowledge the caution of {action.check}"
     if isinstance(action, Resume):
         return "resume" + (" under a changed model" if action.model_changed else "")
+    if isinstance(action, JobDetails):
+        return "job details"
     return action.kind
 
 

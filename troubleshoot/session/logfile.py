@@ -66,6 +66,8 @@ LOG_FORMAT_VERSION = 2
 READABLE_VERSIONS = (1, 2)
 #: Rows of the ranking and of the suspects written per action.
 LOGGED_ROWS = 10
+#: The job fields a log header may carry (who, which unit, where, which work order).
+JOB_KEYS = ("technician", "unit", "site", "work_order")
 #: A log larger than this is refused (a long session writes well under 10 MB).
 LOG_MAX_BYTES = 64 * 1024 * 1024
 #: The keys of the state shown after each action, as the log keeps it.
@@ -130,6 +132,7 @@ def header_record(session: Session, version: int = LOG_FORMAT_VERSION) -> dict:
             "value_depth": session.settings.value_depth,
         },
         "time": utc_now(),
+        "job": dict(getattr(session, "job", None) or {}),
         **snapshot(session.view),
     }
 
@@ -282,7 +285,8 @@ def _load_model(model_or_path) -> tuple[Model, str | None]:
 
 def new_session(model_or_path, log_path: str | os.PathLike | None = None, *,
                 isolation_threshold: float | None = None, min_bits: float | None = None,
-                group_min_p: float | None = None, write_log: bool = True) -> Session:
+                group_min_p: float | None = None, write_log: bool = True,
+                job: dict | None = None) -> Session:
     """Start a session on a model (a Model, a model file path or a demo name) and open its log.
 
     Parameters
@@ -295,6 +299,10 @@ def new_session(model_or_path, log_path: str | os.PathLike | None = None, *,
         Override the model's isolation threshold and the defaults.
     write_log : bool
         False: no log at all (a one-shot query).
+    job : dict, optional
+        Who and what the session is for: ``technician``, ``unit`` (serial or
+        tag), ``site``, ``work_order`` (empty ones are left out); written in
+        the log header and the summary.
 
     Returns
     -------
@@ -304,6 +312,7 @@ def new_session(model_or_path, log_path: str | os.PathLike | None = None, *,
     model, model_path = _load_model(model_or_path)
     settings = settings_for(model, isolation_threshold, min_bits, group_min_p)
     session = Session(model, settings, model_path=model_path)
+    session.job = clean_job(job)
     if write_log:
         path, fd = create_log_file(log_path)
         writer = LogWriter(path, fd)
@@ -314,6 +323,25 @@ def new_session(model_or_path, log_path: str | os.PathLike | None = None, *,
             raise
         session.log = writer
     return session
+
+
+def clean_job(job: dict | None) -> dict:
+    """The job fields given (technician, unit, site, work_order), stripped, empty ones left out."""
+    out = {}
+    for key in JOB_KEYS:
+        value = (job or {}).get(key)
+        if value is not None and str(value).strip():
+            out[key] = str(value).strip()
+    return out
+
+
+def job_of(contents: LogContents) -> dict:
+    """The job fields of a log: its header's, updated by any ``job`` line (typed after the start)."""
+    job = clean_job(contents.header.get("job"))
+    for line in contents.actions:
+        if line.record["action"].get("action") == "job":
+            job.update(clean_job(line.record["action"]))
+    return job
 
 
 # ---------------------------------------------------------------------- reading
@@ -682,6 +710,7 @@ def resume_session(log_path: str | os.PathLike, model: Model | None = None, *,
     session.resume_warnings = contents.warnings + report.messages
     if changed:
         session.resume_warnings.append(f"{path}: continuing under a changed model: {used_path}; the log says so")
+    session.job = job_of(contents)
     session.record_resume(Resume(used_path, sha, changed, __version__))
     return session
 

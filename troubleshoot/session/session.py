@@ -58,6 +58,7 @@ from troubleshoot.advice.diagnosis import (
     most_probable_explanation,
     suspects,
 )
+from troubleshoot.advice.explain import Why, explain_check
 from troubleshoot.advice.policy import (
     DEFAULT_GROUP_MIN_P,
     DEFAULT_MIN_BITS,
@@ -66,7 +67,9 @@ from troubleshoot.advice.policy import (
     Decision,
     OutsideModel,
     Status,
+    cost_of_check_then,
     decide,
+    finish_plan,
 )
 from troubleshoot.advice.policy import Settings as SessionSettings
 from troubleshoot.advice.policy import settings_for
@@ -84,6 +87,7 @@ from troubleshoot.errors import SessionError
 from troubleshoot.model import DERIVED, Model
 from troubleshoot.session.actions import (
     EVENTS,
+    JobDetails,
     AcknowledgeCaution,
     Action,
     AddNote,
@@ -190,6 +194,9 @@ class SessionState:
     epoch : int
         Repairs made so far.
     settings : SessionSettings
+    why : Why or None
+        Why the recommended check is worth doing (only from
+        :meth:`Session.explained_state`; None when no check is recommended).
     decision : Decision or None
         What to do next, its expected cost, the alternatives weighed and why
         (:func:`troubleshoot.advice.policy.decide`).
@@ -218,6 +225,7 @@ class SessionState:
     cautions: tuple[str, ...]
     epoch: int
     settings: SessionSettings
+    why: Why | None = None
     decision: Decision | None = None
     outside_model_p: float = 0.0
     outside_model_by_gate: tuple[tuple[str, float], ...] = ()
@@ -343,6 +351,26 @@ class SessionView:
     @cached_property
     def repair_order(self) -> tuple[RepairStep, ...]:
         return repair_order(self.model, self.group)
+
+    @cached_property
+    def why(self) -> Why | None:
+        """Why the recommended check is worth doing (None when no check is recommended).
+
+        The two costs are the decision's: doing the check then finishing, and
+        finishing at once (repairs in order, or escalating when cheaper).
+        """
+        decision = self.decision
+        row = decision.check
+        if row is None:
+            return None
+        costs = dict(decision.reasons[0].costs) if decision.reasons else {}
+        now = costs.get("finish without checking")
+        if now is None:
+            now = finish_plan(self.model, self.suspects, self.settings).best
+        first = decision.expected_cost
+        if first is None or not math.isfinite(first):
+            first = cost_of_check_then(self.engine, self.posterior, row, self.candidates, 1, self.settings)
+        return explain_check(self.engine, self.posterior, row, first, now)
 
     @cached_property
     def cost_spent(self) -> float:
@@ -490,6 +518,7 @@ class Session:
         self._history: list[SessionView] = []
         self.actions: list[Action] = []  # committed actions, in order (undo, acknowledgements, resumes included)
         self.resume_warnings: list[str] = []  # set by resume_session
+        self.job: dict = {}  # technician, unit, site, work_order (set by new_session / resume_session)
 
     # ------------------------------------------------------------------ reading
 
@@ -502,6 +531,10 @@ class Session:
     def state(self) -> SessionState:
         """The current state as plain data."""
         return self._view.state()
+
+    def explained_state(self) -> SessionState:
+        """The current state with :attr:`SessionState.why` filled in (a few more propagations)."""
+        return replace(self._view.state(), why=self._view.why)
 
     @property
     def status(self) -> str:
@@ -683,6 +716,24 @@ class Session:
             raise SessionError(f"check {check_id!r} has no safety caution to acknowledge")
         return self._event(AcknowledgeCaution(check_id, caution))
 
+    def record_job(self, job: dict) -> SessionState:
+        """Record who, which unit, where and which work order, given after the log's header was written.
+
+        ``job`` holds any of ``technician``, ``unit``, ``site``, ``work_order``
+        (empty ones are left out); :attr:`job` is updated. Logged, shown in the
+        summary, not taken back by undo.
+        """
+        details = {k: str(v).strip() for k, v in (job or {}).items()
+                   if k in JobDetails.FIELDS and v is not None and str(v).strip()}
+        unknown = sorted(set(job or {}) - set(JobDetails.FIELDS))
+        if unknown:
+            raise SessionError(f"unknown job field(s) {', '.join(unknown)}; known: {', '.join(JobDetails.FIELDS)}")
+        if not details:
+            raise SessionError("give at least one of the technician, the unit, the site or the work order")
+        state = self._event(JobDetails(**details))
+        self.job = {**self.job, **details}
+        return state
+
     def record_resume(self, resume: Resume) -> SessionState:
         """Record that the session was continued from its log (see :func:`~troubleshoot.session.logfile.resume_session`)."""
         return self._event(resume)
@@ -720,6 +771,8 @@ class Session:
                 return self.undo()
             case Resume():
                 return self.record_resume(action)
+            case JobDetails():
+                return self.record_job({k: v for k, v in action.to_record().items() if k != "action"})
         raise SessionError(f"not an action this session knows: {action!r}")
 
     def close(self) -> None:

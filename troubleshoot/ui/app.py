@@ -25,7 +25,7 @@ from textual.binding import Binding
 from textual.notifications import SeverityLevel
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.session.summary import summary_markdown, summary_path
+from troubleshoot.session.summary import parse_time, summary_markdown, write_summary
 from troubleshoot.ui.screens import (
     CheckCard,
     CheckScreen,
@@ -50,8 +50,7 @@ def _log_start_time(path: Path | None) -> _dt.datetime | None:
     try:
         with open(path, encoding="utf-8") as handle:
             header = json.loads(handle.readline())
-        stamp = str(header["time"]).rstrip("Z")
-        return _dt.datetime.fromisoformat(stamp).replace(tzinfo=_dt.UTC)
+        return parse_time(header["time"])
     except (OSError, ValueError, KeyError, TypeError):
         return None
 
@@ -74,6 +73,8 @@ class TroubleshootApp(App[int]):
     BINDINGS = [
         Binding("ctrl+t", "toggle_theme", "Light/dark", show=False),
         Binding("ctrl+q", "quit_session", "Quit", show=False, priority=True),
+        # Ctrl+C quits as safely as q: every action is already in the log.
+        Binding("ctrl+c", "quit_session", "Quit", show=False, priority=True),
     ]
 
     def __init__(self, session, fresh: bool | None = None) -> None:
@@ -81,7 +82,9 @@ class TroubleshootApp(App[int]):
         self.session = session
         self.fresh = (not session.actions) if fresh is None else fresh
         self.state = None
+        self.show_figures = False  # bits, scores and entropy: one key away (f)
         self.busy = False
+        self.quit_pending = False
         self.messages: list[str] = []  # every message shown, newest last (the screen shows them as toasts)
         self.log_path = log_path_of(session)
         self.started = _log_start_time(self.log_path) or _dt.datetime.now(_dt.UTC)
@@ -134,7 +137,7 @@ class TroubleshootApp(App[int]):
             try:
                 if action is not None:
                     action()
-                state = self.session.state  # computed here, off the screen's thread
+                state = self.session.explained_state()  # computed here, off the screen's thread
             except TroubleshootError as exc:
                 error = "\n".join(exc.lines())
             except Exception as exc:  # an unexpected failure must not kill the screen
@@ -145,6 +148,11 @@ class TroubleshootApp(App[int]):
 
     def _performed(self, what, state, error, then, done) -> None:
         self.busy = False
+        if self.quit_pending:
+            if state is not None:
+                self.state = state
+            self.action_quit_session()
+            return
         before = self.state.status if self.state is not None else None
         if state is not None:
             self.state = state
@@ -158,7 +166,7 @@ class TroubleshootApp(App[int]):
         if done:
             self.say(done)
         if then is not None:
-            then()
+            self.call_after_refresh(then)  # after a dialog dismissed just before is gone
         if self.state is not None and self.state.status == "confirmed" and before != "confirmed":
             self.show_summary()
 
@@ -167,11 +175,20 @@ class TroubleshootApp(App[int]):
         if main is not None and main.is_mounted:
             main.show_busy()
 
-    def begin_diagnosis(self, observations: list[tuple[str, int]]) -> None:
-        """Record the symptoms marked on the start screen (all or none), then open the main screen."""
+    def begin_diagnosis(self, observations: list[tuple[str, int]], job: dict | None = None) -> None:
+        """Record the symptoms marked on the start screen (all or none), then open the main screen.
+
+        ``job`` holds the technician, unit, site and work order typed on the
+        start screen; they are logged (the header holds those given on the
+        command line) and go to the summary.
+        """
         session = self.session
+        # Only what was typed or changed here: the header already holds the command line's fields.
+        job = {k: v.strip() for k, v in (job or {}).items() if v and v.strip() and session.job.get(k) != v.strip()}
 
         def record_all() -> None:
+            if job:  # the header is written already: the job typed here is logged as its own line
+                session.record_job(job)
             recorded = 0
             try:
                 for symptom_id, outcome in observations:
@@ -233,29 +250,37 @@ class TroubleshootApp(App[int]):
         """Write the summary beside the log (LOG with suffix .md); None without a log."""
         if self.log_path is None or self.state is None:
             return None
-        path = summary_path(self.log_path)
-        text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
-                                _dt.datetime.now(_dt.UTC))
         try:
-            path.write_text(text, encoding="utf-8")
-        except OSError as exc:
-            self.say(f"Cannot write the summary {path}: {exc.strerror}", "error")
+            path = write_summary(self.session, _dt.datetime.now(_dt.UTC))
+        except (OSError, TroubleshootError) as exc:
+            self.say(f"Cannot write the summary beside {self.log_path}: {exc}", "error")
+            return None
+        except Exception as exc:  # never lose the end of a session to a fault in the summary
+            self.say(f"Cannot write the summary beside {self.log_path}: unexpected "
+                     f"{exc.__class__.__name__}: {exc}", "error")
             return None
         self.summary_written = path
         return path
 
     def show_summary(self) -> None:
         path = self.write_summary()
-        text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
-                                _dt.datetime.now(_dt.UTC))
         if path is not None:
-            text += f"\nThis summary is also written to `{path}`.\n"
-        self.push_screen(SummaryScreen(text))
+            text = path.read_text(encoding="utf-8") + f"\nThis summary is also written to `{path}`.\n"
+        else:
+            text = summary_markdown(self.session.model, self.state, self.log_path, self.started,
+                                    _dt.datetime.now(_dt.UTC), job=self.session.job)
+        # After the next refresh: a dialog dismissed just before (the verification) is gone by then,
+        # so its pop never takes this screen off instead.
+        self.call_after_refresh(self.push_screen, SummaryScreen(text))
 
     def action_quit_session(self) -> None:
-        """Quit: every action is already in the log; the summary is brought up to date."""
+        """Quit: every action is already in the log; the summary is brought up to date.
+
+        While an action is being worked out, the quit waits for it to be saved.
+        """
         if self.busy:
-            self.say("Still working on the last action; quit again in a moment.", "warning")
+            self.quit_pending = True
+            self.say("Quitting as soon as the current action is saved.", "warning")
             return
         self.write_summary()
         self.exit(0)

@@ -12,7 +12,6 @@ the end of input) the Markdown summary is written beside the log.
 from __future__ import annotations
 
 import datetime as _dt
-import json
 import sys
 from pathlib import Path
 
@@ -39,35 +38,17 @@ def perform(session, line: str, out=None) -> bool:
     return True
 
 
-def _started(session) -> _dt.datetime | None:
-    path = getattr(getattr(session, "log", None), "path", None)
-    if path is None:
-        return None
-    try:
-        with open(path, encoding="utf-8") as handle:
-            stamp = str(json.loads(handle.readline())["time"]).rstrip("Z")
-        return _dt.datetime.fromisoformat(stamp).replace(tzinfo=_dt.UTC)
-    except (OSError, ValueError, KeyError, TypeError):
-        return None
-
-
 def write_summary(session) -> Path | None:
-    """Write the Markdown summary beside the session's log; None without a log.
+    """Write the Markdown summary beside the session's log (:func:`troubleshoot.session.summary.write_summary`).
 
     Raises
     ------
     OutputError
         The summary path is refused or cannot be written.
     """
-    from troubleshoot.files import write_output
-    from troubleshoot.session.summary import summary_markdown, summary_path
+    from troubleshoot.session.summary import write_summary as write
 
-    log_path = getattr(getattr(session, "log", None), "path", None)
-    if log_path is None:
-        return None
-    text = summary_markdown(session.model, session.state, log_path, _started(session),
-                            _dt.datetime.now(_dt.UTC))
-    return write_output(summary_path(log_path), text.encode("utf-8"), "session summary")
+    return write(session, _dt.datetime.now(_dt.UTC))
 
 
 def interact(session, stdin=None, stdout=None) -> None:

@@ -14,8 +14,8 @@ from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
-from textual.screen import ModalScreen, Screen
 from textual.coordinate import Coordinate
+from textual.screen import ModalScreen, Screen
 from textual.widgets import DataTable, Footer, Input, Markdown, OptionList, Static
 from textual.widgets.option_list import Option
 
@@ -26,13 +26,18 @@ from troubleshoot.ui.widgets import (
     StatusBar,
     SuspectsPanel,
     bits_text,
+    checks_title,
     cost_text,
     outcome_odds_line,
     percent,
     truncate,
 )
 
-if TYPE_CHECKING:  # the app imports this module to build its screens
+#: Below this chance a repair asks for confirmation while another suspect stands isolated.
+LOW_REPAIR_P = 0.10
+
+if TYPE_CHECKING:  # the app imports this module to build its screens; the UI never imports the core
+    from troubleshoot.advice.explain import Why
     from troubleshoot.ui.app import TroubleshootApp
 
 #: Shown once at the start of every sitting (the start screen, or a notice when a session is resumed).
@@ -41,6 +46,10 @@ SAFETY_NOTICE = (
     "procedures, lockout/tagout, local codes or licensed practice. Make a check only if you are "
     "qualified for it and the equipment is made safe as its caution says."
 )
+
+#: The job fields of the start screen (optional, for the supervisor's record): key, placeholder.
+JOB_INPUTS = (("technician", "technician"), ("unit", "unit serial/tag"), ("site", "site"),
+              ("work_order", "work order"))
 
 #: Marks of a symptom on the start screen: what the technician saw, in words.
 SEEN, NOT_SEEN, NOT_LOOKED = "seen", "not seen", "not looked at"
@@ -60,6 +69,7 @@ class CheckCard:
     p_outcomes: tuple[float, ...] | None = None
     bits: float | None = None
     verification: bool = False
+    why: Why | None = None  # the session's Why, when this is the recommended check
 
 
 class StartScreen(Screen):
@@ -92,7 +102,12 @@ class StartScreen(Screen):
             table: DataTable[str] = DataTable(id="symptoms", cursor_type="row", zebra_stripes=True)
             table.border_title = "Symptoms: mark each one y seen, n not seen, - not looked at"
             yield table
-            yield Static("Press b to begin the diagnosis with these marks.", id="start-hint")
+            with Horizontal(id="job"):
+                job = getattr(self.tsapp.session, "job", None) or {}
+                for key, placeholder in JOB_INPUTS:
+                    yield Input(value=job.get(key, ""), placeholder=placeholder, id=f"job-{key}",
+                                classes="job-field")
+            yield Static("Optional for the record: Tab to the fields above. Press b to begin.", id="start-hint")
         yield Footer()
 
     def on_mount(self) -> None:
@@ -127,21 +142,39 @@ class StartScreen(Screen):
         """(symptom id, outcome index) for every symptom marked seen (abnormal) or not seen (normal)."""
         return [(sid, 1 if mark == SEEN else 0) for sid, mark in self.marks.items() if mark != NOT_LOOKED]
 
+    def job(self) -> dict:
+        """The job fields as typed (empty ones left out)."""
+        out = {}
+        for key, _ in JOB_INPUTS:
+            value = self.query_one(f"#job-{key}", Input).value.strip()
+            if value:
+                out[key] = value
+        return out
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        event.stop()
+        self.query_one("#symptoms", DataTable).focus()
+
     def action_begin(self) -> None:
-        self.tsapp.begin_diagnosis(self.observations())
+        self.tsapp.begin_diagnosis(self.observations(), self.job())
 
 
 class MainScreen(Screen):
-    """Ranked checks, suspects, uncertainty and findings, together; the keys act on the session."""
+    """Ranked checks, suspects and findings, together; the keys act on the session.
+
+    Every key has one meaning on this screen; the footer shows the common
+    ones and the help (?) lists them all.
+    """
 
     BINDINGS = [
         Binding("s", "skip", "Skip"),
+        Binding("k", "unskip", "Unskip", show=False),
         Binding("u", "undo", "Undo"),
         Binding("x", "retract", "Retract"),
         Binding("r", "repair", "Repair"),
         Binding("v", "verify", "Verify"),
-        Binding("n", "note", "Note"),
-        Binding("e", "escalate", "Escalate", show=False),  # offered in the diagnosis panel
+        Binding("m", "note", "Note"),
+        Binding("f", "figures", "Figures", show=False),
         Binding("question_mark", "help", "Help", key_display="?"),
         Binding("q", "app.quit_session", "Quit"),
     ]
@@ -164,15 +197,15 @@ class MainScreen(Screen):
             yield Static(id="check-detail")
         with Horizontal(id="lower"):
             suspects = SuspectsPanel(id="suspects")
-            suspects.border_title = "Suspects: P(failed)"
+            suspects.border_title = "Suspects: chance failed"
             yield suspects
             findings = FindingsPanel(id="findings")
-            findings.border_title = "Findings so far"
+            findings.border_title = "Findings and repairs"
             yield findings
         yield Footer()
 
     def on_mount(self) -> None:
-        self.query_one("#checks-panel").border_title = "Next checks, best first"
+        self.query_one("#checks-panel").border_title = "Checks"
         self.query_one("#checks", ChecksTable).focus()
         self.show_state()
 
@@ -180,52 +213,72 @@ class MainScreen(Screen):
         """Render the app's latest session state (nothing is computed here)."""
         app = self.tsapp
         state = app.state
-        self.query_one("#status", StatusBar).show(app.complaint, state, app.busy)
+        self.query_one("#status", StatusBar).show(app.complaint, state, app.busy, app.show_figures)
         if state is None:
             return
         self.query_one("#diagnosis", DiagnosisPanel).show(state)
-        self.query_one("#checks", ChecksTable).show(state, keep_cursor)
+        self.query_one("#checks-panel").border_title = checks_title(state)
+        self.query_one("#checks", ChecksTable).show(state, app.session.model, app.show_figures, keep_cursor)
         self.query_one("#suspects", SuspectsPanel).show(state.suspects)
         self.query_one("#findings", FindingsPanel).show(state, app.session.model)
         self._show_detail()
         self.refresh_bindings()
 
     def show_busy(self) -> None:
-        self.query_one("#status", StatusBar).show(self.tsapp.complaint, self.tsapp.state, self.tsapp.busy)
+        self.query_one("#status", StatusBar).show(self.tsapp.complaint, self.tsapp.state, self.tsapp.busy,
+                                                  self.tsapp.show_figures)
         self.query_one("#checks", ChecksTable).set_class(self.tsapp.busy, "-busy")
 
     def _show_detail(self) -> None:
+        """The whole name of the check under the cursor, and its outcomes (or why it was skipped)."""
         state = self.tsapp.state
         detail = self.query_one("#check-detail", Static)
-        check_id = self.query_one("#checks", ChecksTable).highlighted_check()
-        row = next((r for r in state.ranking if r.check == check_id), None) if state else None
+        table = self.query_one("#checks", ChecksTable)
+        check_id = table.highlighted_check()
+        if state is None:
+            detail.update("")
+            return
+        if check_id is None:
+            detail.update("No check is left to rank.")
+            return
+        model = self.tsapp.session.model
+        if check_id in table.skipped:
+            check = model.check_by_id[check_id]
+            detail.update(Text(f"{check.label}\n↷ skipped: {table.skipped[check_id]} — key k brings it back"))
+            return
+        row = next((r for r in state.ranking if r.check == check_id), None)
         if row is None:
-            detail.update("No check is left to rank." if state else "")
-        else:
-            detail.update(Text(outcome_odds_line(row), no_wrap=True, overflow="ellipsis"))
+            detail.update("")
+            return
+        detail.update(Text(f"{row.label}\n{outcome_odds_line(row)}"))
 
     def on_resize(self) -> None:
         self.show_state(keep_cursor=True)
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
         self._show_detail()
+        self.refresh_bindings()
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
         event.stop()
         self.action_open_check()
 
     def check_action(self, action: str, parameters) -> bool | None:
+        state = self.tsapp.state
         # The verify key is shown only while a repair awaits its verification.
         if action == "verify":
-            state = self.tsapp.state
             return state is not None and state.status == "awaiting-verification"
         return True
 
     def _highlighted_row(self):
         state = self.tsapp.state
-        check_id = self.query_one("#checks", ChecksTable).highlighted_check()
+        table = self.query_one("#checks", ChecksTable)
+        check_id = table.highlighted_check()
         if state is None or check_id is None:
             self.tsapp.say("No check is left to open.")
+            return None
+        if check_id in table.skipped:
+            self.tsapp.say("This check is skipped: key k brings it back first.")
             return None
         return next(r for r in state.ranking if r.check == check_id)
 
@@ -233,11 +286,13 @@ class MainScreen(Screen):
         row = self._highlighted_row()
         if row is None:
             return
+        state = self.tsapp.state
         model = self.tsapp.session.model
         check = model.check_by_id[row.check]
+        why = state.why if state is not None and state.why is not None and state.why.check == row.check else None
         card = CheckCard(row.check, row.label, row.cost, model.cost_unit, tuple(row.outcomes),
-                         check.instructions, row.caution, tuple(row.p_outcomes), row.bits)
-        self.tsapp.push_screen(CheckScreen(card), self._check_done)
+                         check.instructions, row.caution, tuple(row.p_outcomes), row.bits, why=why)
+        self.tsapp.push_screen(CheckScreen(card, self.tsapp.show_figures), self._check_done)
 
     def _check_done(self, result) -> None:
         if not result:
@@ -254,6 +309,20 @@ class MainScreen(Screen):
         row = self._highlighted_row()
         if row is not None:
             self._ask_skip_reason(row.check, row.label)
+
+    def action_unskip(self) -> None:
+        table = self.query_one("#checks", ChecksTable)
+        check_id = table.highlighted_check()
+        if check_id is None or check_id not in table.skipped:
+            self.tsapp.say("Move to a skipped check (listed dimmed at the end) to bring it back.")
+            return
+        label = self.tsapp.session.model.label_of(check_id)
+        self.tsapp.perform("bringing the check back", lambda: self.tsapp.session.unskip_check(check_id),
+                         done=f"Brought back: {label}")
+
+    def action_figures(self) -> None:
+        self.tsapp.show_figures = not self.tsapp.show_figures
+        self.show_state(keep_cursor=True)
 
     def _ask_skip_reason(self, check_id: str, label: str) -> None:
         def skip(reason: str | None) -> None:
@@ -286,12 +355,31 @@ class MainScreen(Screen):
             if verb == "retract":
                 self.tsapp.perform("retracting the finding",
                                  lambda: self.tsapp.session.retract_finding(target, epoch))
-            else:
-                view = next(v for v in state.findings if v.target == target and v.epoch == epoch)
+                return
+            view = next(v for v in state.findings if v.target == target and v.epoch == epoch)
+            outcomes = self._outcomes_of(view)
+            others = [(i, name) for i, name in enumerate(outcomes) if i != view.outcome_index]
+            if len(others) == 1:
                 self.tsapp.perform("correcting the finding",
-                                 lambda: self.tsapp.session.correct_finding(target, 1 - view.outcome_index, epoch))
+                                 lambda: self.tsapp.session.correct_finding(target, others[0][0], epoch))
+                return
+
+            def corrected(result) -> None:
+                if result:
+                    self.tsapp.perform("correcting the finding",
+                                     lambda: self.tsapp.session.correct_finding(target, result[1], epoch))
+
+            self.tsapp.push_screen(ChoiceScreen(f"Correct: {view.label} — it read", others, "Record"), corrected)
 
         self.tsapp.push_screen(FindingChoiceScreen(options), chosen)
+
+    def _outcomes_of(self, view) -> tuple[str, ...]:
+        model = self.tsapp.session.model
+        if view.target in model.check_by_id:
+            return tuple(model.check_by_id[view.target].outcomes)
+        if model.verification is not None:
+            return tuple(model.verification.outcomes)
+        return ("works", "still fails")
 
     def action_repair(self) -> None:
         state = self.tsapp.state
@@ -299,27 +387,52 @@ class MainScreen(Screen):
             return
         model = self.tsapp.session.model
         unit = model.cost_unit
-        options, listed = [], set()
+        p_of = {s.id: s.p for s in state.suspects}
+        entries = []  # (event id, repair label, part label, cost, p)
+        listed = set()
         for step in state.repair_order:
             if step.cost is None:
                 continue
             listed.add(step.id)
-            options.append((step.id, f"{step.repair_label} — {cost_text(step.cost, unit)} "
-                                     f"· P {percent(step.p)}"))
-        p_of = {s.id: s.p for s in state.suspects}
+            entries.append((step.id, step.repair_label, step.label, step.cost, step.p))
         for event in model.basic_events:
             if event.id in listed or event.repair is None or event.id in state.repairs:
                 continue
-            options.append((event.id, f"{event.repair.label} — {cost_text(event.repair.cost, unit)} "
-                                      f"· P {percent(p_of.get(event.id, 0.0))}"))
-        if not options:
+            entries.append((event.id, event.repair.label, event.label, event.repair.cost, p_of.get(event.id, 0.0)))
+        if not entries:
             self.tsapp.say("The model lists no repair left to record.")
             return
+        counts: dict[str, int] = {}
+        for _, repair_label, _, _, _ in entries:
+            counts[repair_label] = counts.get(repair_label, 0) + 1
+        options = []
+        for event_id, repair_label, part, cost, p in entries:
+            # Two repairs with the same words are told apart by the part they concern.
+            what = f"{repair_label} [{part}]" if counts[repair_label] > 1 else repair_label
+            options.append((event_id, f"{what} — {cost_text(cost, unit)} · chance {percent(p)}"))
+
+        def record(event_id: str) -> None:
+            self.tsapp.perform("recording the repair", lambda: self.tsapp.session.record_repair(event_id),
+                             then=self.tsapp.open_verification)
 
         def chosen(result) -> None:
-            if result:
-                self.tsapp.perform("recording the repair", lambda: self.tsapp.session.record_repair(result[1]),
-                                 then=self.tsapp.open_verification)
+            if not result:
+                return
+            event_id = result[1]
+            isolated = state.isolated
+            p = p_of.get(event_id, 0.0)
+            if isolated is not None and isolated.id != event_id and p < LOW_REPAIR_P:
+                question = (f"{isolated.label} stands isolated at {percent(isolated.p)}, and "
+                            f"{model.label_of(event_id)} has a chance of {percent(p)}. Record this repair anyway?")
+
+                def confirmed(yes: bool | None) -> None:
+                    if yes:
+                        record(event_id)
+
+                self.tsapp.push_screen(ConfirmScreen("Repair a part that is probably not at fault?", question),
+                                     confirmed)
+                return
+            record(event_id)
 
         self.tsapp.push_screen(ChoiceScreen("Record a repair (repair order first)", options, "Record"), chosen)
 
@@ -352,12 +465,18 @@ class MainScreen(Screen):
 
 
 class CheckScreen(ModalScreen):
-    """One check (or the verification): instructions, outcomes, and the caution to acknowledge first."""
+    """One check (or the verification): instructions, outcomes, and the caution to acknowledge first.
+
+    The outcome keys 1, 2, ... carry the outcome names in the footer. For the
+    recommended check the card also says why: the suspects it separates, each
+    with its chance now and after each outcome.
+    """
 
     BINDINGS = [
         Binding("a", "acknowledge", "Ack caution"),
         Binding("s", "skip", "Skip"),
         Binding("escape", "back", "Back", key_display="esc"),
+        Binding("q", "back", "Back", show=False),
     ]
 
     #: Footer columns the outcome keys share (80 less the other keys of this
@@ -369,9 +488,10 @@ class CheckScreen(ModalScreen):
         """The running application, typed as ours: its session, its state and its actions."""
         return cast("TroubleshootApp", self.app)
 
-    def __init__(self, card: CheckCard) -> None:
+    def __init__(self, card: CheckCard, figures: bool = False) -> None:
         super().__init__(id="check-screen")
         self.card = card
+        self.figures = figures
         self.acknowledged = card.caution is None
         # Keys 1..K, each named after its outcome in the footer (a key takes
         # its name plus four columns: the key, spaces and padding).
@@ -391,7 +511,7 @@ class CheckScreen(ModalScreen):
             title = "Verify the repair: " if card.verification else ""
             yield Static(Text(title + card.label, style="bold"), id="check-title")
             facts = f"Cost: {cost_text(card.cost, card.unit)}"
-            if card.bits is not None:
+            if card.bits is not None and self.figures:
                 facts += f" · expected information: {bits_text(card.bits)}"
             yield Static(facts, id="check-facts")
             if card.caution:  # first, so it is read before the instructions
@@ -400,10 +520,12 @@ class CheckScreen(ModalScreen):
                 yield Static(Text("How: " + card.instructions), id="check-instructions")
             lines = []
             for i, name in enumerate(card.outcomes):
-                odds = f"  (P {percent(card.p_outcomes[i])})" if card.p_outcomes else ""
+                odds = f"  (chance {percent(card.p_outcomes[i])})" if card.p_outcomes else ""
                 lines.append(f"  key {i + 1}: {name}{odds}")
             yield Static(Text("Outcomes:\n" + "\n".join(lines)), id="check-outcomes")
             yield Static(id="check-message")
+            if card.why is not None:  # below the message: scroll down to read it
+                yield Static(Text(why_card_text(card)), id="check-why")
         yield Footer()
 
     def on_mount(self) -> None:
@@ -452,6 +574,42 @@ class CheckScreen(ModalScreen):
     def message(self) -> str:
         """The message line as plain text (what a refusal says)."""
         return str(self.query_one("#check-message", Static).render())
+
+
+def why_card_text(card: CheckCard) -> str:
+    """Why this check: the reason, then each suspect it separates, its chance now and after each outcome."""
+    why = card.why
+    assert why is not None, "only the recommended check's card says why"
+    lines = [f"Why: {why.text}", "Suspects it separates (chance now → after each outcome):"]
+    for s in why.suspects:
+        after = " · ".join(f"{name}: {percent(p) if p is not None else 'impossible'}" for name, p in s.p_if)
+        lines.append(f"  {s.label}: {percent(s.p_now)} → {after}")
+    return "\n".join(lines)
+
+
+class ConfirmScreen(ModalScreen):
+    """A yes/no question; y confirms, n or Escape declines."""
+
+    BINDINGS = [
+        Binding("y", "answer(True)", "Yes"),
+        Binding("n", "answer(False)", "No"),
+        Binding("escape", "answer(False)", "No", show=False),
+    ]
+
+    def __init__(self, title: str, question: str) -> None:
+        super().__init__(classes="prompt-screen")
+        self.title_text = title
+        self.question = question
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="card"):
+            yield Static(Text(self.title_text, style="bold"))
+            yield Static(Text(self.question), id="confirm-question")
+            yield Static("y records it; n or Escape goes back.")
+        yield Footer()
+
+    def action_answer(self, yes: bool) -> None:
+        self.dismiss(yes)
 
 
 class PromptScreen(ModalScreen):
@@ -561,32 +719,47 @@ class FindingChoiceScreen(ChoiceScreen):
 HELP_TEXT = """\
 # Keys
 
-**Main screen**
+**Start screen**: `↑ ↓` move through the symptoms; `y` seen, `n` not seen,
+`-` not looked at; `Tab` goes to the optional fields for the record
+(technician, unit, site, work order); `b` begins; `q` quits.
+
+**Main screen** (one meaning per key)
 
 | Key | Does |
 |-----|------|
-| ↑ ↓ | move through the ranked checks |
-| ⏎ | open the highlighted check: how to do it, its outcomes, its caution |
+| ↑ ↓ | move through the checks; the line under the list shows the whole name |
+| ⏎ | open the highlighted check: how to do it, its outcomes, its caution, why |
 | s | skip the highlighted check (say why; the log keeps the reason) |
+| k | bring a skipped check back (skipped checks stay listed, dimmed, at the end) |
 | u | undo the last action |
 | x | retract a finding, or correct its outcome (c) |
 | r | record a repair (the repair order comes first) |
 | v | verify the last repair (shown while a repair awaits it) |
-| n | add a note to the log |
+| m | add a note to the log |
+| f | show or hide the figures: information in bits, scores, uncertainty |
 | ? | this help |
 | q | quit: every action is already saved in the log |
 
 **A check**: `a` acknowledges its safety caution (needed before an outcome),
-`1` and `2` enter its first or second outcome, `s` skips it, `esc` goes back.
+`1`, `2`, ... enter the outcome named beside the key, `s` skips it,
+`q` or `esc` goes back without entering anything.
 
-# The numbers
+**Anywhere**: `Ctrl+C` and `Ctrl+Q` quit as safely as `q` (the log is already
+saved and the summary is brought up to date); `Ctrl+T` switches between a
+light and a dark theme.
 
+# The words and numbers
+
+- **First row**: the recommended check; the line "Why" says what it is expected to save.
 - **Cost**: what a check or repair takes, in the model's cost unit.
-- **Info**: the information the check is expected to give about the faults, in bits.
-- **Score**: bits per cost unit; the list is sorted by it. A free informative check reads ∞.
-- **Odds n/abn**: the chance of the normal and the abnormal outcome, in percent.
-- **Suspects**: the probability that each fault is present, given the findings.
-- **Uncertainty**: what is still unknown about the faults, in bits; 0 bit means certain.
+- **Narrows**: how much the check is expected to narrow the suspects down
+  (a lot, well, somewhat, a little, not at all), against what is still unknown.
+- **Abnormal**: the chance that the check reads abnormal.
+- **Suspects**: the chance that each part has failed, given the findings;
+  a repaired part leaves the list and is shown under the findings.
+- With the figures shown (`f`): **Info**, the information the check is
+  expected to give in bits; **Score**, bits per cost unit (a free
+  informative check reads ∞); **uncertainty**, what is still unknown, in bits.
 
 ⚠ The suggestions do not replace the equipment maker's procedures,
 lockout/tagout, local codes or licensed practice.

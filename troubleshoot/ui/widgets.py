@@ -32,9 +32,6 @@ STATUS_WORDS = {
     "confirmed": "✔ REPAIR CONFIRMED",
 }
 
-#: Cells of the checks table other than the label (index, cost, bits, score, odds) plus padding.
-_CHECK_TABLE_FIXED_WIDTH = 54
-
 
 def percent(p: float) -> str:
     """A probability as a percentage with one decimal, e.g. ``62.1 %``; a tiny one as ``<0.1 %``."""
@@ -64,9 +61,29 @@ def score_text(score: float, unit: str) -> str:
     return f"{score:.3f} bit/{unit}"
 
 
-def odds_text(p_outcomes: tuple[float, ...]) -> str:
-    """Every outcome's probability in percent, normal first, e.g. ``42/58 %`` or ``60/25/15 %``."""
-    return "/".join(f"{p * 100:.0f}" for p in p_outcomes) + " %"
+def narrowing_words(bits: float, entropy_bits: float) -> str:
+    """How much a check is expected to narrow the suspects down, in words.
+
+    Measured against what is still unknown (the share of the remaining
+    uncertainty it is expected to remove): ``a lot`` (a quarter or more),
+    ``well`` (a tenth or more), ``somewhat`` (3 % or more), ``a little``
+    (less), ``not at all`` (nothing).
+    """
+    if bits <= 0.0:
+        return "not at all"
+    share = bits / entropy_bits if entropy_bits > 0 else 1.0
+    if share >= 0.25:
+        return "a lot"
+    if share >= 0.1:
+        return "well"
+    if share >= 0.03:
+        return "somewhat"
+    return "a little"
+
+
+def chance_abnormal(row) -> str:
+    """``58 % abnormal``-style text for a check: the chance of its abnormal outcome(s)."""
+    return percent(1.0 - row.p_outcomes[0])
 
 
 def bar(p: float, width: int = 8) -> str:
@@ -88,9 +105,9 @@ def truncate(text: str, width: int) -> str:
 
 
 def outcome_odds_line(row) -> str:
-    """``Outcomes: <normal> 42.2 % · <abnormal> 57.8 %`` for one ranking row."""
+    """``Chance of each outcome: <normal> 42.2 % · <abnormal> 57.8 %`` for one ranking row."""
     parts = [f"{name} {percent(p)}" for name, p in zip(row.outcomes, row.p_outcomes)]
-    line = "Outcomes: " + " · ".join(parts)
+    line = "Chance of each outcome: " + " · ".join(parts)
     if row.caution:
         line += "  ⚠ has a safety caution"
     return line
@@ -147,48 +164,58 @@ def repair_order_lines(state, limit: int | None = None) -> list[str]:
     return lines
 
 
-def escalation_lines(state) -> list[str]:
-    """The policy's word on handing the unit over: the reason and the price, when it says so."""
-    d = getattr(state, "decision", None)
-    lines = []
-    if d is not None and d.action == "escalate":
-        price = (f" ({cost_text(d.expected_cost, state.cost_unit)})" if d.expected_cost is not None else "")
-        lines.append(f"HAND THE UNIT OVER{price}: {d.reasons[0].text if d.reasons else ''}. Key e records it.")
-    elif getattr(state, "outside_model_p", 0.0) >= 0.05:
-        lines.append(f"Cause outside the model: P {percent(state.outside_model_p)} (key e hands the unit over).")
-    return lines
+def why_line(state) -> str:
+    """One line saying what to do next and why, in the technician's words, from the policy's decision."""
+    unit = state.cost_unit
+    decision = state.decision
+    if state.status == "diagnosing":
+        if state.why is not None:
+            return state.why.text
+        nxt = state.next_check
+        return f"next: {nxt.label} ({cost_text(nxt.cost, unit)})" if nxt is not None else ""
+    if state.status == "awaiting-verification":
+        v = state.verification
+        return f"check that the repair worked: {v.label} ({cost_text(v.cost, unit)})"
+    if state.status == "confirmed":
+        return "the unit works: the repair is confirmed"
+    if decision is not None and decision.action == "escalate":
+        reason = decision.reasons[0] if decision.reasons else None
+        if reason is None or reason.kind == "outside-model":
+            return (f"the cause is probably outside this model ({percent(state.outside_model_p)}): "
+                    "no listed repair is expected to help; hand the unit over")
+        return reason.text
+    target = decision.target if decision is not None and decision.action == "repair" else None
+    step = next((r for r in state.repair_order if r.id == target), None) if target else None
+    if step is None:
+        step = next((r for r in state.repair_order if r.cost is not None), None)
+    if step is None:
+        return "no check is worth its time now and the model lists no repair: hand the unit over"
+    job = f"{step.repair_label} ({cost_text(step.cost, unit)})"
+    if state.status == "isolated" and state.isolated is not None and state.isolated.id == step.id:
+        return f"{step.label} stands at {percent(step.p)}: repair it — {job}"
+    finish = ""
+    if decision is not None and decision.expected_cost is not None:
+        finish = f"; expected {cost_text(round(decision.expected_cost), unit)} to finish"
+    return f"no check is worth its time now: repair {step.label} ({percent(step.p)}) first — {job}{finish}"
 
 
 def diagnosis_text(state) -> str:
-    """What the diagnosis says now, in words, with what to do next."""
-    text = _diagnosis_text(state)
-    extra = escalation_lines(state)
-    return "\n".join(extra + [text]) if extra else text
-
-
-def _diagnosis_text(state) -> str:
-    unit = state.cost_unit
+    """What the diagnosis says now, in words: the status, what to do next and why."""
     word = STATUS_WORDS.get(state.status, state.status)
     if state.status == "diagnosing":
         nxt = state.next_check
         if nxt is None:
             return f"{word} — no check is left; record a repair (key r)."
-        return (f"{word} — next check: {nxt.label} ({cost_text(nxt.cost, unit)}, {bits_text(nxt.bits)}). "
-                "Enter opens the highlighted check.")
+        # A non-breaking space keeps each percentage whole when the line wraps.
+        return f"Do the first check. Why: {why_line(state)}".replace(" %", "\u00a0%")
     if state.status == "isolated":
-        s = state.isolated
-        lines = [f"{word}: {s.label} — P {percent(s.p)}. Repair order (key r records a repair):"]
+        return f"{word} — {why_line(state)}. Key r records the repair."
+    if state.status == "ambiguity":
+        lines = [f"{word} — {why_line(state)}. Repair order (key r):"]
         lines += repair_order_lines(state, limit=3)
         return "\n".join(lines)
-    if state.status == "ambiguity":
-        lines = [word + ": no check left is expected to save more than it costs. "
-                 "Repair in this order (key r records a repair):"]
-        lines += repair_order_lines(state)
-        return "\n".join(lines)
     if state.status == "awaiting-verification":
-        v = state.verification
-        return (f"{word}: {v.label} ({cost_text(v.cost, unit)}). Key v opens the verification; "
-                "if the fault persists the diagnosis goes on.")
+        return f"{word} — {why_line(state)}. Key v opens it; if the fault persists the diagnosis goes on."
     if state.status == "confirmed":
         return f"{word} — the unit works. Key q quits; the summary is written beside the log."
     return word
@@ -197,13 +224,17 @@ def _diagnosis_text(state) -> str:
 class StatusBar(Static):
     """One line: the complaint, the remaining uncertainty, the cost so far, the status, and a busy mark."""
 
-    def show(self, complaint: str, state, busy: bool) -> None:
+    def show(self, complaint: str, state, busy: bool, figures: bool = False) -> None:
         text = Text(no_wrap=True, overflow="ellipsis")
         if busy:
             text.append("⏳ working… ", style="bold reverse")
         if state is not None:
             text.append(STATUS_WORDS.get(state.status, state.status), style="bold")
-            text.append(f" │ uncertainty {bits_text(state.entropy_bits)}")
+            top = next((s for s in state.suspects if not s.repaired), None)
+            if figures:
+                text.append(f" │ uncertainty {bits_text(state.entropy_bits)}")
+            elif top is not None:
+                text.append(f" │ top suspect {percent(top.p)}")
             text.append(f" │ spent {cost_text(state.cost_spent, state.cost_unit)}")
             text.append(f" │ {complaint}")
         else:
@@ -223,8 +254,38 @@ class DiagnosisPanel(VerticalScroll):
             self.set_class(state.status == status, f"-{status}")
 
 
+def check_rows(state):
+    """The rows of the checks list: the recommended check first, the others by value for time, then
+    the skipped checks (kept listed so they can be brought back).
+
+    Returns a list of ``(check id, ranking row or None, skip reason or None)``.
+    """
+    rows = []
+    recommended = state.next_check.check if state.next_check is not None else None
+    if recommended is not None:
+        rows += [(r.check, r, None) for r in state.ranking if r.check == recommended]
+    rows += [(r.check, r, None) for r in state.ranking if r.check != recommended]
+    rows += [(check_id, None, reason) for check_id, reason in state.skipped]
+    return rows
+
+
+def checks_title(state) -> str:
+    """The title of the checks list, saying what its first row is."""
+    if state.next_check is not None:
+        return "Checks: the recommended one first, then by value for time"
+    if state.status in ("isolated", "ambiguity"):
+        return "Other checks: none is worth its time now (repair first)"
+    return "Checks left"
+
+
 class ChecksTable(DataTable):
-    """The next checks, ranked: label, cost with unit, expected bits, score and outcome odds."""
+    """The checks: the recommended one first, then by value for time, then the skipped ones (dimmed).
+
+    By default each row says in words how much the check narrows things down
+    and gives the chance of an abnormal reading; with the figures shown (key
+    f) it gives the expected information in bits and the score in bits per
+    cost unit instead.
+    """
 
     # Enter selects the highlighted row (the screen opens that check); shown in the footer.
     BINDINGS = [
@@ -236,35 +297,48 @@ class ChecksTable(DataTable):
     def on_mount(self) -> None:
         self.cursor_type = "row"
         self.zebra_stripes = True
+        self.ids: list[str] = []
+        self.skipped: dict[str, str] = {}
 
-    def show(self, state, keep_cursor: bool = False) -> None:
-        """Fill the table; the cursor goes to the recommended check unless ``keep_cursor`` (a resize).
+    def show(self, state, model, figures: bool = False, keep_cursor: bool = False) -> None:
+        """Fill the table; the cursor goes to the first row (the recommendation) unless ``keep_cursor``.
 
-        The recommended check (the session's next check: of the best few by
-        score, the one expected to cost least to finish) is marked ``►``.
+        Every column gets the width of its widest cell, set here, so a cost
+        never loses its unit however the table is redrawn.
         """
         unit = state.cost_unit
         keep = self.cursor_row if keep_cursor else 0
-        self.clear(columns=True)
-        # The panel spans the screen; its border takes 2 columns.
-        label_width = max(12, self.app.size.width - 2 - _CHECK_TABLE_FIXED_WIDTH)
-        self.add_column("#", key="rank")
-        self.add_column("Check", key="label", width=label_width)
-        self.add_column("Cost", key="cost")
-        self.add_column("Info", key="bits")
-        self.add_column("Score", key="score")
-        self.add_column("Odds n/abn", key="odds")
+        rows = check_rows(state)
         recommended = state.next_check.check if state.next_check is not None else None
-        for i, row in enumerate(state.ranking, 1):
+        headers = ("#", "Check", "Cost") + (("Info", "Score") if figures else ("Narrows", "Abnormal"))
+        keys = ("rank", "label", "cost") + (("bits", "score") if figures else ("narrows", "abnormal"))
+        table: list[tuple[str, list[str], bool]] = []
+        for i, (check_id, row, _) in enumerate(rows, 1):
+            if row is None:
+                check = model.check_by_id[check_id]
+                table.append((check_id, [str(i), "↷ skipped: " + check.label, cost_text(check.cost, unit), "—", "—"],
+                              True))
+                continue
             label = ("► " if row.check == recommended else "") + ("⚠ " if row.caution else "") + row.label
-            self.add_row(str(i), truncate(label, label_width), cost_text(row.cost, unit), bits_text(row.bits),
-                         score_text(row.score, unit), odds_text(row.p_outcomes), key=row.check)
-        if state.ranking:
-            if keep:
-                self.move_cursor(row=min(max(keep, 0), len(state.ranking) - 1))
+            if figures:
+                extra = [bits_text(row.bits), score_text(row.score, unit)]
             else:
-                ids = [r.check for r in state.ranking]
-                self.move_cursor(row=ids.index(recommended) if recommended in ids else 0)
+                extra = [narrowing_words(row.bits, state.entropy_bits), chance_abnormal(row)]
+            table.append((row.check, [str(i), label, cost_text(row.cost, unit), *extra], False))
+        widths = [max([len(h)] + [len(cells[c]) for _, cells, _ in table]) for c, h in enumerate(headers)]
+        # The label takes what is left: the border (2), the scrollbar (2) and one space each side of a cell.
+        rest = sum(w + 2 for c, w in enumerate(widths) if c != 1)
+        widths[1] = max(12, self.app.size.width - 4 - rest - 2)
+        self.clear(columns=True)
+        for header, key, width in zip(headers, keys, widths):
+            self.add_column(header, key=key, width=width)
+        for check_id, cells, dim in table:
+            cells[1] = truncate(cells[1], widths[1])
+            self.add_row(*(Text(c, style="dim") if dim else c for c in cells), key=check_id)
+        self.ids = [check_id for check_id, _, _ in table]
+        self.skipped = {check_id: reason for check_id, row, reason in rows if row is None}
+        if rows:
+            self.move_cursor(row=min(max(keep, 0), len(rows) - 1))
 
     def highlighted_check(self) -> str | None:
         """Id of the check under the cursor, or None when the table is empty."""
@@ -272,6 +346,10 @@ class ChecksTable(DataTable):
             return None
         row_key, _ = self.coordinate_to_cell_key(Coordinate(self.cursor_row, 0))
         return row_key.value
+
+    def row_ids(self) -> list[str]:
+        """The check ids in the order the rows show them."""
+        return list(getattr(self, "ids", []))
 
 
 class SuspectsPanel(VerticalScroll):
@@ -281,13 +359,14 @@ class SuspectsPanel(VerticalScroll):
         yield Static(id="suspects-text")
 
     def show(self, suspects: Iterable) -> None:
+        """Every suspect not repaired (a repaired part is listed under the findings instead)."""
         text = Text(no_wrap=True, overflow="ellipsis")
         for s in suspects:
-            # The tag goes before the label, so a narrow panel never cuts it off.
-            tag = "[repaired] " if s.repaired else ""
+            if s.repaired:
+                continue
             text.append(f"{percent(s.p):>7} ")
-            text.append(bar(s.p), style="bold")
-            text.append(f" {tag}{s.label}\n")
+            text.append(bar(s.p, 5), style="bold")
+            text.append(f" {s.label}\n")
         self.query_one("#suspects-text", Static).update(text)
 
 

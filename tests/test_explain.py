@@ -1,0 +1,121 @@
+"""Why a check is recommended: ``suggest --json``'s ``why`` against ``suggest`` run again.
+
+On every scripted scenario (scenarios/*.json), at every step where a check
+is recommended, ``why.p_if[o]`` of each suspect listed must be the posterior
+that ``suggest`` run again prints for that suspect when the finding
+(check = o) is added to the same findings and repairs, to 1e-9. The second
+run is ``suggest``'s own code path (its step parser and JSON document) on a
+separately compiled engine, so no propagation is shared with the first. The expected costs are checked against their definition
+(Heckerman, Breese & Rommelse 1995, the myopic rule): finishing now F(e) is
+the policy's cost of finishing without checks, and checking first is the
+check's cost plus sum_o P(o | e) F(e + o), with the outcome probabilities
+that ``suggest`` prints.
+"""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from test_scenarios import SCENARIOS, load_demo
+from troubleshoot.advice.diagnosis import suspects
+from troubleshoot.advice.policy import finish_plan
+from troubleshoot.cli import main
+from troubleshoot.commands.suggest import apply_steps, suggestion_json
+from troubleshoot.engine.inference import Engine
+from troubleshoot.session import AMBIGUITY, AWAITING_VERIFICATION, DIAGNOSING, ISOLATED, Session, settings_for
+
+TOL = 1e-9
+
+
+class Suggest:
+    """``troubleshoot suggest MODEL --finding ... --repaired ... --json`` on one compiled engine."""
+
+    def __init__(self, name: str, model, settings) -> None:
+        self.name, self.model, self.settings = name, model, settings
+        self.engine = Engine(model)
+
+    def __call__(self, steps: list[tuple[str, str]]) -> dict:
+        session = Session(self.model, self.settings, engine=self.engine)
+        apply_steps(session, steps)
+        return json.loads(json.dumps(suggestion_json(session, self.name), allow_nan=False))
+
+    def suspects(self, steps: list[tuple[str, str]]) -> dict[str, float]:
+        """Only the ``suspects`` of the document (its ``p`` per id), without the other figures."""
+        session = Session(self.model, self.settings, engine=self.engine)
+        apply_steps(session, steps)
+        return {s.id: s.p for s in session.state.suspects}
+
+
+def test_suggest_command_prints_why(capsys):
+    assert main(["suggest", "rooftop", "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert doc["why"]["check"] == doc["next_check"]
+    assert set(doc["why"]) == {"check", "text", "suspects", "cost_check_first", "cost_repair_now"}
+    assert all(set(s) == {"id", "label", "p_now", "p_if"} for s in doc["why"]["suspects"])
+
+
+@pytest.mark.parametrize("path", SCENARIOS, ids=[p.stem for p in SCENARIOS])
+def test_why_p_if_is_suggest_run_again_with_the_finding(path):
+    doc = json.loads(path.read_text(encoding="utf-8"))
+    model = load_demo(doc["model"])
+    settings = settings_for(model, **doc.get("settings", {}))
+    session = Session(model, settings)
+    suggest = Suggest(doc["model"], model, settings)
+    steps: list[tuple[str, str]] = []
+    verifications = list(doc.get("verifications", []))
+    explained = 0
+    for _ in range(200):
+        state = session.state
+        if state.status == DIAGNOSING:
+            now = suggest(steps)
+            why = now["why"]
+            assert why is not None and why["check"] == now["next_check"] == state.next_check.check
+            check = model.check_by_id[why["check"]]
+            assert len(why["suspects"]) >= min(3, sum(1 for s in now["suspects"] if not s["repaired"]))
+            assert why["text"]
+            p_now = {s["id"]: s["p"] for s in now["suspects"]}
+            after = {}
+            for outcome in check.outcomes:
+                if now["ranking"][[r["id"] for r in now["ranking"]].index(check.id)]["outcomes"][outcome] <= 0:
+                    continue
+                after[outcome] = suggest.suspects(steps + [("finding", f"{check.id}={outcome}")])
+            for s in why["suspects"]:
+                assert abs(s["p_now"] - p_now[s["id"]]) <= TOL
+                for outcome, again in after.items():
+                    assert abs(s["p_if"][outcome] - again[s["id"]]) <= TOL, (path.name, check.id, outcome, s["id"])
+            # The costs weighed, from their definition (myopic: check, then finish).
+            def finish(posterior):
+                return finish_plan(model, suspects(posterior), settings).best
+
+            assert abs(why["cost_repair_now"] - finish(session.posterior)) <= 1e-9 * max(1.0, why["cost_repair_now"])
+            p_out = now["ranking"][[r["id"] for r in now["ranking"]].index(check.id)]["outcomes"]
+            first = check.cost + sum(
+                p_out[o] * finish(
+                    session.engine.propagate(session.findings + (_finding(session, check, o),), session.repairs))
+                for o in after)
+            assert abs(why["cost_check_first"] - first) <= 1e-9 * max(1.0, first)
+            explained += 1
+            outcome = doc["answers"][session.epoch][check.id]
+            session.record_finding(check.id, outcome)
+            steps.append(("finding", f"{check.id}={outcome}"))
+        elif state.status in (ISOLATED, AMBIGUITY):
+            assert suggest(steps)["why"] is None  # no check recommended
+            target = state.isolated.id if state.isolated else state.repair_order[0].id
+            session.record_repair(target)
+            steps.append(("repaired", target))
+        elif state.status == AWAITING_VERIFICATION:
+            outcome = verifications.pop(0)
+            request = state.verification
+            session.record_verification(outcome)
+            steps.append(("finding", f"{request.target}={outcome}"))
+        else:
+            break
+    assert session.status == "confirmed" and explained > 0
+
+
+def _finding(session, check, outcome):
+    from troubleshoot.engine.inference import Finding
+
+    return Finding(check.id, check.outcomes.index(outcome), session.epoch)
