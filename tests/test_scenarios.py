@@ -52,6 +52,14 @@ def load_demo(name: str):
     return dataclasses.replace(load_model(path), escalation=None)
 
 
+def scenario_model(doc: dict):
+    """The demo a scenario runs on; without its escalation when the scenario says ``"escalation": false``."""
+    model = load_demo(doc["model"])
+    if doc.get("escalation", True) is False:
+        model = dataclasses.replace(model, escalation=None)
+    return model
+
+
 def noise_free_outcomes(model, faults, repairs) -> dict[str, str]:
     """What each check reads with these faults when every cause shows its most likely
     reading (bruteforce.evaluate and bruteforce.noise_free_outcome)."""
@@ -67,9 +75,7 @@ def noise_free_outcomes(model, faults, repairs) -> dict[str, str]:
 
 def run_scenario(doc: dict) -> tuple[Session, list, list]:
     """Drive a session from a scenario script; returns it, the isolated suspects and the repairs."""
-    model = load_demo(doc["model"])
-    if doc.get("escalation", True) is False:
-        model = dataclasses.replace(model, escalation=None)
+    model = scenario_model(doc)
     settings = settings_for(model, **doc.get("settings", {}))
     session = Session(model, settings)
     isolated, repairs = [], []
