@@ -26,7 +26,7 @@ def _findings(model: Model, rng: random.Random, repairs: tuple[str, ...]) -> lis
     findings = [Finding(model.top, 1, 0)]
     for epoch in range(len(repairs) + 1):
         for check in rng.sample(list(model.checks), min(2, len(model.checks))):
-            findings.append(Finding(check.id, rng.randint(0, 1), epoch))
+            findings.append(Finding(check.id, rng.randrange(len(check.outcomes)), epoch))
         if epoch:
             findings.append(Finding(model.top, rng.randint(0, 1), epoch))
     return findings
@@ -38,7 +38,8 @@ def _findings(model: Model, rng: random.Random, repairs: tuple[str, ...]) -> lis
 def test_both_paths_equal_brute_force(seed, n_events, n_gates, n_repairs):
     # Reference: enumeration of every root state (tests/bruteforce.py), written
     # from the model format's semantics, not from either engine.
-    model = random_model(seed, n_events=n_events, n_gates=n_gates, n_checks=4)
+    # Checks of two to four outcomes (noisy-MAX), repeated events, repairs.
+    model = random_model(seed, n_events=n_events, n_gates=n_gates, n_checks=4, max_outcomes=4)
     rng = random.Random(seed)
     repairs = tuple(rng.sample([e.id for e in model.basic_events], min(n_repairs, n_events)))
     findings = _findings(model, rng, repairs)
@@ -94,6 +95,54 @@ def test_wide_check_is_answered_by_the_compiled_path():
     want = sum(math.comb(n, k) * p**k * (1 - p) ** (n - k) * (1 - d) ** k for k in range(1, n + 1)) / p_top
     _, p_outcomes = outcome_information(post, ["all"])["all"]
     assert p_outcomes[0] == pytest.approx(want, abs=TOL)
+
+
+def test_wide_graded_check_is_grouped_by_likelihood_and_equals_enumeration():
+    # A three-outcome check over 14 causes (more than MAX_CAUSE_STATES_BITS): the
+    # compiled path groups its cause states and builds the finding in product form.
+    # Reference: enumeration of all 2^14 root states with the textbook noisy-MAX
+    # in cumulative form, P(Y <= l | c) = Q_leak(l) prod_(i present) Q_i(l)
+    # (Díez 1993), written here.
+    rng = random.Random(7)
+    n = 14
+    priors = np.array([rng.uniform(0.05, 0.3) for _ in range(n)])
+    events = tuple(BasicEvent(f"e{i}", f"e{i}", float(priors[i])) for i in range(n))
+    gates = (Gate("top", "top", "or", tuple(e.id for e in events[:10])),
+             Gate("g", "g", "and", ("e10", "e11")))
+    highs = [rng.choice([0.4, 0.5]) for _ in range(13)]
+    causes = tuple(Cause(f"e{i}", 0.0, shows=(("low", 0.3), ("high", highs[i]))) for i in range(13)) \
+        + (Cause("g", 0.0, shows=(("high", 0.9),)),)
+    check = Check("wide", "wide", 1.0, ("normal", "low", "high"), causes, false_alarm=0.0, leak=(("low", 0.01),))
+    model = Model(name="wide", top="top", gates=gates, basic_events=events, checks=(check,))
+    states = ((np.arange(2**n)[:, None] >> np.arange(n)) & 1).astype(bool)
+    weight = np.prod(np.where(states, priors, 1 - priors), axis=1) * states[:, :10].any(axis=1)  # top failed
+    present = np.column_stack([states[:, :13], states[:, 10] & states[:, 11]])
+    q0 = np.array([1 - 0.3 - h for h in highs] + [0.1])  # P(level <= normal) of each cause alone
+    q1 = np.array([1 - h for h in highs] + [0.1])  # P(level <= low)
+    cdf0 = 0.99 * np.prod(np.where(present, q0, 1.0), axis=1)
+    cdf1 = 1.00 * np.prod(np.where(present, q1, 1.0), axis=1)
+    lik = np.column_stack([cdf0, cdf1 - cdf0, 1 - cdf1])  # normal, low, high
+    p_e = weight.sum()
+    engine = Engine(model, kind=ENGINE_NAME)
+    findings = [Finding("top", 1)]
+    post = engine.propagate(findings)
+    assert post.log_p == pytest.approx(math.log(p_e), abs=TOL)
+    joint = weight / p_e
+    p_t = joint @ lik
+
+    def h(p):
+        p = p[p > 0]
+        return float(-(p * np.log2(p)).sum())
+
+    want_bits = h(p_t) - sum(joint[i] * h(lik[i]) for i in np.flatnonzero(joint))
+    bits, p_outcomes = outcome_information(post, ["wide"])["wide"]
+    assert bits == pytest.approx(want_bits, abs=TOL)
+    assert np.abs(p_outcomes - p_t).max() <= TOL
+    for outcome in range(3):
+        after = engine.propagate(findings + [Finding("wide", outcome)])
+        w = weight * lik[:, outcome]
+        assert after.log_p == pytest.approx(math.log(w.sum()), abs=TOL)
+        assert np.abs(after.root_marginals() - (w @ states) / w.sum()).max() <= TOL
 
 
 def test_budget_too_small_for_both_paths_is_refused():

@@ -18,7 +18,7 @@ import json
 
 import pytest
 
-from test_scenarios import SCENARIOS, load_demo
+from test_scenarios import SCENARIOS, scenario_model
 from troubleshoot.advice.diagnosis import suspects
 from troubleshoot.advice.policy import finish_plan
 from troubleshoot.cli import main
@@ -59,7 +59,7 @@ def test_suggest_command_prints_why(capsys):
 @pytest.mark.parametrize("path", SCENARIOS, ids=[p.stem for p in SCENARIOS])
 def test_why_p_if_is_suggest_run_again_with_the_finding(path):
     doc = json.loads(path.read_text(encoding="utf-8"))
-    model = load_demo(doc["model"])
+    model = scenario_model(doc)
     settings = settings_for(model, **doc.get("settings", {}))
     session = Session(model, settings)
     suggest = Suggest(doc["model"], model, settings)

@@ -47,7 +47,17 @@ def load_demo(name: str):
     path = demo_path(name)
     if not path.is_file():
         pytest.fail(f"scenario needs the demo model {name!r}, which is missing at {path}")
-    return load_model(path)
+    # The scripts walk the repair order to the fault: the demos' escalation price
+    # is left out, so the 1.0 rules apply (escalation never chosen by cost).
+    return dataclasses.replace(load_model(path), escalation=None)
+
+
+def scenario_model(doc: dict):
+    """The demo a scenario runs on; without its escalation when the scenario says ``"escalation": false``."""
+    model = load_demo(doc["model"])
+    if doc.get("escalation", True) is False:
+        model = dataclasses.replace(model, escalation=None)
+    return model
 
 
 def noise_free_outcomes(model, faults, repairs) -> dict[str, str]:
@@ -65,9 +75,7 @@ def noise_free_outcomes(model, faults, repairs) -> dict[str, str]:
 
 def run_scenario(doc: dict) -> tuple[Session, list, list]:
     """Drive a session from a scenario script; returns it, the isolated suspects and the repairs."""
-    model = load_demo(doc["model"])
-    if doc.get("escalation", True) is False:
-        model = dataclasses.replace(model, escalation=None)
+    model = scenario_model(doc)
     settings = settings_for(model, **doc.get("settings", {}))
     session = Session(model, settings)
     isolated, repairs = [], []

@@ -16,15 +16,15 @@ import numpy as np
 import pytest
 
 import bruteforce
-from test_optimal import reference_strategy_cost, small_model
+from test_optimal import reference_optimum, small_model
 from troubleshoot.cli import main
 from troubleshoot.engine.inference import Engine
 from troubleshoot.model.xmlfile import save_model
-from troubleshoot.study.optimal import solve
+from troubleshoot.study.optimal import expected_cost, solve
 from troubleshoot.session import settings_for
 from troubleshoot.study.simulation import (case_generator, draw_case, sample_true_state, simulate, summarise,
                                      true_values)
-from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy
+from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy, protocol_actor
 
 
 def test_true_state_is_drawn_from_the_posterior_given_the_complaint():
@@ -57,26 +57,38 @@ def test_case_draws_depend_on_seed_and_case_only():
     assert [a.answer(c.id, ()) for c in model.checks] == [b.answer(c.id, ()) for c in model.checks]
 
 
-@pytest.mark.parametrize("name", ["info-per-cost", "info-per-cost-bits", "cheapest", "likeliest"])
+@pytest.mark.parametrize("name", ["info-per-cost", "info-per-cost-bits", "cheapest", "likeliest", "checklist"])
 def test_simulated_mean_cost_converges_to_the_exact_expected_cost(name):
+    # Two independent paths: sampling units through a Session, and the recursion over
+    # every outcome with enumerated probabilities (the optimum of which is checked
+    # against brute force in test_optimal.py).
     model = small_model()
     settings = settings_for(model)
-    results = simulate(model, 300, 2024, [(name, None)], settings, workers=1, checks_after_repair=False)
+    results = simulate(model, 300, 2024, [(name, None)], settings, workers=1)
     summary = summarise(name, results[name])
-    # Reference: exact expected cost by recursion over outcomes with bruteforce probabilities.
-    exact = reference_strategy_cost(model, make_strategy(name), settings)
+    exact = expected_cost(model, protocol_actor(model, make_strategy(name), settings, Engine(model)))
     low, high = summary.ci95
     assert low <= exact <= high, (summary.mean_cost, exact, summary.ci95)
-    assert summary.outcomes["confirmed"] == 300  # top-event verification: every case ends repaired
+    outcomes = summary.outcomes
+    assert outcomes["confirmed"] + outcomes["escalated"] == 300 and outcomes["capped"] == 0
 
 
 def test_optimal_policy_simulates_to_its_expected_cost():
-    model = small_model()
-    settings = settings_for(model)
-    solution = solve(model, settings)
-    results = simulate(model, 300, 7, [("optimal", solution.policy)], settings, workers=1, checks_after_repair=False)
+    model = small_model(n_checks=2, n_events=3)
+    solution = solve(model)
+    # Reference for the optimum: the brute-force search over every policy tree.
+    assert solution.expected_cost == pytest.approx(reference_optimum(model), abs=1e-9)
+    results = simulate(model, 300, 7, [("optimal", solution)], settings_for(model), workers=1)
     low, high = summarise("optimal", results["optimal"]).ci95
     assert low <= solution.expected_cost <= high
+
+
+def test_escalated_units_pay_the_escalation():
+    # A unit whose cause lies outside the model ends escalated, its price counted.
+    model = small_model(escalation=150.0)
+    results = simulate(model, 200, 3, [("info-per-cost", None)], settings_for(model), workers=1)
+    escalated = [r for r in results["info-per-cost"] if r.outcome == "escalated"]
+    assert escalated and all(r.cost >= 150.0 for r in escalated)
 
 
 def _run_cli(capsys, argv):
@@ -87,7 +99,7 @@ def _run_cli(capsys, argv):
 
 def test_json_is_byte_identical_for_one_and_two_workers(tmp_path, capsys):
     path = tmp_path / "fan.xml"
-    save_model(small_model(), path)
+    save_model(small_model(n_checks=2), path)
     argv = ["simulate", str(path), "--cases", "16", "--seed", "5", "--json"]
     code1, out1, err1 = _run_cli(capsys, argv + ["--workers", "1"])
     code2, out2, _ = _run_cli(capsys, argv + ["--workers", "2"])
@@ -101,7 +113,9 @@ def test_json_is_byte_identical_for_one_and_two_workers(tmp_path, capsys):
     for row in data["strategies"].values():
         assert {"mean_cost", "ci95", "mean_checks", "accuracy", "wrong_repairs"} <= set(row)
         assert row["ci95"][0] <= row["mean_cost"] <= row["ci95"][1]
-    assert data["optimal_expected_cost"] == pytest.approx(solve(small_model()).expected_cost, abs=1e-12)
+    assert data["optimal_expected_cost"] == pytest.approx(solve(small_model(n_checks=2)).expected_cost, abs=1e-12)
+    for name, row in data["strategies"].items():  # every exact cost on the same protocol, none below the optimum
+        assert row["exact_expected_cost"] >= data["optimal_expected_cost"] - 1e-9, name
 
 
 def test_optimal_skipped_with_a_message_on_a_large_model(capsys):

@@ -57,7 +57,14 @@ from dataclasses import dataclass, replace
 
 from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, isolated_suspect, suspects
 from troubleshoot.advice.ranking import Ranking, RankRow, rank
-from troubleshoot.advice.repair import RepairPlan, VerificationRequest, repair_plan
+from troubleshoot.advice.repair import (
+    RepairPlan,
+    VerificationRequest,
+    repair_cost,
+    repair_plan,
+    top_verification,
+    verification_cost,
+)
 from troubleshoot.engine.inference import AnyPosterior, Engine, Finding
 from troubleshoot.errors import ImpossibleFindings, SessionError
 from troubleshoot.model import DERIVED, Model
@@ -199,6 +206,21 @@ def escalation_price(model: Model) -> float | None:
     return None if model.escalation is None else float(model.escalation.cost)
 
 
+def escalation_charge(model: Model) -> float:
+    """What an escalation is charged in a study (simulation, exact policy), in the model's unit.
+
+    The model's price when it gives one; otherwise its dearest repair with
+    that repair's verification (at least the verification of the unit), a
+    stand-in so that handing a unit over is never free in a comparison of
+    strategies. The live tool never chooses an unpriced escalation by cost.
+    """
+    if model.escalation is not None:
+        return float(model.escalation.cost)
+    costs = [repair_cost(model, e.id) + verification_cost(model, e.id)
+             for e in model.basic_events if e.repair is not None]
+    return max(costs, default=top_verification(model).cost)
+
+
 def finish_plan(model: Model, ranked: tuple[Suspect, ...], settings: Settings) -> RepairPlan:
     """The expected cost of finishing without more checks (repairs in order, escalation)."""
     return repair_plan(model, ranked, settings.group_min_p, escalation_price(model))
@@ -218,7 +240,7 @@ def cost_to_finish(engine: Engine, posterior: AnyPosterior, candidates: tuple[st
     Heckerman, Breese & Rommelse 1995 (observation versus repair; the
     myopic rule is depth 1).
     """
-    best = finish_plan(posterior.model, suspects(posterior), settings).best
+    best = finish_plan(posterior.model, suspects(posterior), settings).going_on
     if depth <= 0:
         return best
     for row in rank(posterior, candidates).worth_doing(settings.min_bits)[: settings.value_lookahead]:
@@ -429,7 +451,15 @@ def decide(engine: Engine, posterior: AnyPosterior, settings: Settings, candidat
 
     check_row, check_cost, bits_only = None, math.inf, False
     if isolated is None:
-        check_row, check_cost, bits_only = _best_check(engine, posterior, ranking, candidates, settings, plan.best)
+        check_row, check_cost, bits_only = _best_check(engine, posterior, ranking, candidates, settings, plan.going_on)
+        worth = ranking.worth_doing(settings.min_bits)
+        if check_row is None and worth and price is not None and plan.escalate_cost < plan.going_on:
+            # Handing over looks cheaper than repairing, but one step ahead
+            # undervalues a run of checks: before paying for a specialist,
+            # the check with the most bits per cost is done first.
+            check_row = worth[0]
+            check_cost = cost_of_check_then(engine, posterior, check_row, candidates, 1, settings)
+            bits_only = True
 
     alts = ([repair] if repair is not None else []) + ([escalate] if price is not None else [])
     if check_row is not None:
@@ -518,7 +548,7 @@ def _best_check(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candi
 def _check_reason(model: Model, row: RankRow, ahead: float, plan: RepairPlan, repair: Alternative | None,
                   price: float | None, bits_only: bool, unit: str, group: tuple[str, ...]) -> Reason:
     odds = tuple(zip(row.outcomes, row.p_outcomes))
-    finish = plan.best
+    finish = plan.going_on
     if bits_only:
         text = f"{_money(row.cost, unit)} for {row.bits:.2f} bits about the fault ({row.label})"
         return Reason("bits-only", text, costs=(("check", row.cost),), probabilities=odds, suspects=group)

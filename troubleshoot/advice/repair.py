@@ -276,6 +276,13 @@ class RepairPlan:
         return self.cost_of_stopping_after[0]
 
     @property
+    def going_on(self) -> float:
+        """Least expected cost of finishing by repairs first (escalating later, if priced); escalating at
+        once only when nothing is left to repair. What a check is weighed against: one step ahead
+        undervalues a run of checks, so handing over at once is weighed only when no check pays."""
+        return self.repair_cost if math.isfinite(self.repair_cost) else self.best
+
+    @property
     def best(self) -> float:
         """Least expected cost to finish by repairing and escalating (no more checks)."""
         return min(self.cost_of_stopping_after)

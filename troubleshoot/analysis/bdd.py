@@ -475,37 +475,57 @@ class FaultTreeBdd:
 
         Notes
         -----
-        Each root's pair is one bottom-up pass with that root's level pinned
-        (its nodes take the high or low child's value), restricted to the
-        levels at and above it: the values below do not change. Every value is
-        a sum of non-negative terms, so a conditional probability that is
-        exactly zero comes out exactly zero (no cancellation).
+        One upward pass (P of every node's function) and one downward pass
+        (the probability mass reaching every node from the top) give both
+        conditionals of every root at once: P(top | x failed) is the mass
+        through the nodes testing x, each times its high child's value, plus
+        the mass on edges that skip x's level (where x is free), and
+        likewise with the low child for x working (Darwiche 2003, the
+        differential approach). Every value is a sum of non-negative terms,
+        so a conditional probability that is exactly zero comes out exactly
+        zero (no cancellation).
+
+        References
+        ----------
+        A. Darwiche, "A differential approach to inference in Bayesian
+        networks", JACM 50(3), 2003.
         """
         groups = self._levels()
-        base = np.zeros(len(self.diagram))
-        base[TRUE] = 1.0
+        n_levels = len(self.order)
+        up = np.zeros(len(self.diagram))
+        up[TRUE] = 1.0
         for level, idx, lo, hi in groups:
             p = self.priors[level]
-            base[idx] = p * base[hi] + (1.0 - p) * base[lo]
-        top = float(base[self.root])
+            up[idx] = p * up[hi] + (1.0 - p) * up[lo]
+        top = float(up[self.root])
         failed = {root_id: top for root_id in self.model.hypotheses}
         working = dict(failed)
-        # groups run deepest level first; position of each level in that list
-        position = {level: i for i, (level, _, _, _) in enumerate(groups)}
+        if self.root <= TRUE:
+            return failed, working
+        var = np.array(self.diagram.var, dtype=np.int64)
+        down = np.zeros(len(self.diagram))
+        down[self.root] = 1.0
+        through1 = np.zeros(n_levels)
+        through0 = np.zeros(n_levels)
+        skip = np.zeros(n_levels + 1)  # difference array over levels
+        skip[0] += up[self.root]
+        skip[min(var[self.root], n_levels)] -= up[self.root]
+        for level, idx, lo, hi in reversed(groups):  # top level first
+            p = self.priors[level]
+            d = down[idx]
+            np.add.at(down, hi, d * p)
+            np.add.at(down, lo, d * (1.0 - p))
+            through1[level] = float(np.dot(d, up[hi]))
+            through0[level] = float(np.dot(d, up[lo]))
+            for child, weight in ((hi, p), (lo, 1.0 - p)):
+                flow = d * weight * up[child]
+                np.add.at(skip, np.full(len(idx), level + 1), flow)
+                np.add.at(skip, np.minimum(var[child], n_levels), -flow)
+        free = np.cumsum(skip)[:n_levels]
+        tested = {level for level, _, _, _ in groups}
         for level, root_id in enumerate(self.order):
-            if self.root <= TRUE:
-                break
-            start = position.get(level)
-            if start is None:
-                # No node tests this root: the top does not depend on it.
-                continue
-            pinned = np.stack([base, base], axis=1)  # column 0: works, 1: failed
-            _, idx, lo, hi = groups[start]
-            pinned[idx, 0] = pinned[lo, 0]
-            pinned[idx, 1] = pinned[hi, 1]
-            for upper_level, idx, lo, hi in groups[start + 1 :]:
-                p = self.priors[upper_level]
-                pinned[idx] = p * pinned[hi] + (1.0 - p) * pinned[lo]
-            working[root_id] = float(pinned[self.root, 0])
-            failed[root_id] = float(pinned[self.root, 1])
+            if level not in tested:
+                continue  # no node tests this root: the top does not depend on it
+            failed[root_id] = float(through1[level] + free[level])
+            working[root_id] = float(through0[level] + free[level])
         return failed, working

@@ -37,6 +37,9 @@ def add_parser(subparsers, name):
     p.add_argument("--three-outcomes", type=float, default=0.0, metavar="SHARE",
                    help="also time the step on the same trees with this share of the checks read as "
                         "low / normal / high (e.g. 0.33), against the two-outcome trees")
+    p.add_argument("--hard-sizes", type=int, nargs="*", default=None, metavar="N",
+                   help="basic events of the hard trees (shared supports, wide join trees) timed per engine "
+                        "(default: 300 1000 2000; give none to skip)")
     return p
 
 
@@ -58,8 +61,20 @@ def run(args) -> int:
                                     budget=args.budget, progress=progress.message, gave_up=gave_up,
                                     three_outcomes=args.three_outcomes))
         progress.count(len(args.sizes), len(args.sizes))
+    from troubleshoot.study.hardbench import HARD_SIZES, hard_json, hard_table, run_hard
+
+    hard_sizes = HARD_SIZES if args.hard_sizes is None else args.hard_sizes
+    hard = []
+    with ProgressDisplay("bench: hard trees", delay=0.0) as progress:
+        for n in hard_sizes:
+            hard.append(run_hard(n, seed=args.seed, progress=progress.message))
     if args.json:
-        print(json.dumps(as_json(results), indent=2))
+        doc = as_json(results)
+        doc["hard_trees"] = hard_json(hard)
+        print(json.dumps(doc, indent=2))
     else:
         print(as_table(results, args.budget))
+        if hard:
+            print()
+            print(hard_table(hard))
     return 0

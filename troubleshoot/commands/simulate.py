@@ -38,7 +38,8 @@ def add_parser(subparsers, name):
                         help="strategy to run (repeat for several; default all: " + ", ".join(STRATEGY_NAMES) + ")")
     parser.add_argument("--after-repair", choices=("diagnose", "repair"), default="diagnose",
                         help="after a failed verification: check again as the tool does (diagnose, the "
-                             "default), or go straight to the next repair (repair; always so when optimal runs)")
+                             "default; the protocol the optimal policy is exact for), or go straight to the next "
+                             "repair or escalation (repair; optimal is then not computed)")
     parser.add_argument("--json", action="store_true", help="print the figures as JSON")
     parser.add_argument("--plot", metavar="FILE.png", help="write a PNG of the cost distribution per strategy")
     parser.add_argument("--workers", type=int, default=None, metavar="K",
@@ -87,7 +88,8 @@ def run(args) -> int:
     from troubleshoot.session import settings_for
     from troubleshoot.study.optimal import OptimalTooLarge, expected_cost, solve
     from troubleshoot.study.simulation import default_workers, simulate, summarise
-    from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy
+    from troubleshoot.engine.inference import Engine
+    from troubleshoot.study.strategies import STRATEGY_NAMES, make_strategy, protocol_actor
 
     _check_arguments(args)
     plt = _require_matplotlib() if args.plot else None
@@ -98,31 +100,37 @@ def run(args) -> int:
     names = list(dict.fromkeys(args.strategy or STRATEGY_NAMES))
     workers = args.workers or default_workers()
 
+    checks_after_repair = args.after_repair == "diagnose"
+    args.protocol = args.after_repair
     optimal = None
     exact: dict[str, float] = {}
-    if "optimal" in names:
+    if "optimal" in names and not checks_after_repair:
+        print("troubleshoot: optimal skipped: it is exact for the tool's protocol (--after-repair diagnose), "
+              "not for the repair-only one", file=sys.stderr)
+        names.remove("optimal")
+    elif "optimal" in names:
         try:
-            optimal = solve(model, settings)
+            optimal = solve(model)
         except OptimalTooLarge as exc:
             print(f"troubleshoot: optimal skipped: {exc}", file=sys.stderr)
             names.remove("optimal")
         if optimal is not None:
-            # Small enough for the optimal policy: every strategy's expected cost is exact too.
+            # Small enough for the optimal policy: every strategy's expected cost is exact too, same protocol.
+            engine = Engine(model)
             for name in names:
-                strategy = make_strategy(name, optimal.policy)
-                exact[name] = optimal.expected_cost if name == "optimal" else expected_cost(model, strategy, settings)
+                if name == "optimal":
+                    exact[name] = optimal.expected_cost
+                    continue
+                strategy = make_strategy(name)
+                try:
+                    exact[name] = expected_cost(model, protocol_actor(model, strategy, settings, engine))
+                except OptimalTooLarge as exc:
+                    print(f"troubleshoot: exact cost of {name} skipped: {exc}", file=sys.stderr)
     if not names:
         raise SimulationError("no strategy left to simulate")
 
     # "optimal" stays in the names only when its policy was solved.
-    specs = [(name, optimal.policy if name == "optimal" and optimal is not None else None) for name in names]
-    # The optimal policy is exact for the repair-only protocol, so a run that
-    # compares with it uses that protocol for every strategy.
-    checks_after_repair = args.after_repair == "diagnose" and optimal is None
-    if optimal is not None and args.after_repair == "diagnose":
-        print("troubleshoot: optimal is exact for the repair-only protocol; every strategy runs under it "
-              "(no checks after the first repair)", file=sys.stderr)
-    args.protocol = "diagnose" if checks_after_repair else "repair"
+    specs = [(name, optimal if name == "optimal" and optimal is not None else None) for name in names]
     truth = _load_truth(args.truth, model) if args.truth else None
     sink = _log_sink(args.logs, args.cases) if args.logs else None
     from troubleshoot.study.execution import executor_for
@@ -221,14 +229,23 @@ def _as_json(model, args, summaries, exact, best) -> dict:
 
 
 def _print_table(model, args, summaries, exact, best, optimal) -> None:
+    from troubleshoot.advice.policy import escalation_charge
+
     unit = model.cost_unit
     print(f"Simulated troubleshooting of {model.name}: {args.cases} failed units, seed {args.seed}, costs in {unit}.")
     print("Each unit: faults drawn given the complaint, checks answered from the model's noise, repairs in the "
-          "session's order until the unit is verified working; every strategy meets the same units and draws.")
+          "policy's order until the unit is verified working or handed over; every strategy meets the same units "
+          "and draws.")
+    charge = escalation_charge(model)
+    if model.escalation is not None:
+        print(f"Escalation ({model.escalation.label}) costs {charge:g} {unit}, counted in the unit's cost.")
+    else:
+        print(f"The model gives no escalation price: an escalation is charged {charge:g} {unit} (its dearest "
+              "repair with its verification).")
     if args.protocol == "diagnose":
         print("After a failed verification the strategy checks again, the repair taken into account.")
     else:
-        print("Repair-only protocol: no check after the first repair (the class in which optimal is exact).")
+        print("Repair-only protocol: no check after the first repair (optimal is not computed for it).")
     print("95% interval of the mean cost: mean +/- 1.96 sd / sqrt(n) (normal approximation).")
     print("First repair right: share of units whose first repair was of a component that had failed (or, with "
           "no repair, whose cause was rightly isolated outside the model).")
@@ -249,41 +266,48 @@ def _print_table(model, args, summaries, exact, best, optimal) -> None:
         print(line)
     print()
     if optimal is not None:
-        print(f"optimal: exact expected cost {best:.2f} {unit} (dynamic programming over {optimal.states} sets "
-              "of findings); 'vs optimal' is the exact expected cost of each strategy over it.")
+        print(f"optimal: exact expected cost {best:.2f} {unit} (dynamic programming over {optimal.states} states "
+              "of the protocol: checks and repairs interleaved, escalation an action); 'vs optimal' is the exact "
+              "expected cost of each strategy over it, on the same protocol.")
     else:
         print("optimal: not computed for this model (see the message above, or add --strategy optimal).")
     for name, s in summaries.items():
         notes = []
         o = s.outcomes
+        if o.get("escalated"):
+            notes.append(f"{o['escalated']} were handed over (escalated, its cost counted)")
+        if o.get("capped"):
+            notes.append(f"{o['capped']} hit the step cap (charged as an escalation)")
         if o.get("left-failed"):
             notes.append(f"{o['left-failed']} ended with the repair's verifying check passing while the unit "
                          "still failed")
-        if o.get("unresolved"):
-            notes.append(f"{o['unresolved']} ended with no repairable suspect left")
-        if o.get("outside-model"):
-            notes.append(f"{o['outside-model']} ended with the cause isolated outside the model (an unlisted "
-                         "cause: escalate)")
         if o.get("engine-refused"):
             notes.append(f"{o['engine-refused']} stopped because the network after a repair exceeded the "
-                         "engine's memory budget")
-        if o.get("capped"):
-            notes.append(f"{o['capped']} hit the step cap")
+                         "engine's memory budget (charged as an escalation)")
         if notes:
             print(f"{name}: of {s.cases} units, " + "; ".join(notes) + ".")
 
 
 def _plot(plt, path, model, summaries, args) -> None:
     names = list(summaries)
-    fig, ax = plt.subplots(figsize=(max(6.0, 1.3 * len(names) + 2), 4.5))
+    fig, ax = plt.subplots(figsize=(max(7.0, 1.4 * len(names) + 2), 5.0))
     data = [summaries[n].costs for n in names]
     ax.boxplot(data, showmeans=True, showfliers=True)
-    ax.set_xticks(range(1, len(names) + 1), names)
-    ax.set_ylabel(f"total cost per unit ({model.cost_unit})")
-    ax.set_title(f"{model.name}: cost of {args.cases} simulated diagnoses (seed {args.seed}); triangle = mean")
-    finite = [c for row in data for c in row if math.isfinite(c)]
-    if finite and max(finite) > 20 * max(1e-9, sorted(finite)[len(finite) // 2]):
-        ax.set_yscale("symlog")
+    ax.set_xticks(range(1, len(names) + 1), names, rotation=20, ha="right")
+    unit = model.cost_unit
+    ax.set_ylabel(f"total cost per unit ({unit})")
+    finite = sorted(c for row in data for c in row if math.isfinite(c))
+    if finite and finite[-1] > 10 * max(1e-9, finite[len(finite) // 2]):
+        # A few units cost far more than the rest: a log axis keeps the bulk readable.
+        ax.set_yscale("symlog", linthresh=max(1.0, finite[len(finite) // 2]))
+    for i, n in enumerate(names, start=1):
+        s = summaries[n]
+        ax.errorbar([i + 0.3], [s.mean_cost], yerr=[[s.mean_cost - s.ci95[0]], [s.ci95[1] - s.mean_cost]],
+                    fmt="o", color="black", capsize=4, markersize=3)
+        ax.annotate(f"{s.mean_cost:.0f}", (i + 0.36, s.mean_cost), fontsize=8, va="center")
+    title = (f"{model.name}\n{args.cases} simulated units, seed {args.seed}; box: quartiles, triangle: mean, "
+             f"bar: 95 % interval of the mean ({unit})")
+    ax.set_title(title, fontsize=9, wrap=True)
     fig.tight_layout()
     try:
         fig.savefig(path, format="png", dpi=120)

@@ -152,6 +152,11 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
         "settings": {"isolation_threshold": state.settings.isolation_threshold,
                      "min_bits": state.settings.min_bits, "group_min_p": state.settings.group_min_p},
         "cautions": list(state.cautions),
+        "decision": state.decision.to_dict() if state.decision is not None else None,
+        "outside_model_p": state.outside_model_p,
+        "outside_model_by_gate": dict(state.outside_model_by_gate),
+        "escalation": ({"label": model.escalation.label, "cost": model.escalation.cost,
+                        "instructions": model.escalation.instructions} if model.escalation is not None else None),
     }
 
 

@@ -253,6 +253,28 @@ class DiagramStore:
         self._mul[key] = result
         return result
 
+    def difference(self, a: int, b: int) -> int:
+        """Pointwise max(a - b, 0) of two diagrams (a difference of cumulative probabilities)."""
+        if b == 0:
+            return a
+        if a == b:
+            return 0
+        key = (a, -1 - b)  # its own keys in the product cache's table
+        found = self._mul.get(key)
+        if found is not None:
+            return found
+        var, n = self.var, self.n_levels
+        va, vb = var[a], var[b]
+        if va == n and vb == n:
+            result = self.leaf(max(self.value[a] - self.value[b], 0.0))
+        else:
+            level = min(va, vb)
+            a0, a1 = self._cofactors(a, level)
+            b0, b1 = self._cofactors(b, level)
+            result = self.node(level, self.difference(a0, b0), self.difference(a1, b1))
+        self._mul[key] = result
+        return result
+
     def restrict(self, f: int, working: frozenset, memo: dict) -> int:
         """``f`` with the roots at levels ``working`` held working (a repair)."""
         if self.var[f] == self.n_levels:
@@ -299,6 +321,9 @@ class CompiledModel:
         self._restrict_memo: dict[frozenset, dict] = {}
         self._evidence: dict = {}
         self._prior: dict[int, tuple[float, int]] = {}
+        self._arrays: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None = None
+        self._families: dict = {}
+        self._conjunctions: dict[tuple[int, ...], list[int]] = {}
         with _deep(4 * len(self.order) + 2000):
             for gate in model.gates:
                 self.function(gate.id)
@@ -308,6 +333,44 @@ class CompiledModel:
     @property
     def nodes(self) -> int:
         return len(self.store)
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(level, low, high, prior probability, deepest level) of every node in the store, as arrays.
+
+        Nodes are made children first, so one pass in id order fills the
+        prior probability and the deepest level tested; the arrays grow with
+        the store and are never recomputed for old nodes.
+        """
+        s = self.store
+        done = 0 if self._arrays is None else len(self._arrays[0])
+        n = len(s)
+        if done < n:
+            var = np.array(s.var[done:], dtype=np.int64)
+            low = np.array(s.low[done:], dtype=np.int64)
+            high = np.array(s.high[done:], dtype=np.int64)
+            if self._arrays is None:
+                old = (np.zeros(0, np.int64),) * 3 + (np.zeros(0), np.zeros(0, np.int64))
+            else:
+                old = self._arrays
+            var, low, high = (np.concatenate((old[0], var)), np.concatenate((old[1], low)),
+                              np.concatenate((old[2], high)))
+            prior = np.concatenate((old[3], np.zeros(n - done)))
+            deepest = np.concatenate((old[4], np.full(n - done, -1, dtype=np.int64)))
+            values, levels, lows, highs, p = s.value, s.var, s.low, s.high, self.priors
+            n_levels = s.n_levels
+            pr = prior.tolist()
+            dp = deepest.tolist()
+            for i in range(done, n):
+                lv = levels[i]
+                if lv == n_levels:
+                    pr[i] = values[i]
+                    continue
+                lo, hi = lows[i], highs[i]
+                pr[i] = (1.0 - p[lv]) * pr[lo] + p[lv] * pr[hi]
+                dp[i] = max(lv, dp[lo], dp[hi])
+            self._arrays = (var, low, high, np.array(pr), np.array(dp, dtype=np.int64))
+        assert self._arrays is not None  # built above when nodes were added
+        return self._arrays
 
     def prior(self, f: int) -> tuple[float, int]:
         """(P(f) under the priors alone, the deepest level f tests; -1 for a leaf), cached per node."""
@@ -406,12 +469,36 @@ class CompiledModel:
         with one diagram (canonical, so also two gates of one function)
         have their cumulative tables multiplied.
         """
+        key = (check_id, tuple(repairs[:epoch]), epoch)
+        found = self._families.get(key)
+        if found is not None:
+            return found
+
         def node_of(target: str) -> str | bool:
             f = self.function_at(target, repairs, epoch)
             return True if f == 1 else False if f == 0 else str(f)
 
         fam = check_family(self.model.check_by_id[check_id], epoch, node_of)
-        return tuple(int(n) for n in fam.nodes), fam
+        result = (tuple(int(n) for n in fam.nodes), fam)
+        self._families[key] = result
+        return result
+
+    def conjunctions(self, causes: tuple[int, ...]) -> list[int]:
+        """The diagram of "every cause of S present" for each non-empty subset S (C order bits), cached."""
+        found = self._conjunctions.get(causes)
+        if found is not None:
+            return found
+        s, m = self.store, len(causes)
+        out = []
+        with _deep(4 * s.n_levels + 2000):
+            for subset in range(1, 1 << m):
+                f = 1
+                for i in range(m):
+                    if subset >> (m - 1 - i) & 1:
+                        f = s.and_(f, causes[i])
+                out.append(f)
+        self._conjunctions[causes] = out
+        return out
 
     def likelihood(self, causes: tuple[int, ...], table: np.ndarray) -> int:
         """The diagram equal to table[c] where c is the state of the cause diagrams (C order)."""
@@ -428,13 +515,38 @@ class CompiledModel:
 
         return build(0, 0)
 
+    def likelihood_by_product(self, causes: tuple[int, ...], fam: CheckFamily, outcome: int) -> int:
+        """P(outcome | c) of a check with many causes, without its 2^m table.
+
+        Noisy-MAX is multiplicative in cumulative form (Díez 1993):
+        P(level <= l | c) = Q_leak(l) prod_i Q_i(l)^(c_i), one diagram
+        ite(c_i, Q_i(l), 1) per cause multiplied together; the outcome's
+        level is the difference of two such products.
+        """
+        s = self.store
+        level = fam.order.index(outcome)
+
+        def cdf(at: int) -> int:
+            if at < 0:
+                return 0
+            if at >= fam.n_outcomes - 1:
+                return 1
+            f = s.leaf(math.exp(fam.leak_log_cdf[at]))
+            for c, q in zip(causes, fam.log_cdfs):
+                f = s.times(f, s.ite(c, s.leaf(math.exp(q[at])), 1))
+            return f
+
+        return s.difference(cdf(level), cdf(level - 1))
+
     def finding_diagram(self, target: str, outcome: int, epoch: int, repairs: tuple[str, ...]) -> int:
         """P(finding | root states) as a diagram."""
         s = self.store
         with _deep(4 * len(self.order) + 2000):
             if target in self.model.check_by_id:
                 causes, fam = self.family(target, repairs, epoch)
-                return self.likelihood(causes, fam.p_outcome(outcome))
+                if len(causes) <= MAX_CAUSE_STATES_BITS:
+                    return self.likelihood(causes, fam.p_outcome(outcome))
+                return self.likelihood_by_product(causes, fam, outcome)
             f = self.function_at(target, repairs, epoch)
             return f if outcome == 1 else s.not_(f)
 
@@ -736,6 +848,122 @@ class Passes:
                 total += float(inflow[i]) * walk(int(self.ids[i]), g)
         return min(max(total / self.p_evidence, 0.0), 1.0)
 
+    def both_many(self, fs: list[int]) -> np.ndarray:
+        """P(f, findings) / P(findings) for many 0/1 diagrams at once, in whole arrays.
+
+        Notes
+        -----
+        The same pairs (evidence node, node of f) as :meth:`both`, but
+        enumerated level by level for every f together and evaluated
+        bottom-up in numpy: a pair whose parts test disjoint ranges of
+        levels (a leaf of f included) is closed, its mass the evidence
+        node's upward value times f's prior probability; any other splits
+        on the first level either part tests. Each f starts where its top
+        level cuts the evidence diagram, with the mass the downward pass
+        brings there.
+        """
+        cm = self.cm
+        var, low, high, prior, deep_f = cm.arrays()
+        n_levels = cm.store.n_levels
+        size = len(var)
+        epos = np.full(size, -1, dtype=np.int64)
+        epos[self.ids] = np.arange(len(self.ids))
+        up, deep_e, p = self.up, self.deepest, cm.priors
+        out = np.zeros(len(fs))
+        starts_key, starts_w, starts_owner = [], [], []
+        inflows: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+        for j, f in enumerate(fs):
+            if f in (0, 1):
+                out[j] = float(f)
+                continue
+            if low[f] == 0 and high[f] == 1:
+                out[j] = float(self.root_marginals[var[f]])
+                continue
+            top = int(var[f])
+            if top not in inflows:
+                inflow = self._inflow(top)
+                nz = np.flatnonzero(inflow)
+                inflows[top] = (self.ids[nz], inflow[nz])
+            e_ids, w = inflows[top]
+            starts_key.append(e_ids * size + f)
+            starts_w.append(w)
+            starts_owner.append(np.full(len(e_ids), j))
+        if not starts_key:
+            return out
+        start_keys = np.concatenate(starts_key)
+
+        def classify(keys):
+            pe, pf = keys // size, keys % size
+            ve, vf = var[pe], var[pf]
+            ie = epos[pe]
+            closed = (deep_f[pf] < ve) | (deep_e[ie] < vf)
+            return pe, pf, ve, vf, ie, closed
+
+        buckets: dict[int, list[np.ndarray]] = {}
+        leaf_keys, leaf_vals = [], []
+        inner: list[tuple[int, np.ndarray, np.ndarray, np.ndarray]] = []
+
+        def place(keys):
+            keys = np.unique(keys)
+            pe, pf, ve, vf, ie, closed = classify(keys)
+            leaf_keys.append(keys[closed])
+            leaf_vals.append(up[ie[closed]] * prior[pf[closed]])
+            keep = ~closed
+            if keep.any():
+                lv = np.minimum(ve[keep], vf[keep])
+                k = keys[keep]
+                order = np.argsort(lv, kind="stable")
+                lv, k = lv[order], k[order]
+                cuts = np.flatnonzero(np.diff(lv)) + 1
+                for part_lv, part in zip(np.split(lv, cuts), np.split(k, cuts)):
+                    buckets.setdefault(int(part_lv[0]), []).append(part)
+
+        place(start_keys)
+        while buckets:
+            level = min(buckets)
+            keys = np.unique(np.concatenate(buckets.pop(level)))
+            pe, pf = keys // size, keys % size
+            at_e, at_f = var[pe] == level, var[pf] == level
+            e0, e1 = np.where(at_e, low[pe], pe), np.where(at_e, high[pe], pe)
+            f0, f1 = np.where(at_f, low[pf], pf), np.where(at_f, high[pf], pf)
+            c0, c1 = e0 * size + f0, e1 * size + f1
+            inner.append((level, keys, c0, c1))
+            place(np.concatenate((c0, c1)))
+            if level >= n_levels:  # pragma: no cover - leaves never split
+                break
+        all_keys = np.concatenate(leaf_keys + [k for _, k, _, _ in inner])
+        all_vals = np.concatenate(leaf_vals + [np.zeros(len(k)) for _, k, _, _ in inner])
+        order = np.argsort(all_keys, kind="stable")
+        all_keys, all_vals = all_keys[order], all_vals[order]
+        for level, keys, c0, c1 in reversed(inner):
+            i = np.searchsorted(all_keys, keys)
+            v0 = all_vals[np.searchsorted(all_keys, c0)]
+            v1 = all_vals[np.searchsorted(all_keys, c1)]
+            all_vals[i] = (1.0 - p[level]) * v0 + p[level] * v1
+        mass = all_vals[np.searchsorted(all_keys, start_keys)] * np.concatenate(starts_w)
+        owner = np.concatenate(starts_owner)
+        totals = np.bincount(owner, weights=mass, minlength=len(fs))
+        done = np.zeros(len(fs), bool)
+        done[owner] = True
+        out[done] = np.clip(totals[done] / self.p_evidence, 0.0, 1.0)
+        return out
+
+    def joints_many(self, families: list[tuple[int, ...]]) -> list[np.ndarray]:
+        """:meth:`joint` of many cause tuples (each of at most four causes), in one batch."""
+        wanted: list[int] = []
+        plans = []
+        for causes in families:
+            conj = self.cm.conjunctions(causes)
+            plans.append((len(causes), list(range(len(wanted), len(wanted) + len(conj)))))
+            wanted.extend(conj)
+        values = self.both_many(wanted)
+        out = []
+        for m, subsets in plans:
+            all_of = np.ones(1 << m)
+            all_of[1:] = values[subsets]
+            out.append(_moebius(all_of, m))
+        return out
+
     def joint(self, causes: tuple[int, ...]) -> np.ndarray:
         """P(c | findings) over the 2^m joint states of the cause diagrams (C order).
 
@@ -757,15 +985,22 @@ class Passes:
                         if subset >> (m - 1 - i) & 1:
                             f = s.and_(f, causes[i])
                     all_of[subset] = self.both(f)
-            # P(exactly the state x) = sum over S superset of x of (-1)^|S - x| all_of[S].
-            out = all_of.copy()
-            for bit in range(m):
-                step = 1 << bit
-                for x in range(1 << m):
-                    if not x & step:
-                        out[x] -= out[x | step]
-            return np.clip(out, 0.0, 1.0)
+            return _moebius(all_of, m)
         out = np.zeros(1 << m)
         for k, v in self.grouped(causes, tuple(1 << (m - 1 - i) for i in range(m))).items():
             out[k] = v
         return out
+
+
+def _moebius(all_of: np.ndarray, m: int) -> np.ndarray:
+    """P(exactly cause state x) from P(every cause of S present), S over the subsets (C order bits).
+
+    P(x) = sum over S containing x of (-1)^|S - x| all_of[S] (Moebius inversion).
+    """
+    out = all_of.copy()
+    for bit in range(m):
+        step = 1 << bit
+        for x in range(1 << m):
+            if not x & step:
+                out[x] -= out[x | step]
+    return np.clip(out, 0.0, 1.0)

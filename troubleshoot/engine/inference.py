@@ -565,6 +565,7 @@ class CompiledPosterior:
         self._levels = np.array([compiled.level[r] for r in model.hypotheses], dtype=np.int64)
         self._families: dict = {}
         self._gates: dict = {}
+        self._batched: set[int] = set()
 
     def root_marginals(self) -> np.ndarray:
         """P(failed | findings) of every hypothesis, in ``model.hypotheses`` order."""
@@ -603,6 +604,8 @@ class CompiledPosterior:
         """
         epoch = self.epoch if epoch is None else epoch
         key = (check_id, epoch)
+        if key not in self._families and epoch not in self._batched:
+            self._batch(epoch)
         if key not in self._families:
             causes, fam = self.compiled.family(check_id, self.repairs, epoch)
             if len(causes) <= MAX_CAUSE_STATES_BITS:
@@ -612,6 +615,23 @@ class CompiledPosterior:
                 log_cdf = np.array(fam.leak_log_cdf)[None, :] + np.array(sums).reshape(len(sums), -1)
                 self._families[key] = (mass, table_from_log_cdf(log_cdf, fam.order))
         return self._families[key]
+
+    def _batch(self, epoch: int) -> None:
+        """Every check's family with at most four causes at an epoch, in one batch of whole-array walks.
+
+        A ranking asks for nearly every check, so they are conditioned on
+        together (:meth:`Passes.joints_many`).
+        """
+        self._batched.add(epoch)
+        ids, causes_list, fams = [], [], []
+        for check in self.model.checks + self.model.symptoms:
+            causes, fam = self.compiled.family(check.id, self.repairs, epoch)
+            if len(causes) <= 4:
+                ids.append(check.id)
+                causes_list.append(causes)
+                fams.append(fam)
+        for check_id, joint, fam in zip(ids, self.passes.joints_many(causes_list), fams):
+            self._families[(check_id, epoch)] = (joint, fam.likelihood().reshape(-1, fam.n_outcomes))
 
     def family_batches(self, check_ids, epoch: int | None = None) -> list[FamilyBatch]:
         """As :meth:`Posterior.family_batches`: the checks' (joint, table) stacked by shape."""

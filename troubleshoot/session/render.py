@@ -103,15 +103,39 @@ def render_state(model, state, explanation=None, engine_name: str | None = None)
         lines.append(f"Verify the repair: {v.label} ({v.cost:g} {unit}; outcomes {numbered_outcomes(v.outcomes)})")
     if state.next_check:
         lines.append(f"Next check: {state.next_check.check} ({state.next_check.label})")
+    lines += decision_lines(state)
     for caution in state.cautions:
         lines.append(f"CAUTION: {caution}")
     return "\n".join(lines) + "\n"
 
 
+def decision_lines(state) -> list[str]:
+    """P(cause outside the model) and the policy's decision with its reasons and the courses weighed."""
+    unit = state.cost_unit
+    lines = []
+    if state.outside_model_by_gate:
+        lines.append(f"Cause outside the model: P = {state.outside_model_p:.3f} ("
+                     + ", ".join(f"under {g} {p:.3f}" for g, p in state.outside_model_by_gate) + ")")
+    d = state.decision
+    if d is None:
+        return lines
+    target = f" {d.target}" if d.target else ""
+    cost = f", expected {d.expected_cost:.1f} {unit} to finish" if d.expected_cost is not None else ""
+    lines.append(f"Decision: {d.action}{target}{cost}")
+    for r in d.reasons:
+        lines.append(f"  why: {r.text}")
+    for a in d.alternatives:
+        if (a.action, a.target) == (d.action, d.target):
+            continue
+        price = f"{a.expected_cost:.1f} {unit}" if a.expected_cost is not None else "no price in the model"
+        lines.append(f"  instead: {a.action}{' ' + a.target if a.target else ''}: {price}")
+    return lines
+
+
 def _repair_order_lines(state, unit: str, indent: str) -> list[str]:
     if state.status not in (ISOLATED, AMBIGUITY) or not state.repair_order:
         return []
-    lines = [f"Repair order (probability per {unit} of repair cost, highest first):"]
+    lines = [f"Repair order (probability per {unit} of repair and verification cost, highest first):"]
     for i, step in enumerate(state.repair_order, start=1):
         if step.cost is None:
             lines.append(f"{indent}{i}. {step.id}: P = {step.p:.3f}; {step.note}")

@@ -327,6 +327,13 @@ class SessionView:
                       verification=self.verification_request, confirmed=self.confirmed,
                       ranking=self.ranking, ranked=self.suspects)
 
+    @cached_property
+    def finish(self) -> Decision:
+        """How to finish without another check: repair the next suspect, or escalate (the policy's choice)."""
+        if self.verification_request is not None or self.confirmed:
+            return self.decision
+        return decide(self.engine, self.posterior, self.settings, (), ranked=self.suspects)
+
     @property
     def outside_model(self) -> OutsideModel:
         """P(the cause lies outside the model), in total and per gate."""

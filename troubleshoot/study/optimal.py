@@ -2,71 +2,76 @@
 
 What "optimal" means here
 -------------------------
-The protocol is the simulator's (:mod:`troubleshoot.study.simulation`): the
-complaint and every symptom are observed first; then, before any repair, the
-policy either does a check not yet done or stops; once it stops, the repair
-phase is fixed: repair the first repairable entry of the session's repair
-order (P(failed | findings) / repair cost over the ambiguity group, see
-:func:`troubleshoot.study.simulation.next_repair`), verify as the session asks,
-and on a failed verification repair the next one in the order recomputed
-from the new findings, until a verification passes or no repairable suspect
-is left. The cost of a case is the sum of the check, repair and
-verification costs.
+The protocol is the tool's own, the one the simulator runs
+(:mod:`troubleshoot.study.simulation`):
 
-The optimal policy is the one that, at every set of findings, chooses
-between each remaining check and "stop and repair" so as to minimise the
-expected total cost. Its expected cost is a lower bound for every strategy
-that follows the same protocol (the same repair phase), whatever rule it
-uses to choose checks: each such strategy is one of the policies the
-recursion minimises over. It is not a bound for a protocol that checks
-again after a failed repair.
+1. The complaint and every symptom are observed first (symptoms are free).
+2. At every step the technician may do a check (or re-read a symptom) not
+   yet done since the last repair, repair any unrepaired basic event that
+   has a repair, or escalate.
+3. A repair is verified as the session asks: the repair's own check if the
+   model names one (an abnormal outcome sends the diagnosis on), then the
+   unit itself; the unit working ends the case. A unit that still fails
+   goes back to step 2, every finding kept, the repair taken into account:
+   checks may be done again.
+4. Escalating ends the case at its price (the model's, or
+   :func:`troubleshoot.advice.policy.escalation_charge` when it gives none).
 
-The recursion (Bellman's equation) over sets of findings e, memoised:
+The cost of a case is the sum of its checks, repairs, verifications and
+escalation. The optimal policy minimises its expectation; it is a lower
+bound for every strategy on this protocol, the tool's included, each
+strategy being one of the policies the recursion minimises over.
 
-    V(e) = min( R(e),  min over checks t not in e of  cost(t) + sum_o P(t = o | e) V(e + {t = o}) )
+Two kinds of action are left out because they cannot lower the cost: a
+check that gives no information about the root events (I(F; T | e) = 0),
+and the repair of a root that has failed with probability 0.
 
-with R(e) the exact expected cost of the repair phase from e. Every
-probability comes from the exact joint over the 2^n states of the n root
-events (enumeration), never from sampling; a check that gives no
-information about the roots (I(F; T | e) = 0) cannot lower the cost and is
-not tried.
+The recursion (Bellman's equation) over the protocol's states (the repairs
+made, the checks done since the last one and the posterior over the joint
+states of the roots), memoised:
+
+    V(s) = min( E,  min_t  c_t + sum_o P(o | s) V(s + t=o),
+                    min_r  c_r + verification costs + sum_b P(b | s) V(s_b) )
+
+with E the escalation price and b the branches of the verification in
+which the unit still fails. Every probability comes from the exact joint
+over the 2^n states of the n root events (enumeration), never from
+sampling; how a check responds to its causes comes from one function,
+:meth:`Enumeration.table` (over :mod:`troubleshoot.engine.observation`).
 
 References
 ----------
 R. Bellman, *Dynamic Programming*, Princeton University Press, 1957.
 D. Heckerman, J. S. Breese and K. Rommelse, "Decision-theoretic
-troubleshooting", Communications of the ACM 38(3), 1995 (observation-repair
-planning; the myopic rule it approximates).
-J. B. Kadane and H. A. Simon, "Optimal strategies for a class of constrained
-sequential problems", Annals of Statistics 5(2), 1977 (repair order).
+troubleshooting", Communications of the ACM 38(3), 1995 (observation,
+repair and service calls; the myopic rule the tool approximates it with).
 """
 
 from __future__ import annotations
 
+import hashlib
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
-from troubleshoot.advice.diagnosis import Suspect, is_unlisted
+from troubleshoot.advice.policy import escalation_charge
 from troubleshoot.advice.ranking import BITS_EPSILON, entropy_bits
+from troubleshoot.advice.repair import CLEARED_P, repair_cost, top_verification, verification_for
 from troubleshoot.engine.observation import outcome_probabilities
-from troubleshoot.advice.ties import ordered_by
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.model.gates import gate_values
 from troubleshoot.model import Model
-from troubleshoot.session import (
-    Session,
-    SessionSettings,
-    settings_for,
-    top_verification,
-    verification_for,
-)
-from troubleshoot.advice.repair import CLEARED_P, next_repair, repair_cost
+from troubleshoot.model.gates import gate_values
 
 #: Largest number of root events the enumeration takes (2^16 joint states).
 MAX_ROOTS = 16
-#: Largest number of distinct sets of findings the recursion visits.
+#: Largest number of distinct states the recursion visits.
 MAX_STATES = 200_000
+#: Posteriors equal to this many decimals are one state of the recursion.
+STATE_DECIMALS = 12
+
+# Kinds of observation in a protocol state (as the session names them).
+COMPLAINT, FINDING, VERIFICATION = "complaint", "finding", "verification"
 
 
 class OptimalTooLarge(TroubleshootError):
@@ -106,15 +111,18 @@ class Enumeration:
         key = frozenset(repaired)
         if key in self._values:
             return self._values[key]
-        model = self.model
         rows = len(self.states)
-        value = gate_values(model, {r: (np.zeros(rows, bool) if r in key else self.states[:, i])
-                                    for i, r in enumerate(self.roots)})
+        value = gate_values(self.model, {r: (np.zeros(rows, bool) if r in key else self.states[:, i])
+                                         for i, r in enumerate(self.roots)})
         self._values[key] = value
         return value
 
     def table(self, check_id: str, repaired=()) -> np.ndarray:
-        """P(outcome | joint state) of a check, shape (states, K) (:mod:`troubleshoot.engine.observation`)."""
+        """P(outcome | joint state) of a check, shape (states, K): the one place a check's response is read.
+
+        It reads :func:`troubleshoot.engine.observation.outcome_probabilities`,
+        the model's observation layer (noisy-OR, noisy-MAX for K outcomes).
+        """
         key = (check_id, frozenset(repaired))
         if key not in self._table:
             check = self.model.check_by_id[check_id]
@@ -126,91 +134,187 @@ class Enumeration:
         """The outcome indices of a check."""
         return range(len(self.model.check_by_id[check_id].outcomes))
 
-    def p_abnormal(self, check_id: str, repaired=()) -> np.ndarray:
-        """P(any abnormal outcome | joint state) of a check."""
-        return 1.0 - self.table(check_id, repaired)[:, 0]
-
     def likelihood(self, check_id: str, outcome: int, repaired=()) -> np.ndarray:
         return self.table(check_id, repaired)[:, outcome]
 
+    def top_fails(self, repaired=()) -> np.ndarray:
+        """1.0 where the top event occurs with the repaired roots working, else 0.0."""
+        return self.values(repaired)[self.model.top].astype(float)
+
     def complaint(self) -> np.ndarray:
         """Prior weight of each joint state times [the top event occurs]."""
-        return self.prior * self.values(())[self.model.top]
+        return self.prior * self.top_fails(())
 
-    def suspects(self, weights: np.ndarray, repaired=()) -> tuple[Suspect, ...]:
-        """Suspects from unnormalised weights, ordered as :func:`troubleshoot.advice.diagnosis.suspects` does."""
-        q = weights @ self.states / weights.sum()
-        model = self.model
-        out = [Suspect(r, model.label_of(r), float(p), r in repaired, is_unlisted(model, r))
-               for r, p in zip(self.roots, q)]
-        return tuple(ordered_by(out, lambda s: s.p, lambda s: s.id))
-
-    def bits(self, weights: np.ndarray, check_id: str) -> float:
-        """I(F; T | findings) in bits for a check done before any repair (Cover & Thomas 2006)."""
+    def bits(self, weights: np.ndarray, check_id: str, repaired=()) -> float:
+        """I(F; T | findings) in bits for a check done after ``repaired`` (Cover & Thomas 2006)."""
         w = weights / weights.sum()
-        table = self.table(check_id)
+        table = self.table(check_id, repaired)
         p_t = np.clip(w @ table, 0.0, 1.0)
         value = float(entropy_bits(p_t) - w @ entropy_bits(table))
         return value if value > BITS_EPSILON else 0.0
 
+    def p_failed(self, weights: np.ndarray) -> np.ndarray:
+        """P(root failed | findings) per root, from unnormalised weights."""
+        return weights @ self.states / weights.sum()
 
-def repair_phase_cost(enumeration: Enumeration, weights: np.ndarray, settings: SessionSettings) -> float:
-    """Exact expected cost of the repair phase from the findings whose joint weights are given.
+
+# ---------------------------------------------------------------- the protocol
+
+
+@dataclass(frozen=True)
+class State:
+    """Where a case stands on the protocol: what was observed and repaired, in order.
+
+    Attributes
+    ----------
+    observations : tuple of (target, outcome index, epoch, kind)
+        The complaint first; ``kind`` is ``complaint``, ``finding`` or
+        ``verification`` (as the session records them).
+    repairs : tuple of str
+    """
+
+    observations: tuple[tuple[str, int, int, str], ...]
+    repairs: tuple[str, ...] = ()
+
+    @property
+    def epoch(self) -> int:
+        return len(self.repairs)
+
+    def done_now(self) -> frozenset[str]:
+        """Checks observed since the last repair."""
+        return frozenset(t for t, _, e, _ in self.observations if e == self.epoch)
+
+
+#: An action: ("check", id), ("repair", id) or ("escalate", None).
+Action = tuple[str, str | None]
+
+
+class Protocol:
+    """What each action of the protocol costs and where it leads, on an enumeration.
 
     Parameters
     ----------
     enumeration : Enumeration
-    weights : numpy.ndarray
-        Unnormalised P(joint state, findings).
-    settings : SessionSettings
-        For the ambiguity-group threshold of the repair order.
-
-    Returns
-    -------
-    float
-        sum over repair steps j of P(step j is reached | findings) *
-        (repair cost + verification cost), in the model's cost unit.
-
-    Notes
-    -----
-    Each repair is verified as the session asks: the top event, or first
-    the repair's own check (through its noise) and, when that reads normal,
-    the top event. Every branch that does not end in a working unit leads to
-    the next repair, conditioned on what was seen; the recursion sums over
-    the branches exactly (a branch of probability at most CLEARED_P is
-    dropped).
-
-    References
-    ----------
-    Heckerman, Breese & Rommelse 1995 (expected cost of a repair sequence).
     """
-    model = enumeration.model
-    top_cost = top_verification(model).cost
-    limit = len(model.hypotheses)
 
-    def phase(w: np.ndarray, repaired: tuple[str, ...]) -> float:
-        """Expected cost from here, times the probability of getting here (the mass of w)."""
-        mass = float(w.sum())
-        if mass <= CLEARED_P or len(repaired) >= limit:
-            return 0.0
-        root = next_repair(model, enumeration.suspects(w, repaired), settings.group_min_p)
-        if root is None:
-            return 0.0
-        repaired = repaired + (root,)
+    def __init__(self, enumeration: Enumeration):
+        self.enum = enumeration
+        model = enumeration.model
+        self.model = model
+        self.escalation = escalation_charge(model)
+        self.top_cost = top_verification(model).cost
+        self.check_ids = tuple(c.id for c in model.checks + model.symptoms)
+        self.cost_of = {c.id: float(c.cost) for c in model.checks + model.symptoms}
+        self.repairable = tuple(e.id for e in model.basic_events if e.repair is not None)
+        self.index = {r: i for i, r in enumerate(model.hypotheses)}
+
+    def start(self) -> list[tuple[float, State, np.ndarray]]:
+        """The states after the complaint and every symptom, with their probabilities and weights."""
+        model = self.model
+        w0 = self.enum.complaint()
+        if w0.sum() <= 0.0:
+            raise OptimalTooLarge(f"model {model.name!r}: the top event cannot occur, there is nothing to diagnose")
+        out = [(1.0, State(((model.top, 1, 0, COMPLAINT),)), w0 / w0.sum())]
+        for s in model.symptoms:
+            nxt = []
+            for p, state, w in out:
+                for o in self.enum.outcomes(s.id):
+                    w2 = w * self.enum.likelihood(s.id, o)
+                    q = float(w2.sum())
+                    if q > 0.0:
+                        nxt.append((p * q, State(state.observations + ((s.id, o, 0, FINDING),)), w2 / q))
+            out = nxt
+        return out
+
+    def weights(self, state: State) -> np.ndarray:
+        """P(joint state | what ``state`` observed), normalised; from the observations alone."""
+        enum, model = self.enum, self.model
+        w = enum.prior.copy()
+        for target, outcome, epoch, _kind in state.observations:
+            repaired = state.repairs[:epoch]
+            if target == model.top:
+                fails = enum.top_fails(repaired)
+                w = w * (fails if outcome else 1.0 - fails)
+            else:
+                w = w * enum.likelihood(target, outcome, repaired)
+        total = w.sum()
+        return w / total if total > 0 else w
+
+    def checks_open(self, state: State, w: np.ndarray) -> list[str]:
+        """Checks not done since the last repair that give information."""
+        done = state.done_now()
+        return [t for t in self.check_ids
+                if t not in done and self.enum.bits(w, t, state.repairs) > 0.0]
+
+    def repairs_open(self, state: State, w: np.ndarray) -> list[str]:
+        """Unrepaired roots with a repair that may have failed."""
+        p = self.enum.p_failed(w)
+        return [r for r in self.repairable if r not in state.repairs and p[self.index[r]] > CLEARED_P]
+
+    def after_check(self, state: State, w: np.ndarray, check_id: str) -> list[tuple[float, State, np.ndarray]]:
+        """The outcomes of a check: (probability, next state, next weights)."""
+        out = []
+        for o in self.enum.outcomes(check_id):
+            w2 = w * self.enum.likelihood(check_id, o, state.repairs)
+            p = float(w2.sum())
+            if p > 0.0:
+                out.append((p, State(state.observations + ((check_id, o, state.epoch, FINDING),), state.repairs),
+                            w2 / p))
+        return out
+
+    def after_repair(self, state: State, w: np.ndarray, root: str) -> tuple[float, list]:
+        """Expected cost of a repair and its verification, and the branches where the case goes on.
+
+        Returns
+        -------
+        cost : float
+            Repair, its own check (if any) and, where that reads normal, the unit itself.
+        branches : list of (probability, next state, next weights)
+            The outcomes after which the diagnosis goes on: the own check
+            abnormal, or the unit still failing. The unit working ends the case.
+        """
+        enum, model = self.enum, self.model
+        repaired = state.repairs + (root,)
+        epoch = len(repaired)
         request = verification_for(model, root)
-        total = mass * (repair_cost(model, root) + request.cost)
-        top_fails = enumeration.values(repaired)[model.top].astype(float)
-        if request.target == model.top:
-            return total + phase(w * top_fails, repaired)
-        # The repair's own check first: still abnormal, the diagnosis goes on;
-        # normal, the unit itself is checked, and only a working unit ends it.
-        p_abn = enumeration.p_abnormal(request.target, repaired)
-        normal = w * (1.0 - p_abn)
-        total += phase(w * p_abn, repaired)
-        total += float(normal.sum()) * top_cost
-        return total + phase(normal * top_fails, repaired)
+        cost = repair_cost(model, root) + request.cost
+        fails = enum.top_fails(repaired)
+        branches = []
 
-    return phase(weights / weights.sum(), ())
+        def add(p_w: np.ndarray, observations) -> None:
+            p = float(p_w.sum())
+            if p > 0.0:
+                branches.append((p, State(state.observations + observations, repaired), p_w / p))
+
+        top_seen = (model.top, 1, epoch, VERIFICATION)
+        if request.target == model.top:
+            add(w * fails, (top_seen,))
+            return cost, branches
+        table = enum.table(request.target, repaired)
+        for o in range(table.shape[1]):
+            w_o = w * table[:, o]
+            if o != 0:
+                add(w_o, ((request.target, o, epoch, VERIFICATION),))
+                continue
+            cost += float(w_o.sum()) * self.top_cost
+            add(w_o * fails, ((request.target, 0, epoch, VERIFICATION), top_seen))
+        return cost, branches
+
+    def lower_bound(self, state: State, w: np.ndarray) -> float:
+        """No case ends without a verified repair or an escalation: the cheapest of them."""
+        model = self.model
+        cheapest = self.escalation
+        for r in self.repairs_open(state, w):
+            cheapest = min(cheapest, repair_cost(model, r) + verification_for(model, r).cost)
+        return cheapest
+
+    def key(self, state: State, w: np.ndarray) -> tuple:
+        """States with the same repairs, the same checks open and the same posterior share their future."""
+        digest = hashlib.blake2b(np.round(w, STATE_DECIMALS).tobytes(), digest_size=16).digest()
+        return frozenset(state.repairs), state.done_now(), digest
+
+
+# ---------------------------------------------------------------- the optimum
 
 
 @dataclass(frozen=True)
@@ -222,43 +326,31 @@ class OptimalSolution:
     expected_cost : float
         In the model's cost unit: the least expected total cost (see the module notes).
     policy : dict
-        Findings key (frozenset of (check id, outcome index), symptoms
-        included, complaint excluded) -> the check to do, or None to stop and repair.
+        :meth:`Protocol.key` of a state -> the best action there.
     states : int
-        Sets of findings the recursion visited.
+        States the recursion visited.
+    protocol : Protocol
     """
 
     expected_cost: float
     policy: dict
     states: int
+    protocol: Protocol
+
+    def action(self, state: State) -> Action:
+        """The optimal action in a state of the protocol (escalate in a state never reached)."""
+        p = self.protocol
+        return self.policy.get(p.key(state, p.weights(state)), ("escalate", None))
 
 
-def _symptom_states(enumeration: Enumeration, weights: np.ndarray):
-    """Every combination of symptom outcomes with P > 0: (key, weights, probability)."""
-    model = enumeration.model
-    out: list[tuple[frozenset[tuple[str, int]], np.ndarray, float]] = [(frozenset(), weights, 1.0)]
-    for s in model.symptoms:
-        nxt = []
-        for key, w, p in out:
-            for o in enumeration.outcomes(s.id):
-                w2 = w * enumeration.likelihood(s.id, o)
-                q = float(w2.sum() / w.sum())
-                if q > 0.0:
-                    nxt.append((key | {(s.id, o)}, w2, p * q))
-        out = nxt
-    return out
-
-
-def solve(model: Model, settings: SessionSettings | None = None, max_states: int = MAX_STATES) -> OptimalSolution:
-    """The least-expected-cost policy by dynamic programming over sets of findings.
+def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
+    """The least-expected-cost policy by dynamic programming over the protocol's states.
 
     Parameters
     ----------
     model : Model
-    settings : SessionSettings, optional
-        The repair phase's ambiguity-group threshold (default: the model's session settings).
     max_states : int
-        Refuse (OptimalTooLarge) after visiting this many sets of findings.
+        Refuse (OptimalTooLarge) after visiting this many states.
 
     Returns
     -------
@@ -267,121 +359,121 @@ def solve(model: Model, settings: SessionSettings | None = None, max_states: int
     Raises
     ------
     OptimalTooLarge
-        Too many root events to enumerate, or too many reachable sets of findings.
+        Too many root events to enumerate, or too many reachable states.
 
     Notes
     -----
-    Memoised recursion of the Bellman equation in the module notes; on a
-    tie between stopping and a check the policy stops, and between checks
-    it takes the first in model order, so the policy is deterministic.
+    Memoised recursion of the Bellman equation in the module notes, with
+    branch and bound: every case still ends with a verified repair or an
+    escalation, so the cheapest of them bounds a state's value from below
+    (:meth:`Protocol.lower_bound`); a course whose cost so far plus the
+    bounds of its remaining branches reaches the best found is cut, and a
+    state is solved only as far as its budget requires (a state cut by its
+    budget keeps the bound it was cut at). Ties go to the first found:
+    escalation, then checks in model order, then repairs in model order.
 
     References
     ----------
     Bellman 1957; Heckerman, Breese & Rommelse 1995.
     """
-    settings = settings or settings_for(model)
-    enum = Enumeration(model)
-    checks = [c.id for c in model.checks]
-    cost_of = {c.id: float(c.cost) for c in model.checks}
-    memo: dict[frozenset, float] = {}
-    policy: dict[frozenset, str | None] = {}
+    protocol = Protocol(Enumeration(model))
+    memo: dict[tuple, float] = {}  # exact values
+    floor: dict[tuple, float] = {}  # lower bounds of states cut by a budget
+    policy: dict[tuple, Action] = {}
+    visited = 0
 
-    def value(key: frozenset, w: np.ndarray) -> float:
+    def courses(state: State, w: np.ndarray):
+        for t in protocol.checks_open(state, w):
+            yield ("check", t), protocol.cost_of[t], protocol.after_check(state, w, t)
+        for r in protocol.repairs_open(state, w):
+            cost, branches = protocol.after_repair(state, w, r)
+            yield ("repair", r), cost, branches
+
+    def value(state: State, w: np.ndarray, budget: float = np.inf) -> float:
+        """V(state) when it is below ``budget``; otherwise some lower bound of it that is >= budget."""
+        nonlocal visited
+        key = protocol.key(state, w)
         if key in memo:
             return memo[key]
-        if len(memo) >= max_states:
+        low = max(floor.get(key, 0.0), protocol.lower_bound(state, w))
+        if low >= budget:
+            return low
+        visited += 1
+        if visited > max_states:
             raise OptimalTooLarge(
-                f"model {model.name!r} has more than {max_states} reachable sets of findings over its "
-                f"{len(checks)} checks; the exact optimal policy is skipped for it")
-        best, action = repair_phase_cost(enum, w, settings), None
-        done = {t for t, _ in key}
-        total_w = float(w.sum())
-        for t in checks:
-            if t in done or cost_of[t] >= best or enum.bits(w, t) == 0.0:
+                f"model {model.name!r} needs more than {max_states} states of the tool's protocol; "
+                "the exact optimal policy is skipped for it")
+        best, action = protocol.escalation, ("escalate", None)
+        for course, cost, branches in courses(state, w):
+            limit = min(best, budget)
+            lows = [p * protocol.lower_bound(child, w2) for p, child, w2 in branches]
+            rest = sum(lows)
+            if cost + rest >= limit:
                 continue
-            expected = cost_of[t]
-            for o in enum.outcomes(t):
-                w2 = w * enum.likelihood(t, o)
-                p = float(w2.sum()) / total_w
-                if p > 0.0:
-                    expected += p * value(key | {(t, o)}, w2)
-                if expected >= best:
+            total, cut = cost, False
+            for (p, child, w2), low_i in zip(branches, lows):
+                rest -= low_i
+                v = value(child, w2, (limit - total - rest) / p)
+                total += p * v
+                if total + rest >= limit:
+                    cut = True
                     break
-            if expected < best * (1.0 - 1e-12):
-                best, action = expected, t
-        memo[key] = best
-        policy[key] = action
-        return best
+            if not cut and total < best * (1.0 - 1e-12):
+                best, action = total, course
+        if best < budget:
+            memo[key] = best
+            policy[key] = action
+            return best
+        floor[key] = max(floor.get(key, 0.0), budget)
+        return budget
 
-    complaint = enum.complaint()
-    if complaint.sum() <= 0.0:
-        raise OptimalTooLarge(f"model {model.name!r}: the top event cannot occur, there is nothing to diagnose")
-    total = 0.0
-    for key, w, p in _symptom_states(enum, complaint):
-        total += p * value(key, w)
-    return OptimalSolution(float(total), policy, len(memo))
+    total = sum(p * value(state, w) for p, state, w in protocol.start())
+    return OptimalSolution(float(total), policy, visited, protocol)
 
 
-def expected_cost(model: Model, strategy, settings: SessionSettings | None = None, engine=None,
+def expected_cost(model: Model, act: Callable[[State], list[tuple[float, Action]]],
                   max_states: int = MAX_STATES) -> float:
-    """Exact expected cost of a strategy under the simulator's protocol, by recursion over outcomes.
+    """Exact expected cost of a strategy on the protocol, by recursion over every outcome.
 
     Parameters
     ----------
     model : Model
-    strategy : Strategy
-        Its choices are read from a real :class:`~troubleshoot.session.Session`
-        driven through every outcome branch (record, recurse, undo).
-    settings : SessionSettings, optional
-    engine : Engine, optional
+    act : callable
+        State -> [(probability, action)]: what the strategy does there (one
+        action with probability 1 for a deterministic strategy).
     max_states : int
 
     Returns
     -------
     float
-        E[total cost] in the model's cost unit, the outcome probabilities
-        and the repair phase exact by enumeration.
+        E[total cost] in the model's cost unit, every probability exact by enumeration.
 
     Raises
     ------
     OptimalTooLarge
     """
-    settings = settings or settings_for(model)
-    enum = Enumeration(model)
-    session = Session(model, settings, engine)
-    memo: dict[frozenset, float] = {}
-    from troubleshoot.study.strategies import findings_key
+    protocol = Protocol(Enumeration(model))
+    memo: dict[State, float] = {}
 
-    def value(w: np.ndarray) -> float:
-        view = session.view
-        key = findings_key(view)
-        if key in memo:
-            return memo[key]
+    def value(state: State, w: np.ndarray) -> float:
+        if state in memo:
+            return memo[state]
         if len(memo) >= max_states:
-            raise OptimalTooLarge(f"model {model.name!r}: more than {max_states} sets of findings")
+            raise OptimalTooLarge(f"model {model.name!r}: more than {max_states} states on the protocol")
         total = 0.0
-        for prob, action in strategy.choices(view):
-            if action is None:
-                total += prob * repair_phase_cost(enum, w, settings)
+        for prob, (kind, target) in act(state):
+            if kind == "escalate":
+                total += prob * protocol.escalation
                 continue
-            branch = float(model.check_by_id[action].cost)
-            for o in enum.outcomes(action):
-                w2 = w * enum.likelihood(action, o)
-                p = float(w2.sum() / w.sum())
-                if p <= 0.0:
-                    continue
-                session.record_finding(action, o)
-                branch += p * value(w2)
-                session.undo()
+            assert target is not None, "a check or a repair names its target"
+            if kind == "check":
+                branch, children = protocol.cost_of[target], protocol.after_check(state, w, target)
+            else:
+                branch, children = protocol.after_repair(state, w, target)
+            for p, child, w2 in children:
+                branch += p * value(child, w2)
             total += prob * branch
-        memo[key] = total
+        memo[state] = total
         return total
 
-    total = 0.0
-    for key, w, p in _symptom_states(enum, enum.complaint()):
-        for target, o in sorted(key):
-            session.record_finding(target, o)
-        total += p * value(w)
-        for _ in key:
-            session.undo()
-    return float(total)
+    return float(sum(p * value(state, w) for p, state, w in protocol.start()))

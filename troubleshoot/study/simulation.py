@@ -14,19 +14,26 @@ The protocol of a case (the same for every strategy):
 2. Diagnosis: while the strategy names a check, the check is done and its
    outcome recorded. The strategy stops by naming none (the tool's rule
    stops when a suspect is isolated or no check gives ``min_bits`` bits).
-3. Repair: the first repairable entry of the session's repair order (P(failed)
-   / repair cost over the ambiguity group) is
-   repaired and the repair verified as the session asks (the repair's own
-   check if the model names one, then the unit itself). A failed
-   verification sends the case back to step 2 with the repair taken into
-   account (``checks_after_repair``, the tool's own behaviour), or, in the
-   repair-only protocol (where :mod:`troubleshoot.study.optimal` is exact), on to
-   the next repair in the order recomputed from the new findings. The case
-   ends when the unit is verified working; when the session isolates an
-   unlisted-cause event ("outside-model": the tool says the cause lies
-   outside the model, under that gate, and the technician escalates; not in
-   the repair-only protocol, whose exact counterpart has no such stop); when
-   no repairable suspect is left ("unresolved"); or at the step cap.
+3. Finish: when the strategy names no check, the policy
+   (:func:`troubleshoot.advice.policy.decide` with no check to weigh) says
+   whether to repair the next suspect of the repair order (P / (repair +
+   verification cost), Kadane & Simon 1977) or to escalate; a repair is
+   verified as the session asks (the repair's own check if the model names
+   one, then the unit itself). A failed verification sends the case back to
+   step 2 with the repair taken into account (``checks_after_repair``, the
+   tool's own behaviour), or, in the repair-only protocol, straight to the
+   next finishing step.
+
+A case ends ``confirmed`` (the unit verified working), ``escalated`` (the
+policy hands the unit over: the cause lies outside the model, or escalating
+is expected to cost less than going on; its price is counted), or
+``capped`` (the step cap: counted, and charged as an escalation, never cut
+short). A model without an escalation price is charged, for an escalation,
+its dearest repair with its verification
+(:func:`troubleshoot.advice.policy.escalation_charge`), so stopping early is
+never free. ``left-failed`` (a noisy verifying check passed while the unit
+still fails) and ``engine-refused`` (the network after a repair exceeded the
+engine's memory budget, charged as an escalation) are rare.
 
 Common random numbers: every draw of a case comes from generators seeded by
 (seed, case index, stream), so every strategy meets the same true state and,
@@ -48,6 +55,7 @@ from __future__ import annotations
 import math
 import os
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -58,9 +66,8 @@ from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.engine.observation import outcome_probabilities, sample_outcome
 from troubleshoot.model.gates import gate_values
 from troubleshoot.model import Model
+from troubleshoot.advice.policy import Action, escalation_charge
 from troubleshoot.session import (
-    AWAITING_VERIFICATION,
-    CONFIRMED,
     OBSERVATION,
     Session,
     SessionSettings,
@@ -71,7 +78,7 @@ from troubleshoot.session import (
 STREAM_TRUE_STATE, STREAM_OUTCOMES, STREAM_STRATEGY = 0, 1, 2
 
 #: How a case can end (see :class:`CaseResult`).
-OUTCOMES = ("confirmed", "outside-model", "left-failed", "unresolved", "engine-refused", "capped")
+OUTCOMES = ("confirmed", "escalated", "capped", "left-failed", "engine-refused")
 
 #: z of the two-sided 95% normal interval.
 Z95 = 1.96
@@ -181,7 +188,8 @@ class CaseResult:
     Attributes
     ----------
     cost : float
-        Checks, repairs and verifications, in the model's cost unit (the session's own count).
+        Checks, repairs and verifications (the session's own count), plus the
+        escalation when the unit was handed over, in the model's cost unit.
     checks : int
         Checks done (symptoms, read at the start for free, not counted).
     repairs : tuple of str
@@ -191,12 +199,13 @@ class CaseResult:
     wrong_repairs : int
         Repairs of roots that had not failed.
     outcome : str
-        ``confirmed`` (the unit works after the last repair), ``left-failed``
-        (a verification passed but the top event still occurs: possible when
-        a repair is verified by a noisy check), ``unresolved`` (no repairable
-        suspect left while the unit still fails), ``engine-refused`` (the
-        engine could not compile the network after a repair within its memory
-        budget) or ``capped`` (step cap hit).
+        ``confirmed`` (the unit works after the last repair), ``escalated``
+        (handed over; the escalation is in ``cost``), ``capped`` (step cap
+        hit; charged as an escalation), ``left-failed`` (a verification
+        passed but the top event still occurs: possible when a repair is
+        verified by a noisy check) or ``engine-refused`` (the engine could
+        not compile the network after a repair within its memory budget;
+        charged as an escalation).
     """
 
     cost: float
@@ -208,8 +217,8 @@ class CaseResult:
 
 
 def max_steps_for(model: Model) -> int:
-    """Step cap of a case: every check once, every root repaired and verified, and a margin."""
-    return len(model.checks) + len(model.symptoms) + 2 * len(model.hypotheses) + 10
+    """Step cap of a case: every check after every repair, every root repaired and verified, and a margin."""
+    return (len(model.checks) + 3) * (len(model.hypotheses) + 1) + 10
 
 
 def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Generator,
@@ -259,13 +268,17 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
     checks = sum(1 for o in session.view.record.observations
                  if o.kind == OBSERVATION and o.finding.target not in symptom_ids)
     repairs = session.repairs
-    isolated = session.view.isolated  # set when the case ended outside the model
+    cost = float(session.view.cost_spent)
+    if outcome in ("escalated", "capped", "engine-refused"):
+        # The unit is handed over: escalating is paid for, never left out.
+        cost += escalation_charge(model)
+    unlisted_failed = any(is_unlisted(model, r) for r in equipment.failed)
     return CaseResult(
-        cost=float(session.view.cost_spent),
+        cost=cost,
         checks=checks,
         repairs=repairs,
         first_repair_right=(repairs[0] in equipment.failed) if repairs else (
-            outcome == "outside-model" and isolated is not None and isolated.id in equipment.failed),
+            outcome == "escalated" and unlisted_failed),
         wrong_repairs=sum(1 for r in repairs if r not in equipment.failed),
         outcome=outcome,
     )
@@ -273,7 +286,12 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
 
 def _drive(session: Session, strategy, equipment: Equipment, rng, settings: SessionSettings,
            max_steps: int, checks_after_repair: bool = True) -> str:
-    """The steps of one case (see the module notes); returns how the case ended."""
+    """The steps of one case (see the module notes); returns how the case ended.
+
+    Every choice that is not the strategy's own (verify, repair which
+    suspect, escalate) is the policy's: :func:`troubleshoot.advice.policy.decide`
+    with no check left to weigh.
+    """
     model = session.model
     diagnosing = True
     epoch = session.epoch
@@ -282,10 +300,10 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
         if session.epoch != epoch:  # a repair was made (and its verification is under way)
             epoch = session.epoch
             diagnosing = checks_after_repair
-        status = view.status
-        if status == CONFIRMED:
+        decision = view.decision
+        if decision.action == Action.DONE:
             return "left-failed" if equipment.top_fails(session.repairs) else "confirmed"
-        if status == AWAITING_VERIFICATION:
+        if decision.action == Action.VERIFY:
             request = view.verification_request
             assert request is not None, "a repair awaits its verification"
             if request.target == model.top:
@@ -294,19 +312,16 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
                 result = equipment.answer(request.target, session.repairs)
             session.record_verification(result)
             continue
-        if checks_after_repair and view.isolated is not None and is_unlisted(model, view.isolated.id):
-            # The repair-only protocol (optimal's) has no such stop: repairs go on down the order.
-            return "outside-model"
         if diagnosing:
             choice = strategy.choose(view, rng)
             if choice is not None:
                 session.record_finding(choice, equipment.answer(choice, session.repairs))
                 continue
-            diagnosing = False
-        root = next_repair(model, view.suspects, settings.group_min_p)
-        if root is None:
-            return "unresolved"
-        session.record_repair(root)
+            diagnosing = checks_after_repair
+        finish = strategy.finish(view)
+        if finish.action == Action.ESCALATE:
+            return "escalated"
+        session.record_repair(finish.target)
     return "capped"
 
 
@@ -455,7 +470,7 @@ def _run_cases(span: tuple[int, int], job: SimulationJob) -> list[tuple[list[Cas
 CASES_PER_PIECE = 16
 
 
-def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str, dict | None]],
+def simulate(model: Model, cases: int, seed: int, strategy_specs: list[tuple[str, Any]],
              settings: SessionSettings | None = None, workers: int = 1, progress=None,
              checks_after_repair: bool = True, *, truth: Model | None = None, log_sink=None,
              executor=None) -> dict[str, list[CaseResult]]:

@@ -1,9 +1,11 @@
 """How to choose the next check: the tool's rule and the baselines it is measured against.
 
 A strategy looks at a :class:`~troubleshoot.session.SessionView` (the
-findings, the ranking of the remaining checks, the suspects and the session's
-status) and answers with a check id, or ``None`` for "stop checking and
-repair in the session's order". Every strategy except ``likeliest`` and
+findings, the ranking of the remaining checks, the suspects and the
+policy's decision) and answers with a check id, or ``None`` for "stop
+checking and finish": how to finish (repair the next suspect in the repair
+order, or escalate) is always the policy's
+(:func:`troubleshoot.advice.policy.decide`), for every strategy. Every strategy except ``likeliest`` and
 ``optimal`` keeps the session's stopping rule: it stops as soon as a suspect
 is isolated or the session finds no check worth doing (none gives
 ``min_bits`` bits, or none of the best few is expected to save more than it
@@ -19,6 +21,9 @@ name               next check
 ``cheapest``       cheapest check giving at least ``min_bits`` bits
 ``likeliest``      none: repair at once in order of P(failed) / repair cost
 ``random``         a check giving at least ``min_bits`` bits, uniformly at random
+``checklist``      the model's checks in the order the model lists them, each
+                   done unless already done, then the repair order; no value
+                   rule (a technician with a paper procedure)
 ``optimal``        the least-expected-cost policy (:mod:`troubleshoot.study.optimal`)
 =================  ===========================================================
 
@@ -42,10 +47,13 @@ import numpy as np
 
 from troubleshoot.advice.ties import tie_ranks
 from troubleshoot.errors import TroubleshootError
+from troubleshoot.advice.policy import Action, Alternative
+from troubleshoot.advice.repair import next_repair
 from troubleshoot.session import AMBIGUITY, DIAGNOSING, SessionView
 
 #: Every strategy name, in the order reports list them.
-STRATEGY_NAMES = ("info-per-cost", "info-per-cost-bits", "info", "cheapest", "likeliest", "random", "optimal")
+STRATEGY_NAMES = ("info-per-cost", "info-per-cost-bits", "info", "cheapest", "likeliest", "random", "checklist",
+                  "optimal")
 
 
 class Strategy(Protocol):
@@ -61,16 +69,9 @@ class Strategy(Protocol):
         """The action taken here; ``rng`` is the case's own generator (only ``random`` draws from it)."""
         ...
 
-
-def findings_key(view: SessionView) -> frozenset:
-    """The observations made before any repair, as a set of (check id, outcome index).
-
-    The complaint is left out (every session starts with it). The posterior
-    depends on the set of findings, not on their order, so this is the state
-    a policy is a function of.
-    """
-    return frozenset((o.finding.target, o.finding.outcome) for o in view.record.observations
-                     if o.finding.epoch == 0 and o.finding.target in view.model.check_by_id)
+    def finish(self, view: SessionView):
+        """When no check is named: repair (``action`` ``repair``, ``target``) or escalate."""
+        ...
 
 
 def _worth_doing(view: SessionView):
@@ -79,6 +80,10 @@ def _worth_doing(view: SessionView):
 
 class _Deterministic:
     name = ""
+
+    def finish(self, view: SessionView):
+        """How to finish when no check is named: the policy's choice (repair next, or escalate)."""
+        return view.finish
 
     def pick(self, view: SessionView) -> str | None:
         raise NotImplementedError
@@ -96,9 +101,8 @@ class InfoPerCost(_Deterministic):
     name = "info-per-cost"
 
     def pick(self, view):
-        if view.status != DIAGNOSING or view.recommended is None:
-            return None
-        return view.recommended.check
+        decision = view.decision
+        return decision.target if decision.action == Action.CHECK else None
 
 
 class InfoPerCostBitsOnly(_Deterministic):
@@ -157,6 +161,9 @@ class RandomCheck:
 
     name = "random"
 
+    def finish(self, view: SessionView):
+        return view.finish
+
     def _rows(self, view):
         if view.status != DIAGNOSING:
             return ()
@@ -175,34 +182,103 @@ class RandomCheck:
         return rows[int(rng.integers(len(rows)))]
 
 
-class PolicyStrategy(_Deterministic):
-    """A policy given as a table: findings key -> check id or None (see :func:`findings_key`).
+class Checklist(_Deterministic):
+    """The model's checks in the order it lists them, each done once, then the repair order.
 
-    A state the table does not hold (it had probability zero when the table
-    was computed) is answered with ``None``: repair.
+    A paper procedure: no ranking and no value rule. A check already done
+    (since the start, whatever the repairs) or skipped is passed over.
     """
 
-    def __init__(self, name: str, policy: dict):
-        self.name = name
-        self.policy = policy
+    name = "checklist"
+
+    def finish(self, view):
+        """The repair order to its end, then escalation: a paper procedure weighs no costs."""
+        target = next_repair(view.model, view.suspects, view.settings.group_min_p)
+        return Alternative(Action.REPAIR, target, None) if target is not None else Alternative(Action.ESCALATE, None, None)
 
     def pick(self, view):
-        if view.record.epoch > 0:  # the policy is over findings made before any repair
-            return None
-        return self.policy.get(findings_key(view))
+        done = {o.finding.target for o in view.record.observations}
+        skipped = {c for c, _ in view.record.skipped}
+        for check in view.model.checks:
+            if check.id not in done and check.id not in skipped:
+                return check.id
+        return None
 
 
-def make_strategy(name: str, optimal_policy: dict | None = None) -> Strategy:
-    """The strategy called ``name``; ``optimal`` needs the policy table of :func:`troubleshoot.study.optimal.solve`."""
-    simple: dict[str, Callable[[], Strategy]] = {
-        "info-per-cost": InfoPerCost, "info-per-cost-bits": InfoPerCostBitsOnly,
-        "info": MostInformative, "cheapest": Cheapest,
-        "likeliest": Likeliest, "random": RandomCheck,
-    }
+class OptimalStrategy:
+    """The exact optimal policy (:func:`troubleshoot.study.optimal.solve`), read from its table.
+
+    Checks, repairs and escalation all come from the table: the state of the
+    session is turned into the protocol's state and looked up.
+    """
+
+    name = "optimal"
+
+    def __init__(self, solution):
+        self.solution = solution
+
+    def _action(self, view: SessionView):
+        return self.solution.action(protocol_state(view))
+
+    def choices(self, view):
+        return [(1.0, self.choose(view, None))]
+
+    def choose(self, view, rng):
+        kind, target = self._action(view)
+        return target if kind == "check" else None
+
+    def finish(self, view):
+        kind, target = self._action(view)
+        if kind == "repair":
+            return Alternative(Action.REPAIR, target, None)
+        if kind == "check":  # the table wants a check the caller would not do: the policy's finish
+            return view.finish
+        return Alternative(Action.ESCALATE, None, None)
+
+
+def protocol_state(view: SessionView):
+    """The protocol state (:class:`troubleshoot.study.optimal.State`) of a session's view."""
+    from troubleshoot.study.optimal import State
+
+    return State(tuple((o.finding.target, o.finding.outcome, o.finding.epoch, o.kind)
+                       for o in view.record.observations), tuple(view.record.repairs))
+
+
+def protocol_actor(model, strategy: Strategy, settings, engine):
+    """A strategy as the exact evaluator sees it: protocol state -> [(probability, action)].
+
+    The state is turned into a session record and its view (one propagation,
+    remembered by the engine), and the strategy answers as it does in the
+    simulator: a check, or how to finish (repair which, or escalate).
+    """
+    from troubleshoot.engine.inference import Finding
+    from troubleshoot.session.session import Observation, Record
+
+    def act(state):
+        record = Record(tuple(Observation(Finding(t, o, e), kind) for t, o, e, kind in state.observations),
+                        tuple(state.repairs))
+        view = SessionView(model, engine, settings, record, engine.propagate(record.findings, record.repairs))
+        out: list[tuple[float, tuple[str, str | None]]] = []
+        for p, choice in strategy.choices(view):
+            if choice is not None:
+                out.append((p, ("check", choice)))
+                continue
+            finish = strategy.finish(view)
+            out.append((p, ("repair", finish.target) if finish.action == Action.REPAIR else ("escalate", None)))
+        return out
+
+    return act
+
+
+def make_strategy(name: str, optimal_policy=None) -> Strategy:
+    """The strategy called ``name``; ``optimal`` needs the solution of :func:`troubleshoot.study.optimal.solve`."""
+    simple: dict[str, Callable[[], Strategy]] = {"info-per-cost": InfoPerCost, "info-per-cost-bits": InfoPerCostBitsOnly,
+              "info": MostInformative, "cheapest": Cheapest,
+              "likeliest": Likeliest, "random": RandomCheck, "checklist": Checklist}
     if name in simple:
         return simple[name]()
     if name == "optimal":
         if optimal_policy is None:
             raise TroubleshootError("the optimal strategy needs its policy computed first")
-        return PolicyStrategy("optimal", optimal_policy)
+        return OptimalStrategy(optimal_policy)
     raise TroubleshootError(f"unknown strategy {name!r}; choose from {', '.join(STRATEGY_NAMES)}")

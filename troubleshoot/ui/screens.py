@@ -447,6 +447,19 @@ class MainScreen(Screen):
 
         self.tsapp.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
 
+    def action_escalate(self) -> None:
+        """Hand the unit over: the escalation, its price and the reason go to the log as a note."""
+        session = self.tsapp.session
+        model = session.model
+        state = session.state
+        what = model.escalation.label if model.escalation is not None else "hand the unit over beyond the model"
+        price = (f", {model.escalation.cost:g} {model.cost_unit}" if model.escalation is not None else "")
+        why = state.decision.reasons[0].text if state.decision is not None and state.decision.reasons else ""
+        text = (f"escalated: {what}{price}; cause outside the model with probability "
+                f"{state.outside_model_p:.2f}" + (f"; the tool said: {why}" if why else ""))
+        self.tsapp.perform("recording the escalation", lambda: session.add_note(text),
+                         done="Escalation recorded in the log; key q ends the session.")
+
     def action_help(self) -> None:
         self.tsapp.push_screen(HelpScreen(self.tsapp.session.engine.name))
 

@@ -1,0 +1,87 @@
+"""Escalation: the model element (format 1.1), the policy's choice, and the default without it.
+
+References: the expected cost of stopping after k repairs, written out in
+tests/test_repair_cost.py (Kadane & Simon 1977); FORMAT.md for the element
+and for the default (never chosen by cost, offered once the cause lies
+outside the model with probability at least the isolation threshold).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import re
+
+import pytest
+
+from troubleshoot.advice.policy import Action, decide, outside_model, settings_for
+from troubleshoot.engine.inference import Engine, Finding
+from troubleshoot.errors import ModelError
+from troubleshoot.model import BasicEvent, Cause, Check, Escalation, Gate, Model, Repair, Verification
+from troubleshoot.model.xmlfile import load_model, save_model
+from troubleshoot.session import Session
+
+
+def unit(escalation: float | None = 300.0) -> Model:
+    """Two listed parts with their checks, and causes outside the model under the top gate."""
+    events = (BasicEvent("fan", "fan motor failed", 0.05, repair=Repair("replace the fan motor", 60.0)),
+              BasicEvent("fuse", "fuse blown", 0.05, repair=Repair("replace the fuse", 10.0)))
+    checks = (Check("fan_turns", "does the fan turn by hand", 5.0, ("free", "seized"), (Cause("fan", 0.99),)),
+              Check("fuse_ok", "fuse continuity", 5.0, ("good", "open"), (Cause("fuse", 0.99),)))
+    return Model("unit", "top", (Gate("top", "no airflow", "or", ("fan", "fuse"), unlisted=0.05),), events,
+                 checks=checks, verification=Verification("run it", 10.0),
+                 escalation=None if escalation is None else Escalation("call the maker's engineer", escalation))
+
+
+def cleared(model: Model):
+    """Both listed parts checked and found sound: most of the posterior lies outside the model."""
+    engine = Engine(model)
+    post = engine.propagate([Finding("top", 1, 0), Finding("fan_turns", 0, 0), Finding("fuse_ok", 0, 0)])
+    return engine, post
+
+
+def test_escalates_with_the_cost_it_states_when_the_cause_is_outside():
+    model = unit(300.0)
+    engine, post = cleared(model)
+    out = outside_model(engine, post)
+    assert out.p > 0.9 and dict(out.by_gate)["top"] == pytest.approx(out.p)
+    decision = decide(engine, post, settings_for(model), ())
+    assert decision.action == Action.ESCALATE and decision.target is None
+    assert decision.expected_cost == pytest.approx(300.0)
+    assert "outside the model" in decision.reasons[0].text and "300 min" in decision.reasons[0].text
+    assert any(a.action == Action.REPAIR for a in decision.alternatives)
+
+
+def test_without_escalation_the_old_rule_holds_except_the_documented_stop():
+    model = unit(None)
+    engine = Engine(model)
+    start = engine.propagate([Finding("top", 1, 0)])
+    session = Session(model)
+    assert session.view.decision.action != Action.ESCALATE  # never chosen by cost
+    engine, post = cleared(model)
+    decision = decide(engine, post, settings_for(model), ())
+    # The documented stop: P(outside) >= the isolation threshold offers escalation, with no price.
+    assert decision.action == Action.ESCALATE and decision.expected_cost is None
+    assert all(a.expected_cost is None for a in decision.alternatives if a.action == Action.ESCALATE)
+    assert start.log_p < 0
+
+
+def test_escalation_round_trips_and_needs_format_1_1(tmp_path):
+    model = unit(300.0)
+    path = tmp_path / "unit.xml"
+    save_model(model, path)
+    text = path.read_text()
+    assert 'format-version="1.1"' in text and re.search(r'<escalation cost="300(\.0)?"', text)
+    assert load_model(path).escalation == model.escalation
+    path.write_text(text.replace('format-version="1.1"', 'format-version="1.0"'))
+    with pytest.raises(ModelError, match="escalation> belongs to format version 1.1"):
+        load_model(path)
+
+
+def test_a_1_0_file_means_what_it_meant():
+    from troubleshoot.model.demos import demo_path
+
+    model = load_model(demo_path("rooftop"))
+    old = dataclasses.replace(model, escalation=None)
+    session = Session(old)
+    assert session.state.decision.action == Action.CHECK
+    assert session.state.outside_model_p == pytest.approx(outside_model(session.engine, session.posterior).p)
