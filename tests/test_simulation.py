@@ -140,3 +140,21 @@ def test_plot_writes_a_png(tmp_path, capsys):
 def test_bad_arguments_exit_2_with_a_message(capsys):
     code, _, err = _run_cli(capsys, ["simulate", "rooftop", "--cases", "0"])
     assert code == 2 and "--cases must be at least 1" in err
+
+
+def test_cases_beyond_the_cap_are_refused_before_any_work(capsys):
+    # Issue reproducer: --cases 10^30 used to run unbounded.
+    code = main(["simulate", "rooftop", "--cases", str(10**30), "--seed", "1"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "--cases is at most" in err and "Traceback" not in err
+
+
+def test_a_bad_plot_path_is_refused_before_the_simulation(tmp_path, capsys):
+    # Issue reproducer: a --plot path in a missing folder failed only after the whole simulation.
+    missing = tmp_path / "no-such-folder" / "costs.png"
+    code = main(["simulate", "rooftop", "--cases", "50", "--seed", "1", "--plot", str(missing)])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "does not exist" in err
+    assert "simulating" not in err  # nothing was simulated

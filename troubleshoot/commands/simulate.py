@@ -14,7 +14,12 @@ import math
 import sys
 
 from troubleshoot.errors import TroubleshootError
+from troubleshoot.files import check_output_path
 from troubleshoot.progress import ProgressDisplay
+
+#: The most units one run simulates: beyond it a run takes days on a laptop
+#: (tens of milliseconds a unit) and its results would not fit in memory.
+MAX_CASES = 10_000_000
 
 
 class SimulationError(TroubleshootError):
@@ -59,6 +64,9 @@ def _check_arguments(args) -> None:
     problems = []
     if args.cases < 1:
         problems.append(f"--cases must be at least 1, not {args.cases}")
+    elif args.cases > MAX_CASES:
+        problems.append(f"--cases is at most {MAX_CASES:,} in one run, not {args.cases:,}; "
+                        "split the study into runs with different seeds")
     if args.seed < 0:
         problems.append(f"--seed must be 0 or more, not {args.seed}")
     if args.workers is not None and args.workers < 1:
@@ -69,6 +77,9 @@ def _check_arguments(args) -> None:
         problems.append(f"--plot writes a PNG: give a file name ending in .png, not {args.plot!r}")
     if problems:
         raise SimulationError("; ".join(problems))
+    if args.plot:
+        # Refused before the simulation, not after it: a bad path must not cost the whole run.
+        check_output_path(args.plot, "plot")
 
 
 def _require_matplotlib():
