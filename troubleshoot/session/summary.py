@@ -25,6 +25,7 @@ import datetime as _dt
 from pathlib import Path
 
 from troubleshoot.session.render import STATUS_SENTENCES
+from troubleshoot.advice.policy import Status
 
 __all__ = ["STATUS_SENTENCES", "ending", "summary_markdown", "summary_path", "write_summary"]
 
@@ -185,12 +186,12 @@ def ending(model, state, records=()) -> tuple[str, str]:
     end).
     """
     kinds = [r.get("action", {}).get("action") for r in records]
-    if state.status == "confirmed":
+    if state.status == Status.CONFIRMED:
         repaired = model.label_of(state.repairs[-1]) if state.repairs else "the repair"
         return "Confirmed", f"the unit works after the repair of {repaired}"
     if kinds and kinds[-1] == "escalate":
         return "Escalated", "handed over: the cause is beyond what this model covers"
-    if state.status == "ambiguity" and state.ambiguity_group:
+    if state.status == Status.AMBIGUITY and state.ambiguity_group:
         group = "; ".join(f"{s.label} ({_percent(s.p)})" for s in state.ambiguity_group)
         return ("Stopped with an ambiguity group",
                 f"no check left was worth its cost, and these suspects were not told apart: {group}")
@@ -237,7 +238,7 @@ def summary_markdown(model, state, log_path: str | Path | None = None,
     lines.append(f"- **Ending:** {headline} — {detail}")
 
     repaired = [model.label_of(r) for r in state.repairs]
-    if state.status == "confirmed" and repaired:
+    if state.status == Status.CONFIRMED and repaired:
         lines.append(f"- **Fault repaired and confirmed:** {repaired[-1]}")
         if len(repaired) > 1:
             lines.append(f"- **Repaired before it (fault persisted):** {'; '.join(repaired[:-1])}")

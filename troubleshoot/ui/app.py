@@ -25,6 +25,7 @@ from textual.binding import Binding
 from textual.notifications import SeverityLevel
 
 from troubleshoot.errors import TroubleshootError
+from troubleshoot.session import Status
 from troubleshoot.session.summary import parse_time, summary_markdown, write_summary
 from troubleshoot.ui.screens import (
     CheckCard,
@@ -167,7 +168,7 @@ class TroubleshootApp(App[int]):
             self.say(done)
         if then is not None:
             self.call_after_refresh(then)  # after a dialog dismissed just before is gone
-        if self.state is not None and self.state.status == "confirmed" and before != "confirmed":
+        if self.state is not None and self.state.status == Status.CONFIRMED and before != Status.CONFIRMED:
             self.show_summary()
 
     def _show_busy(self) -> None:

@@ -19,6 +19,7 @@ from textual.screen import ModalScreen, Screen
 from textual.widgets import DataTable, Footer, Input, Markdown, OptionList, Static
 from textual.widgets.option_list import Option
 
+from troubleshoot.session import Status
 from troubleshoot.ui.widgets import (
     ChecksTable,
     DiagnosisPanel,
@@ -267,7 +268,7 @@ class MainScreen(Screen):
         state = self.tsapp.state
         # The verify key is shown only while a repair awaits its verification.
         if action == "verify":
-            return state is not None and state.status == "awaiting-verification"
+            return state is not None and state.status == Status.AWAITING_VERIFICATION
         return True
 
     def _highlighted_row(self):

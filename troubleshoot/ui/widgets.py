@@ -18,6 +18,8 @@ from textual.containers import VerticalScroll
 from textual.coordinate import Coordinate
 from textual.widgets import DataTable, Static
 
+from troubleshoot.session import Status
+
 #: Eighths of a cell, for probability bars finer than one character.
 _BAR_EIGHTHS = " ▏▎▍▌▋▊▉"
 #: The empty part of a bar: a visible track, so its length reads without colour.
@@ -25,11 +27,11 @@ _BAR_TRACK = "░"
 
 #: What each session status is called on screen, with a symbol that carries it without colour.
 STATUS_WORDS = {
-    "diagnosing": "● DIAGNOSING",
-    "isolated": "◆ FAULT ISOLATED",
-    "ambiguity": "◇ AMBIGUITY GROUP",
-    "awaiting-verification": "▲ VERIFY THE REPAIR",
-    "confirmed": "✔ REPAIR CONFIRMED",
+    Status.DIAGNOSING: "● DIAGNOSING",
+    Status.ISOLATED: "◆ FAULT ISOLATED",
+    Status.AMBIGUITY: "◇ AMBIGUITY GROUP",
+    Status.AWAITING_VERIFICATION: "▲ VERIFY THE REPAIR",
+    Status.CONFIRMED: "✔ REPAIR CONFIRMED",
 }
 
 
@@ -168,15 +170,15 @@ def why_line(state) -> str:
     """One line saying what to do next and why, in the technician's words, from the policy's decision."""
     unit = state.cost_unit
     decision = state.decision
-    if state.status == "diagnosing":
+    if state.status == Status.DIAGNOSING:
         if state.why is not None:
             return state.why.text
         nxt = state.next_check
         return f"next: {nxt.label} ({cost_text(nxt.cost, unit)})" if nxt is not None else ""
-    if state.status == "awaiting-verification":
+    if state.status == Status.AWAITING_VERIFICATION:
         v = state.verification
         return f"check that the repair worked: {v.label} ({cost_text(v.cost, unit)})"
-    if state.status == "confirmed":
+    if state.status == Status.CONFIRMED:
         return "the unit works: the repair is confirmed"
     if decision is not None and decision.action == "escalate":
         reason = decision.reasons[0] if decision.reasons else None
@@ -191,7 +193,7 @@ def why_line(state) -> str:
     if step is None:
         return "no check is worth its time now and the model lists no repair: hand the unit over"
     job = f"{step.repair_label} ({cost_text(step.cost, unit)})"
-    if state.status == "isolated" and state.isolated is not None and state.isolated.id == step.id:
+    if state.status == Status.ISOLATED and state.isolated is not None and state.isolated.id == step.id:
         return f"{step.label} stands at {percent(step.p)}: repair it — {job}"
     finish = ""
     if decision is not None and decision.expected_cost is not None:
@@ -202,21 +204,21 @@ def why_line(state) -> str:
 def diagnosis_text(state) -> str:
     """What the diagnosis says now, in words: the status, what to do next and why."""
     word = STATUS_WORDS.get(state.status, state.status)
-    if state.status == "diagnosing":
+    if state.status == Status.DIAGNOSING:
         nxt = state.next_check
         if nxt is None:
             return f"{word} — no check is left; record a repair (key r)."
         # A non-breaking space keeps each percentage whole when the line wraps.
         return f"Do the first check. Why: {why_line(state)}".replace(" %", "\u00a0%")
-    if state.status == "isolated":
+    if state.status == Status.ISOLATED:
         return f"{word} — {why_line(state)}. Key r records the repair."
-    if state.status == "ambiguity":
+    if state.status == Status.AMBIGUITY:
         lines = [f"{word} — {why_line(state)}. Repair order (key r):"]
         lines += repair_order_lines(state, limit=3)
         return "\n".join(lines)
-    if state.status == "awaiting-verification":
+    if state.status == Status.AWAITING_VERIFICATION:
         return f"{word} — {why_line(state)}. Key v opens it; if the fault persists the diagnosis goes on."
-    if state.status == "confirmed":
+    if state.status == Status.CONFIRMED:
         return f"{word} — the unit works. Key q quits; the summary is written beside the log."
     return word
 
