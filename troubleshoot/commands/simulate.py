@@ -261,13 +261,14 @@ def _print_table(model, args, summaries, exact, best, optimal) -> None:
     print("First repair right: share of units whose first repair was of a component that had failed (or, with "
           "no repair, whose cause was rightly isolated outside the model).")
     print()
-    header = f"{'strategy':<17} {'mean cost':>14} {'95% interval':>24} {'checks':>7} {'first repair right':>19} " \
+    width = max(17, *(len(name) for name in summaries))
+    header = f"{'strategy':<{width}} {'mean cost':>14} {'95% interval':>24} {'checks':>7} {'first repair right':>19} " \
              f"{'wrong repairs':>14}"
     if exact:
         header += f" {'exact expected':>16} {'vs optimal':>11}"
     print(header)
     for name, s in summaries.items():
-        line = (f"{name:<17} {s.mean_cost:>10.1f} {unit:<3} {s.ci95[0]:>9.1f} to {s.ci95[1]:>7.1f} {unit:<3} "
+        line = (f"{name:<{width}} {s.mean_cost:>10.1f} {unit:<3} {s.ci95[0]:>9.1f} to {s.ci95[1]:>7.1f} {unit:<3} "
                 f"{s.mean_checks:>7.2f} {100 * s.accuracy:>17.1f} % {s.wrong_repairs:>9.2f}/unit")
         if exact:
             value = exact.get(name)
