@@ -28,7 +28,7 @@ import numpy as np
 
 from troubleshoot.errors import TroubleshootError
 from troubleshoot.model import Model
-from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective
+from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective, depth_first_roots
 
 #: Node id of the constant function "never fails".
 FALSE = 0
@@ -64,23 +64,7 @@ def variable_order(model: Model) -> tuple[str, ...]:
     A. Rauzy, Reliability Engineering and System Safety 40(3), 1993 (section on
     variable ordering: depth-first left-most heuristic).
     """
-    order: list[str] = []
-    seen: set[str] = set()
-    stack = [model.top]
-    gates = model.gate_by_id
-    while stack:
-        node = stack.pop()
-        if node in seen:
-            continue
-        seen.add(node)
-        gate = gates.get(node)
-        if gate is None:
-            order.append(node)
-            continue
-        children = list(connective(gate).operands)
-        # Pushed in reverse so the first operand is visited first.
-        stack.extend(reversed(children))
-    return tuple(order)
+    return depth_first_roots(model)
 
 
 class NodeStore:

@@ -66,7 +66,7 @@ import numpy as np
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.engine.observation import CheckFamily, check_family
 from troubleshoot.model import Model
-from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective
+from troubleshoot.model.gates import AND, ATLEAST, NOT, OR, bottom_up, connective, depth_first_roots
 
 #: The name this path reports (``suggest --json`` key ``engine``).
 ENGINE_NAME = "decision diagram"
@@ -99,22 +99,9 @@ def _deep(depth: int):
 
 def root_order(model: Model) -> tuple[str, ...]:
     """Every root event, depth-first from the top (Rauzy 1993), then any root the top does not read."""
-    order: list[str] = []
-    seen: set[str] = set()
-    stack = [model.top]
-    gates = model.gate_by_id
-    while stack:
-        node = stack.pop()
-        if node in seen:
-            continue
-        seen.add(node)
-        gate = gates.get(node)
-        if gate is None:
-            order.append(node)
-            continue
-        stack.extend(reversed(connective(gate).operands))
-    order += [r for r in model.hypotheses if r not in seen]
-    return tuple(order)
+    order = depth_first_roots(model)
+    under_top = set(order)
+    return order + tuple(r for r in model.hypotheses if r not in under_top)
 
 
 class DiagramStore:
