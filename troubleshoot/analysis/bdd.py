@@ -23,6 +23,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -65,6 +66,30 @@ def variable_order(model: Model) -> tuple[str, ...]:
     variable ordering: depth-first left-most heuristic).
     """
     return depth_first_roots(model)
+
+
+def fold_children_first(f: int, low, high, cache: dict, combine) -> Any:
+    """``cache[n] = combine(n, cache[low[n]], cache[high[n]])`` for every node under ``f``, children first.
+
+    An explicit stack, so a diagram's depth is limited by memory, not by
+    Python's recursion limit; ``cache`` must already hold the terminals.
+    """
+    stack = [f]
+    while stack:
+        n = stack[-1]
+        if n in cache:
+            stack.pop()
+            continue
+        lo, hi = cache.get(low[n]), cache.get(high[n])
+        if lo is None or hi is None:
+            if lo is None:
+                stack.append(low[n])
+            if hi is None:
+                stack.append(high[n])
+            continue
+        stack.pop()
+        cache[n] = combine(n, lo, hi)
+    return cache[f]
 
 
 class NodeStore:
@@ -205,23 +230,8 @@ class Diagram(NodeStore):
 
     def not_(self, f: int) -> int:
         """Negation of a function (explicit stack, children first)."""
-        cache = self._not_cache
-        stack = [f]
-        while stack:
-            n = stack[-1]
-            if n in cache:
-                stack.pop()
-                continue
-            lo, hi = cache.get(self.low[n]), cache.get(self.high[n])
-            if lo is None or hi is None:
-                if lo is None:
-                    stack.append(self.low[n])
-                if hi is None:
-                    stack.append(self.high[n])
-                continue
-            stack.pop()
-            cache[n] = self.node(self.var[n], lo, hi)
-        return cache[f]
+        return fold_children_first(f, self.low, self.high, self._not_cache,
+                                    lambda n, lo, hi: self.node(self.var[n], lo, hi))
 
     def at_least(self, k: int, operands: list[int]) -> int:
         """At least ``k`` of the operand functions hold (a voting gate).

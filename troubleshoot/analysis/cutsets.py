@@ -30,7 +30,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.analysis.bdd import FALSE, TRUE, FaultTreeBdd, NodeStore
+from troubleshoot.analysis.bdd import FALSE, TRUE, FaultTreeBdd, NodeStore, fold_children_first
 from troubleshoot.model import Model
 
 #: Empty family of sets.
@@ -160,23 +160,8 @@ class CutSetFamily(NodeStore):
         first on an explicit stack.
         """
         d = self.bdd.diagram
-        cache = self._minimal_cache
-        stack = [f]
-        while stack:
-            n = stack[-1]
-            if n in cache:
-                stack.pop()
-                continue
-            low, high = cache.get(d.low[n]), cache.get(d.high[n])
-            if low is None or high is None:
-                if low is None:
-                    stack.append(d.low[n])
-                if high is None:
-                    stack.append(d.high[n])
-                continue
-            stack.pop()
-            cache[n] = self._node(d.var[n], low, self._without(high, low))
-        return cache[f]
+        return fold_children_first(f, d.low, d.high, self._minimal_cache,
+                                    lambda n, low, high: self._node(d.var[n], low, self._without(high, low)))
 
     def _bottom_up(self) -> list[int]:
         seen = set()
