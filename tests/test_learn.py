@@ -399,9 +399,13 @@ def test_local_processes_redo_the_work_of_a_dead_worker(tmp_path):
     assert sorted(seen) == list(range(8))  # every piece taken exactly once: nothing counted twice
 
 
-def test_same_numbers_in_process_and_in_local_processes(tmp_path):
+def test_same_numbers_in_process_and_in_local_processes(tmp_path, monkeypatch):
+    from troubleshoot.study import learn as learn_module
     from troubleshoot.study.simulation import simulate
 
+    # Small pieces, so the E-step and the reading are cut into several, summed in their order.
+    monkeypatch.setattr(learn_module, "ROWS_PER_PIECE", 5)
+    monkeypatch.setattr(learn_module, "LOGS_PER_PIECE", 7)
     model, _ = load_any_model("rooftop")
     logs: dict = {}
     simulate(model, 40, 3, [("info-per-cost", None)], log_sink=lambda c, b: logs.__setitem__(c, b))

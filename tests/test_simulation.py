@@ -158,3 +158,45 @@ def test_a_bad_plot_path_is_refused_before_the_simulation(tmp_path, capsys):
     assert code == 2
     assert "does not exist" in err
     assert "simulating" not in err  # nothing was simulated
+
+
+class _RecordingLog:
+    """Stands in for a session log writer: keeps each action with what the session showed after it."""
+
+    def __init__(self):
+        from troubleshoot.session.logfile import snapshot
+
+        self._snapshot = snapshot
+        self.lines: list = []
+
+    def write_action(self, action, view):
+        self.lines.append((action, self._snapshot(view)))
+
+    def close(self):
+        pass
+
+
+def test_remembered_views_and_draws_change_no_result():
+    # The per-worker memos (views by record content, draws by what was drawn before) only save work:
+    # every case, every logged snapshot and every draw is the same with them as without them.
+    from troubleshoot.model.source import load_any_model
+    from troubleshoot.study.simulation import STREAM_STRATEGY, ViewMemo, run_case
+
+    model, _ = load_any_model("rooftop")
+    engine = Engine(model)
+    settings = settings_for(model)
+    views = ViewMemo(capacity=40)  # small, so views are forgotten and met again too
+    draws: dict = {}
+    for name in ("info-per-cost", "random"):
+        strategy = make_strategy(name, None)
+        for case in range(30):
+            plain, remembered = draw_case(engine, 5, case), draw_case(engine, 5, case, draws)
+            assert plain.failed == remembered.failed and np.array_equal(plain.uniforms, remembered.uniforms)
+            logs = (_RecordingLog(), _RecordingLog())
+            a = run_case(engine, strategy, plain, case_generator(5, case, STREAM_STRATEGY), settings,
+                         log=lambda session, log=logs[0]: log)
+            b = run_case(engine, strategy, remembered, case_generator(5, case, STREAM_STRATEGY), settings,
+                         log=lambda session, log=logs[1]: log, views=views)
+            assert a == b
+            assert logs[0].lines == logs[1].lines
+    assert views.hits > 0 and views.misses > 0

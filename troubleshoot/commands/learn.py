@@ -98,11 +98,16 @@ def run(args) -> int:
     if args.json:
         data = learn_report.as_json(result, args.output)
         data["seconds"] = elapsed
+        data["sessions_per_second"] = result.sessions / elapsed if elapsed > 0 else None
+        data["sessions_per_second_per_worker"] = (result.sessions / elapsed / result.workers
+                                                  if elapsed > 0 else None)
         print(json.dumps(data, indent=2))
     else:
         skipped = len({p.path for p in result.problems if p.kind != "torn"})
         print(f"Learned {model.name} from {result.sessions:,} sessions ({result.distinct:,} distinct) of "
-              f"{result.logs:,} logs in {elapsed:.1f} s on {result.where}: {result.iterations} EM iterations, "
+              f"{result.logs:,} logs in {elapsed:.1f} s on {result.where} "
+              f"({result.sessions / max(elapsed, 1e-9):,.0f} sessions/s, reading {result.seconds_reading:.1f} s, "
+              f"EM {result.seconds_em:.1f} s): {result.iterations} EM iterations, "
               f"log-likelihood {result.log_likelihood:,.4f}.")
         if skipped:
             print(f"{skipped} log(s) left out (see the report for each and why).")

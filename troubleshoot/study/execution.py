@@ -82,52 +82,64 @@ class InProcess:
 
 
 class LocalProcesses(InProcess):
-    """Runs the pieces on ``workers`` processes of this machine; results in the order of the pieces."""
+    """Runs the pieces on ``workers`` processes of this machine; results in the order of the pieces.
+
+    Piece i always goes to process i mod ``workers`` (each process has its own queue), so a
+    process meets the same pieces in every round of an iterative job (each EM iteration) and
+    reuses what it built for them (compiled join trees); the results do not depend on it.
+    """
 
     def __init__(self, workers: int):
         self.workers = int(workers)
         self.where = f"{self.workers} local processes"
-        self._pool: ProcessPoolExecutor | None = None
+        self._pools: list[ProcessPoolExecutor | None] = [None] * self.workers
 
     def _new_pool(self) -> ProcessPoolExecutor:
         method = "spawn" if sys.platform == "win32" else "fork"
-        return ProcessPoolExecutor(self.workers, mp_context=multiprocessing.get_context(method))
+        return ProcessPoolExecutor(1, mp_context=multiprocessing.get_context(method))
 
     def map(self, fn: Callable, items: Sequence, shared: Any = None, progress: Progress | None = None,
             on_result: Callable[[int, Any], Any] | None = None) -> list:
         results: dict[int, Any] = {}
         restarts = 0
         while len(results) < len(items):
-            if self._pool is None:
-                self._pool = self._new_pool()
             pending = {}
-            try:
-                for i, item in enumerate(items):
-                    if i not in results:
-                        pending[self._pool.submit(fn, item, shared)] = i
-                while pending:
-                    done, _ = wait(pending, return_when=FIRST_COMPLETED)
-                    for future in done:
-                        i = pending.pop(future)
+            for i, item in enumerate(items):
+                if i not in results:
+                    w = i % self.workers
+                    if self._pools[w] is None:
+                        self._pools[w] = self._new_pool()
+                    pending[self._pools[w].submit(fn, item, shared)] = i
+            broken: set[int] = set()
+            while pending:
+                done, _ = wait(pending, return_when=FIRST_COMPLETED)
+                for future in done:
+                    i = pending.pop(future)
+                    try:
                         result = future.result()  # a piece is taken once, when it returns
-                        results[i] = on_result(i, result) if on_result is not None else result
-                        if progress is not None:
-                            progress(len(results), len(items))
-            except BrokenProcessPool:
-                # A worker died: the pieces it held (and any queued) never returned; run them again.
-                self._pool.shutdown(wait=False, cancel_futures=True)
-                self._pool = None
+                    except BrokenProcessPool:
+                        broken.add(i % self.workers)  # the process died: its pieces are run again
+                        continue
+                    results[i] = on_result(i, result) if on_result is not None else result
+                    if progress is not None:
+                        progress(len(results), len(items))
+            if broken:
+                for w in broken:
+                    pool = self._pools[w]
+                    if pool is not None:
+                        pool.shutdown(wait=False, cancel_futures=True)
+                    self._pools[w] = None
                 restarts += 1
                 if restarts > LOCAL_RESTARTS:
                     raise ExecutionError(f"worker processes died {restarts} times; {len(items) - len(results)} "
-                                         "pieces of work could not be run (out of memory? try fewer --workers)") \
-                        from None
+                                         "pieces of work could not be run (out of memory? try fewer --workers)")
         return [results[i] for i in range(len(items))]
 
     def close(self) -> None:
-        if self._pool is not None:
-            self._pool.shutdown(wait=True, cancel_futures=True)
-            self._pool = None
+        for w, pool in enumerate(self._pools):
+            if pool is not None:
+                pool.shutdown(wait=True, cancel_futures=True)
+            self._pools[w] = None
 
 
 class DaskCluster(InProcess):

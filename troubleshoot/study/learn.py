@@ -49,6 +49,7 @@ from __future__ import annotations
 import hashlib
 import math
 import threading
+import time
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -73,9 +74,9 @@ TOLERANCE = 1e-7
 #: ... or after this many iterations.
 MAX_ITERATIONS = 500
 #: E-step rows per piece of work (fixed: the pieces never depend on the workers).
-ROWS_PER_PIECE = 200
+ROWS_PER_PIECE = 64
 #: Log files per piece of reading.
-LOGS_PER_PIECE = 500
+LOGS_PER_PIECE = 250
 #: A session "informs" a root event when it moves its probability by at least this much.
 INFORMS = 0.01
 #: Central interval reported for every learned figure.
@@ -559,6 +560,9 @@ class FleetEngine(Engine):
         self._structures = {} if structures is None else structures
         #: (repairs, check, epoch) -> which causes are present in each state of the check's family.
         self.presence = self._structures.setdefault("presence", {})
+        #: Check families under these figures, by (check, epoch, the nodes its causes stand on): most
+        #: trees fold a check onto the same nodes, so one family (and its likelihood) serves them all.
+        self.families: dict = {}
         super().__init__(model)
 
     def compiled(self, repairs, past_targets=frozenset()):
@@ -576,8 +580,19 @@ class FleetEngine(Engine):
                 canonical = self._structures["canonical"] = _CanonicalEngine(self.model)
             known = _Structure(*canonical.compiled(repairs, everything))
             self._structures[key] = known
-        self._trees[key] = known.refit(self.model)
+        self._trees[key] = known.refit(self.model, self.families)
         return self._trees[key]
+
+    def _evidence(self, net, tree, finding):
+        # A tree serves every session with its repairs: a finding's likelihood, placed in its clique,
+        # is the same for all of them (the factor is only read by the propagation).
+        memo = getattr(tree, "evidence_memo", None)
+        if memo is None:
+            return super()._evidence(net, tree, finding)
+        found = memo.get(finding)
+        if found is None:
+            found = memo[finding] = super()._evidence(net, tree, finding)
+        return found
 
 
 class _CanonicalEngine(Engine):
@@ -597,11 +612,12 @@ class _CanonicalEngine(Engine):
 class _Families(dict):
     """A network's check families, each built when first asked for (EM reads only the checks made)."""
 
-    def __init__(self, net, model: Model, keys):
+    def __init__(self, net, model: Model, keys, shared: dict | None = None):
         super().__init__()
         self._net = net
         self._model = model
         self._keys = tuple(keys)
+        self._shared = {} if shared is None else shared
 
     def items(self):
         for key in self._keys:  # a reader of every family (the batch ranking) gets every one
@@ -612,7 +628,12 @@ class _Families(dict):
         from troubleshoot.engine.observation import check_family
 
         check, epoch = self._model.check_by_id[key[0]], key[1]
-        family = check_family(check, epoch, lambda target: self._net.node_for(target, epoch))
+        nodes = tuple(self._net.node_for(c.target, epoch) for c in check.causes)
+        folded = (check.id, epoch, nodes)
+        family = self._shared.get(folded)
+        if family is None:
+            family = self._shared[folded] = check_family(check, epoch, dict(zip((c.target for c in check.causes),
+                                                                                 nodes)).__getitem__)
         self[key] = family
         return family
 
@@ -632,21 +653,23 @@ class _Structure:
             shape[tree.cliques[c].index(i)] = 2
             self.slots.append((r, int(tree.offsets[c]), int(tree.offsets[c + 1]), tree.shapes[c], tuple(shape)))
 
-    def refit(self, model: Model):
+    def refit(self, model: Model, families: dict | None = None):
         """The network and tree with ``model``'s figures: root tables into their cliques, families anew.
 
         The network's graph stays the structure's (its root tables are the 1/2 it was compiled
-        with); inference reads only the tree's potentials and the families.
+        with); inference reads only the tree's potentials and the families. ``families`` holds
+        check families already built under the same figures (shared between trees).
         """
         import copy
 
         net = copy.copy(self.net)
         net.model = model
-        net.families = _Families(net, model, self.net.families)
+        net.families = _Families(net, model, self.net.families, families)
         tree = copy.copy(self.tree)
         tree.network = net
-        tree.families = _Families(net, model, self.tree.families)
+        tree.families = _Families(net, model, self.tree.families, families)
         tree._batch_plans = {}  # they hold the check tables of the figures compiled with
+        tree.evidence_memo = {}  # FleetEngine's: each finding's likelihood in this tree
         base = self.tree.base.copy()
         for root, start, stop, clique_shape, shape in self.slots:
             p = model.prior_of(root)
@@ -896,6 +919,10 @@ class LearnResult:
     dates: tuple
     model_sha256: str
     where: str
+    #: Wall-clock seconds spent reading the logs and in EM (E-steps, M-steps, the report's counts).
+    seconds_reading: float = 0.0
+    seconds_em: float = 0.0
+    workers: int = 1
 
 
 def read_sessions(model: Model, model_sha: str, paths: list[str], executor=None,
@@ -948,13 +975,18 @@ def learn(model: Model, model_sha: str, paths: list[str], *, prior_weight: float
     LearnError
         No usable session, or a bad prior weight or exposure.
     """
+    started = time.perf_counter()
     sessions, problems = read_sessions(model, model_sha, paths, executor, progress)
+    reading = time.perf_counter() - started
+    if progress is not None and paths:
+        progress(f"read {len(paths):,} logs in {reading:.1f} s ({len(paths) / max(reading, 1e-9):,.0f} logs/s)")
     if not sessions:
         raise LearnError(f"none of the {len(paths)} log(s) given is a usable session of model {model.name!r}"
                          + (f" (first problem: {problems[0].message})" if problems else ""))
-    return learn_sessions(model, sessions, model_sha=model_sha, problems=problems, logs=len(paths),
-                          prior_weight=prior_weight, exposure=exposure, executor=executor, progress=progress,
-                          max_iterations=max_iterations, tolerance=tolerance)
+    result = learn_sessions(model, sessions, model_sha=model_sha, problems=problems, logs=len(paths),
+                            prior_weight=prior_weight, exposure=exposure, executor=executor, progress=progress,
+                            max_iterations=max_iterations, tolerance=tolerance)
+    return replace(result, seconds_reading=reading)
 
 
 def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, model_sha: str = "",
@@ -974,6 +1006,7 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
     executor = executor or InProcess()
     problems = list(problems or [])
     logs = len(sessions) if logs is None else logs
+    em_started = time.perf_counter()
 
     # Identical sessions are one row; rows sorted by their repairs so a piece compiles few join trees.
     rows: dict = {}
@@ -996,6 +1029,7 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
 
     def em_step(params: Parameters):
         """One E-step at ``params`` and the M-step after it: (counts, objective, next figures)."""
+        started = time.perf_counter()
         while True:
             current = model_with(model, params)
             engine = FleetEngine(current, structures)
@@ -1028,8 +1062,10 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
         state["previous"] = objective
         history.append((len(history), log_lik, change))
         if progress is not None:
+            seconds = time.perf_counter() - started
             progress(f"EM iteration {len(history) - 1}: log-likelihood {log_lik:,.4f}"
-                     + ("" if math.isnan(change) else f", change {change:+.3g}"))
+                     + ("" if math.isnan(change) else f", change {change:+.3g}")
+                     + f"; E-step {seconds:.2f} s, {counts.sessions / max(seconds, 1e-9):,.0f} sessions/s")
         # M-step: every figure its Beta / Dirichlet posterior mean.
         working = engine.propagate([Finding(model.top, 0, 0)]).root_marginals() if p_top < 1.0 \
             else np.zeros_like(params.roots)
@@ -1077,8 +1113,9 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
     kept = set(keys)
     used = [(p, d) for p, d in sessions if (d.findings, d.repairs) in kept] if dropped else sessions
     problems.extend(dropped)
-    return _result(model, model_sha, params, before, prior, final_counts, used, problems, iteration, converged,
-                   history, prior_weight, exposure, unseen, p_top0, len(keys), logs, executor.where)
+    result = _result(model, model_sha, params, before, prior, final_counts, used, problems, iteration, converged,
+                     history, prior_weight, exposure, unseen, p_top0, len(keys), logs, executor.where)
+    return replace(result, seconds_em=time.perf_counter() - em_started, workers=executor.workers)
 
 
 def _result(model, model_sha, params, before, prior, counts, sessions, problems, iterations, converged, history,

@@ -71,6 +71,9 @@ def as_json(result: LearnResult, output: str) -> dict:
         "outside_model": _outside(result),
         "false_alarms_above_model": [f.check for f in false_alarms_above_model(result)],
         "ran_on": result.where,
+        "workers": result.workers,
+        "seconds_reading": result.seconds_reading,
+        "seconds_em": result.seconds_em,
     }
 
 

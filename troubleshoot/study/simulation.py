@@ -54,6 +54,7 @@ from __future__ import annotations
 
 import math
 import os
+from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any
 
@@ -73,12 +74,16 @@ from troubleshoot.session import (
     SessionSettings,
     settings_for,
 )
+from troubleshoot.session.session import Record, SessionView
 
 # Streams of a case's random numbers (the third word of the seed sequence).
 STREAM_TRUE_STATE, STREAM_OUTCOMES, STREAM_STRATEGY = 0, 1, 2
 
 #: How a case can end (see :class:`CaseResult`).
 OUTCOMES = ("confirmed", "escalated", "capped", "left-failed", "engine-refused")
+
+#: Session views a worker process remembers (see :class:`ViewMemo`).
+VIEWS_PER_WORKER = 20000
 
 #: z of the two-sided 95% normal interval.
 Z95 = 1.96
@@ -89,8 +94,16 @@ def case_generator(seed: int, case: int, stream: int) -> np.random.Generator:
     return np.random.default_rng(np.random.SeedSequence([int(seed), int(case), int(stream)]))
 
 
-def sample_true_state(engine: Engine, rng: np.random.Generator) -> frozenset[str]:
+def sample_true_state(engine: Engine, rng: np.random.Generator, memo: dict | None = None) -> frozenset[str]:
     """Draw which roots have failed, exactly from P(roots | top event occurred).
+
+    Parameters
+    ----------
+    engine : Engine
+    rng : numpy.random.Generator
+    memo : dict, optional
+        P(F_i | top, F_1..F_(i-1)) already worked out with this engine, by the values drawn before:
+        most units share their first draws, so one propagation serves many (the same numbers).
 
     Notes
     -----
@@ -107,18 +120,23 @@ def sample_true_state(engine: Engine, rng: np.random.Generator) -> frozenset[str
     rule of probability.
     """
     model = engine.model
+    memo = {} if memo is None else memo
     findings = [Finding(model.top, 1, 0)]
-    posterior = engine.propagate(findings)
+    posterior, posterior_of = None, -1
     failed = []
     for root in model.hypotheses:
-        p = posterior.p_failed(root, 0)
+        key = (tuple(findings), root)
+        p = memo.get(key)
+        if p is None:
+            if posterior_of != len(findings):
+                posterior, posterior_of = engine.propagate(findings), len(findings)
+            p = memo[key] = posterior.p_failed(root, 0)
         u = rng.random()
         value = int(u < p)
         if value:
             failed.append(root)
         if 0.0 < p < 1.0:
             findings.append(Finding(root, value, 0))
-            posterior = engine.propagate(findings)
     return frozenset(failed)
 
 
@@ -138,12 +156,15 @@ class Equipment:
         The roots truly failed.
     uniforms : numpy.ndarray
         Shape (epochs, checks): the uniform draw for check j done at epoch k.
+    memo : dict, optional
+        P(outcome) of a check by its causes' true values, shared between units of one model.
     """
 
-    def __init__(self, model: Model, failed: frozenset[str], uniforms: np.ndarray):
+    def __init__(self, model: Model, failed: frozenset[str], uniforms: np.ndarray, memo: dict | None = None):
         self.model = model
         self.failed = failed
         self.uniforms = uniforms
+        self._memo = {} if memo is None else memo
         self._column = {c.id: j for j, c in enumerate(model.checks + model.symptoms)}
         self._values: dict[frozenset, dict[str, bool]] = {}
 
@@ -157,7 +178,12 @@ class Equipment:
         """P(outcome) of a check given the true state (:mod:`troubleshoot.engine.observation`)."""
         check = self.model.check_by_id[check_id]
         values = self.values(repaired)
-        return outcome_probabilities(check, [values[c.target] for c in check.causes])
+        causes = tuple(values[c.target] for c in check.causes)
+        key = (check_id, causes)
+        found = self._memo.get(key)
+        if found is None:
+            found = self._memo[key] = outcome_probabilities(check, list(causes))
+        return found
 
     def p_abnormal(self, check_id: str, repaired: tuple[str, ...]) -> float:
         """P(any abnormal outcome) of a check given the true state."""
@@ -172,13 +198,18 @@ class Equipment:
         return bool(self.values(repaired)[self.model.top])
 
 
-def draw_case(engine: Engine, seed: int, case: int) -> Equipment:
-    """The true state and outcome draws of one case (from (seed, case) only)."""
+def draw_case(engine: Engine, seed: int, case: int, memo: dict | None = None) -> Equipment:
+    """The true state and outcome draws of one case (from (seed, case) only).
+
+    ``memo`` (a dict kept for one engine) holds probabilities already worked out for earlier units;
+    the draws are the same with or without it.
+    """
     model = engine.model
-    failed = sample_true_state(engine, case_generator(seed, case, STREAM_TRUE_STATE))
+    memo = {} if memo is None else memo
+    failed = sample_true_state(engine, case_generator(seed, case, STREAM_TRUE_STATE), memo.setdefault("roots", {}))
     n_checks = len(model.checks) + len(model.symptoms)
     uniforms = case_generator(seed, case, STREAM_OUTCOMES).random((len(model.hypotheses) + 1, max(n_checks, 1)))
-    return Equipment(model, failed, uniforms)
+    return Equipment(model, failed, uniforms, memo.setdefault("outcomes", {}))
 
 
 @dataclass(frozen=True)
@@ -216,6 +247,66 @@ class CaseResult:
     outcome: str
 
 
+class ViewMemo:
+    """Session views by the content of their record, for one engine and one set of settings.
+
+    Many simulated units walk the same first steps (the same complaint and
+    symptoms, the same first checks with the same outcomes). A session's view
+    (its posterior, ranking, suspects and the policy's decision) depends only
+    on its record (findings in order, repairs, skipped checks), the model and
+    the settings, all pure (:mod:`troubleshoot.advice`), so a record met again
+    takes the view computed the first time: the same object, the same bits.
+    Only the speed depends on what is remembered, never a result. The least
+    recently used views are forgotten beyond ``capacity``.
+
+    Parameters
+    ----------
+    capacity : int
+        Views kept at most (each holds its posterior).
+    """
+
+    def __init__(self, capacity: int = 20000):
+        self.capacity = int(capacity)
+        self._views: OrderedDict[Record, SessionView] = OrderedDict()
+        self.hits = 0
+        self.misses = 0
+
+    def get(self, record: Record) -> SessionView | None:
+        view = self._views.get(record)
+        if view is None:
+            self.misses += 1
+            return None
+        self.hits += 1
+        self._views.move_to_end(record)
+        return view
+
+    def put(self, record: Record, view: SessionView) -> None:
+        self._views[record] = view
+        if len(self._views) > self.capacity:
+            self._views.popitem(last=False)
+
+
+class _SimulationEngine(Engine):
+    """An engine that keeps more compiled trees: a fleet of units needs one per repair sequence met."""
+
+    cache_size = 256
+
+
+class _RememberingSession(Session):
+    """A Session whose views come from a :class:`ViewMemo` when its record was met before."""
+
+    def __init__(self, model: Model, settings: SessionSettings, engine: Engine, views: ViewMemo):
+        self._memo = views
+        super().__init__(model, settings, engine)
+
+    def _make_view(self, record: Record) -> SessionView:
+        view = self._memo.get(record)
+        if view is None:
+            view = super()._make_view(record)
+            self._memo.put(record, view)
+        return view
+
+
 def max_steps_for(model: Model) -> int:
     """Step cap of a case: every check after every repair, every root repaired and verified, and a margin."""
     return (len(model.checks) + 3) * (len(model.hypotheses) + 1) + 10
@@ -223,7 +314,7 @@ def max_steps_for(model: Model) -> int:
 
 def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Generator,
              settings: SessionSettings, max_steps: int | None = None,
-             checks_after_repair: bool = True, log=None) -> CaseResult:
+             checks_after_repair: bool = True, log=None, views: ViewMemo | None = None) -> CaseResult:
     """Drive a Session with one strategy on one unit until the repair is confirmed.
 
     Parameters
@@ -245,6 +336,9 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
         Called with the new Session before its first action; returns the
         session log writer it then writes every action to (a simulated unit
         logged as a real session is).
+    views : ViewMemo, optional
+        Views of records already met (same engine and settings): a record met
+        again is not propagated nor decided again.
 
     Returns
     -------
@@ -252,7 +346,8 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
     """
     model = engine.model
     max_steps = max_steps_for(model) if max_steps is None else max_steps
-    session = Session(model, settings, engine)
+    session = Session(model, settings, engine) if views is None else _RememberingSession(model, settings, engine,
+                                                                                          views)
     if log is not None:
         session.log = log(session)
     for symptom in model.symptoms:
@@ -395,7 +490,7 @@ class SimulationJob:
     logs: bool = False
 
 
-# Per worker process: the last job's engines and strategies, built once.
+# Per worker process: the last job's engines, strategies and view memos, built once.
 _WORKER: dict = {}
 
 
@@ -405,9 +500,12 @@ def _worker_for(job: SimulationJob) -> dict:
     if _WORKER.get("job") != job:
         _WORKER.clear()
         _WORKER["job"] = job
-        _WORKER["engine"] = Engine(job.model)
-        _WORKER["truth"] = Engine(job.truth) if job.truth is not None else _WORKER["engine"]
+        _WORKER["engine"] = _SimulationEngine(job.model)
+        _WORKER["truth"] = _SimulationEngine(job.truth) if job.truth is not None else _WORKER["engine"]
+        _WORKER["draws"] = {}
         _WORKER["strategies"] = [make_strategy(name, policy) for name, policy in job.strategy_specs]
+        # A record's view is the same whichever strategy met it: one memo for them all.
+        _WORKER["views"] = ViewMemo(VIEWS_PER_WORKER)
     return _WORKER
 
 
@@ -429,7 +527,7 @@ def _run_one_case(case: int, job: SimulationJob) -> tuple[list[CaseResult], byte
     state = _worker_for(job)
     engine = state["engine"]
     # The unit obeys the truth (its faults and its checks' answers); the sessions reason with the model.
-    equipment = draw_case(state["truth"], job.seed, case)
+    equipment = draw_case(state["truth"], job.seed, case, state["draws"])
     out, log_bytes = [], None
     for index, strategy in enumerate(state["strategies"]):
         # Each strategy gets its own copy of the case's strategy stream, so
@@ -449,7 +547,8 @@ def _run_one_case(case: int, job: SimulationJob) -> tuple[list[CaseResult], byte
                 return writer
         try:
             out.append(run_case(engine, strategy, equipment, rng, job.settings,
-                                checks_after_repair=job.checks_after_repair, log=factory))
+                                checks_after_repair=job.checks_after_repair, log=factory,
+                                views=state["views"]))
         finally:
             if writer is not None:
                 writer.close()
