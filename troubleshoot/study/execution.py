@@ -107,9 +107,10 @@ class LocalProcesses(InProcess):
             for i, item in enumerate(items):
                 if i not in results:
                     w = i % self.workers
-                    if self._pools[w] is None:
-                        self._pools[w] = self._new_pool()
-                    pending[self._pools[w].submit(fn, item, shared)] = i
+                    pool = self._pools[w]
+                    if pool is None:
+                        pool = self._pools[w] = self._new_pool()
+                    pending[pool.submit(fn, item, shared)] = i
             broken: set[int] = set()
             while pending:
                 done, _ = wait(pending, return_when=FIRST_COMPLETED)

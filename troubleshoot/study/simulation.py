@@ -128,7 +128,7 @@ def sample_true_state(engine: Engine, rng: np.random.Generator, memo: dict | Non
         key = (tuple(findings), root)
         p = memo.get(key)
         if p is None:
-            if posterior_of != len(findings):
+            if posterior is None or posterior_of != len(findings):
                 posterior, posterior_of = engine.propagate(findings), len(findings)
             p = memo[key] = posterior.p_failed(root, 0)
         u = rng.random()
