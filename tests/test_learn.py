@@ -22,6 +22,7 @@ import bruteforce
 from randommodels import random_model
 from troubleshoot.cli import main
 from troubleshoot.engine.inference import Finding
+from troubleshoot.errors import ImpossibleFindings
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair
 from troubleshoot.model.source import load_any_model
 from troubleshoot.model.xmlfile import load_model, save_model
@@ -164,6 +165,85 @@ def test_refitted_trees_equal_fresh_ones():
     np.testing.assert_allclose(refitted.roots, fresh.roots, atol=1e-12)
     for a, b in zip(refitted.causes + refitted.leaks, fresh.causes + fresh.leaks):
         np.testing.assert_allclose(a, b, atol=1e-12)
+
+
+def _rooftop_sessions(count: int, seed: int):
+    """Sessions of simulated rooftop units (their findings and repairs), read back from their logs."""
+    from troubleshoot.study.simulation import simulate
+
+    model = load_any_model("rooftop")[0]
+    logs: dict = {}
+    simulate(model, count, seed, [("info-per-cost", None)], log_sink=lambda c, b: logs.__setitem__(c, b))
+    return model, [fold_actions(model, [line.action for line in _parse(data).actions]) for _, data in sorted(logs.items())]
+
+
+def _parse(data: bytes):
+    from troubleshoot.session.logfile import parse_log
+
+    return parse_log(data, "<simulated>")
+
+
+def test_many_sessions_at_once_equal_one_at_a_time():
+    # Reference: the engine's single propagation (itself checked against enumeration in test_propagation.py).
+    # Rows sharing their repairs propagate as one array; every count, weighted by how many identical
+    # sessions a row stands for, equals the weighted sum of the sessions' counts one at a time (1e-12).
+    from troubleshoot.study.learn import rows_counts
+
+    model, sessions = _rooftop_sessions(40, 21)
+    params = parameters_of(model)
+    engine = FleetEngine(model)
+    prior = engine.propagate([Finding(model.top, 1, 0)]).root_marginals()
+    by_repairs: dict = {}
+    for i, data in enumerate(sessions):
+        by_repairs.setdefault(data.repairs, []).append((data, float(1 + i % 4)))
+    assert max(len(rows) for rows in by_repairs.values()) > 3
+    together, alone = Counts.zeros(params), Counts.zeros(params)
+    for rows in by_repairs.values():
+        assert rows_counts(engine, params, rows, together, prior) == []
+        for data, weight in rows:
+            single = Counts.zeros(params)
+            session_counts(FleetEngine(model), params, data, 1.0, single, prior)
+            single.settle(params)
+            alone.roots += weight * single.roots
+            alone.log_p += weight * single.log_p
+            alone.sessions += weight * single.sessions
+            alone.root_informed += weight * single.root_informed
+            alone.check_made += weight * single.check_made
+            for mine, theirs in zip(alone.leaks + alone.causes, single.leaks + single.causes):
+                mine += weight * theirs
+    together.settle(params)
+    assert together.sessions == alone.sessions == sum(w for rows in by_repairs.values() for _, w in rows)
+    assert together.log_p == pytest.approx(alone.log_p, rel=1e-12)
+    np.testing.assert_allclose(together.roots, alone.roots, rtol=1e-12, atol=1e-12)
+    np.testing.assert_array_equal(together.root_informed, alone.root_informed)
+    np.testing.assert_array_equal(together.check_made, alone.check_made)
+    for a, b in zip(together.leaks + together.causes, alone.leaks + alone.causes):
+        np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-12)
+
+
+def test_an_impossible_row_is_refused_and_the_others_counted():
+    from troubleshoot.study.learn import model_with, rows_counts
+
+    model = load_any_model("rooftop")[0]
+    params = parameters_of(model)
+    # No check ever reads abnormal under these figures (every detection and false alarm zero).
+    zero = replace(params, leaks=tuple(np.where(np.arange(a.size) == 0, 1.0, 0.0) for a in params.leaks),
+                   causes=tuple(np.where(np.arange(a.shape[1])[None, :] == 0, 1.0, 0.0) * np.ones_like(a)
+                                for a in params.causes))
+    silent = model_with(model, zero)
+    top = model.top
+    good = [(SessionData((Finding(top, 1, 0), Finding("filter_inspect", 0, 0), Finding("weak_airflow", 0, 0)), ()), 2.0),
+            (SessionData((Finding(top, 1, 0), Finding("blower_belt_inspect", 0, 0)), ()), 1.0)]
+    bad = SessionData((Finding(top, 1, 0), Finding("filter_inspect", 1, 0)), ())
+    counts, plain = Counts.zeros(zero), Counts.zeros(zero)
+    assert rows_counts(FleetEngine(silent), zero, [good[0], (bad, 5.0), good[1]], counts) == [1]
+    for data, weight in good:
+        session_counts(FleetEngine(silent), zero, data, weight, plain)
+    assert counts.sessions == plain.sessions == 3.0
+    assert counts.log_p == pytest.approx(plain.log_p, rel=1e-12)
+    np.testing.assert_allclose(counts.roots, plain.roots, rtol=1e-12, atol=1e-15)
+    with pytest.raises(ImpossibleFindings):
+        session_counts(FleetEngine(silent), zero, bad, 1.0, Counts.zeros(zero))
 
 
 def test_noisy_max_counts_equal_enumeration():

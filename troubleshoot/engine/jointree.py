@@ -1031,6 +1031,92 @@ class JoinTree:
                 work[lev.lo : lev.hi] *= ratio.repeat(lev.block_sizes)
         return Calibrated(self, work, new, log_p)
 
+    def separator_sum_plans(self) -> list:
+        """Per level, per round of :meth:`propagate`'s distribute pass: (length, order, block starts, targets).
+
+        The gather of a round sorted once (stable), so each separator entry's sum over many rows is one
+        ``reduceat`` block. Built on first use and kept (a shallow copy of the tree shares it).
+        """
+        plans = self.__dict__.get("_many_plans")
+        if plans is None:
+            plans = []
+            for lev in self._levels:
+                rounds = []
+                for length, gather in lev.rounds:
+                    order = np.argsort(gather, kind="stable")
+                    ordered = gather[order]
+                    change = np.ones(len(ordered), dtype=bool)
+                    change[1:] = ordered[1:] != ordered[:-1]
+                    starts = np.flatnonzero(change)
+                    rounds.append((length, order, starts, ordered[starts]))
+                plans.append(rounds)
+            self.__dict__["_many_plans"] = plans
+        return plans
+
+    def propagate_many(self, count: int, evidence) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """:meth:`propagate` for ``count`` sets of evidence at once, each a row of one array per table.
+
+        Parameters
+        ----------
+        count : int
+            Rows (sets of evidence).
+        evidence : iterable of (Evidence, rows)
+            Each likelihood with the rows (integer array) it belongs to.
+
+        Returns
+        -------
+        work : numpy.ndarray, shape (count, entries)
+            Row r: the calibrated clique tables of row r's evidence (layout of :attr:`base`).
+        log_p : numpy.ndarray, shape (count,)
+            log P(evidence) per row.
+        possible : numpy.ndarray of bool, shape (count,)
+            False where a row's evidence has probability zero (its tables mean nothing).
+
+        Notes
+        -----
+        The same level plans as :meth:`propagate`, each step one whole-array
+        operation over every row (so a fleet of sessions sharing a tree costs
+        a handful of numpy calls per level, not per session); separator sums
+        that :meth:`propagate` gathers with ``bincount`` are sorted once into
+        ``reduceat`` blocks. Rows never mix: each row's numbers do not depend
+        on the other rows.
+        """
+        offsets, shapes = self.offsets, self.shapes
+        work = np.tile(self.base, (count, 1))
+        for ev, rows in evidence:
+            c = ev.clique
+            lo, hi = int(offsets[c]), int(offsets[c + 1])
+            block = work[rows, lo:hi].reshape((len(rows),) + tuple(shapes[c]))
+            work[rows, lo:hi] = (block * ev.factor[None]).reshape(len(rows), hi - lo)
+        plans = self.separator_sum_plans()
+        n_sep = int(self._sep_offsets[-1])
+        old = np.empty((count, n_sep))
+        z = np.empty((count, len(self.cliques)))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            for lev in reversed(self._levels):
+                raw = np.add.reduceat(work[:, lev.lo : lev.hi], lev.block_starts, axis=1)
+                old[:, lev.sep_lo : lev.sep_hi] = raw
+                zl = np.add.reduceat(raw, lev.sep_starts, axis=1)
+                z[:, lev.first : lev.last] = zl
+                msg = raw / np.repeat(zl, lev.sep_counts, axis=1)
+                for length, gather in lev.rounds:
+                    work[:, lev.parent_lo : lev.parent_lo + length] *= msg[:, gather]
+            end = int(self.offsets[self._roots_end])
+            zr = np.add.reduceat(work[:, :end], self._root_starts, axis=1) if end else np.zeros((count, 0))
+            z[:, : self._roots_end] = zr
+            work[:, :end] /= np.repeat(zr, self._root_sizes, axis=1)
+            possible = np.all(z > 0.0, axis=1)  # also catches NaN from 0/0 below an impossible finding
+            log_p = np.log(np.where(possible[:, None], z, 1.0)).sum(axis=1)
+            old += old == 0.0
+            for lev, rounds in zip(self._levels, plans):
+                sep = np.zeros((count, lev.sep_hi - lev.sep_lo))
+                for length, order, starts, targets in rounds:
+                    block = work[:, lev.parent_lo : lev.parent_lo + length][:, order]
+                    sep[:, targets] += np.add.reduceat(block, starts, axis=1)
+                ratio = sep / old[:, lev.sep_lo : lev.sep_hi]
+                work[:, lev.lo : lev.hi] *= np.repeat(ratio, lev.block_sizes, axis=1)
+        return work, log_p, possible
+
     def max_propagate(self, evidence: list[Evidence]) -> tuple[dict[int, int], float]:
         """The most probable joint state of every variable with the evidence: max-product collect, then decode.
 

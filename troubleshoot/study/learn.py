@@ -430,6 +430,12 @@ class Counts:
         self.root_informed += other.root_informed
         self.check_made += other.check_made
         self.refused.extend(other.refused)
+        for key, (present, weights) in other.pending.items():
+            slot = self.pending.get(key)
+            if slot is None:
+                self.pending[key] = [present, weights]
+            else:
+                slot[1] = slot[1] + weights
 
     def settle(self, params: Parameters) -> Counts:
         """Turn the summed cause-state weights into expected outcome counts of every leak and cause."""
@@ -511,19 +517,19 @@ def hidden_outcome_counts(present: np.ndarray, weights: np.ndarray, leak: np.nda
     return counts[0], counts[1:].reshape(n_causes, K)
 
 
-def _cause_presence(engine, posterior, check, epoch: int) -> np.ndarray:
+def _cause_presence(engine, net, repairs, check, epoch: int) -> np.ndarray:
     """(S, I) bool: for each joint state of the check's family nodes at ``epoch``, which causes are present."""
     cache = getattr(engine, "presence", None)
-    key = (posterior.repairs[:epoch], check.id, epoch)
+    key = (tuple(repairs[:epoch]), check.id, epoch)
     if cache is not None and key in cache:
         return cache[key]
-    fam = posterior.family(check.id, epoch)
+    fam = net.families[(check.id, epoch)]
     m = len(fam.nodes)
     states = np.arange(2**m)
     bits = ((states[:, None] >> (m - 1 - np.arange(m))) & 1).astype(bool) if m else np.zeros((1, 0), bool)
     cols = []
     for cause in check.causes:
-        node = posterior.network.node_for(cause.target, epoch)
+        node = net.node_for(cause.target, epoch)
         if isinstance(node, bool):
             cols.append(np.full(len(states), node))
         else:
@@ -643,6 +649,7 @@ class _Structure:
 
     def __init__(self, net, tree):
         self.net, self.tree = net, tree
+        tree.separator_sum_plans()  # built once here, shared by every refitted copy
         self.slots = []
         for r in net.model.hypotheses:
             if r not in tree.index:
@@ -703,30 +710,124 @@ def session_counts(engine: Engine, params: Parameters, data: SessionData, weight
     """Add one session's expected counts (times ``weight``, identical sessions) to ``into``.
 
     The checks' counts are pending until ``into.settle(params)``.
+
+    Raises
+    ------
+    ImpossibleFindings
+        The session's findings have probability zero under the figures.
+    """
+    if rows_counts(engine, params, [(data, weight)], into, prior_marginals):
+        engine.propagate(data.findings, data.repairs)  # raises, naming the findings in conflict
+        raise ImpossibleFindings(["the findings"])  # pragma: no cover - the engine raised already
+
+
+def rows_counts(engine: FleetEngine, params: Parameters, rows, into: Counts,
+                prior_marginals: np.ndarray | None = None) -> list[int]:
+    """Add the expected counts of sessions that share their repairs, propagated together.
+
+    Parameters
+    ----------
+    engine : FleetEngine
+    params : Parameters
+        The figures ``engine`` holds.
+    rows : list of (SessionData, float)
+        Sessions, all with the same repairs, and their weights (how many identical sessions).
+    into : Counts
+        Where each row's counts, times its weight, are added (checks pending until ``settle``).
+    prior_marginals : numpy.ndarray, optional
+        P(root failed | complaint) under the figures, to count the sessions informing each root.
+
+    Returns
+    -------
+    list of int
+        Positions of the rows whose findings are impossible under the figures (nothing added for them).
+
+    Notes
+    -----
+    One join tree serves every session with the same repairs (:class:`FleetEngine`), so the rows
+    are propagated as one array (:meth:`troubleshoot.engine.jointree.JoinTree.propagate_many`).
+    Everything added is linear in the weights: the root marginals, log P(findings), and for each
+    (check, epoch, outcome) the weighted sum of the check's clique tables, marginalised once to
+    its causes' joint.
     """
     model = engine.model
-    post = engine.propagate(data.findings, data.repairs)
-    marg = post.root_marginals()
-    into.roots += weight * marg
-    into.log_p += weight * post.log_p
-    into.sessions += weight
+    repairs = tuple(rows[0][0].repairs)
+    now = len(repairs)
+    findings = [tuple(engine.implied_dropped(d.findings)) for d, _ in rows]
+    net, tree = engine.compiled(repairs, frozenset((f.target, f.epoch) for fs in findings for f in fs
+                                                   if f.epoch < now))
+    count = len(rows)
+    log_constant = np.zeros(count)
+    refused: set[int] = set()
+    placed: dict = {}
+    for r, fs in enumerate(findings):
+        for f in fs:
+            ev = engine._evidence(net, tree, f)
+            if getattr(ev, "clique", None) is None:  # a constant likelihood (the finding reads a constant)
+                if ev.value <= 0.0:
+                    refused.add(r)
+                else:
+                    log_constant[r] += float(np.log(ev.value))
+                continue
+            slot = placed.get(f)
+            if slot is None:
+                placed[f] = (ev, [r])
+            else:
+                slot[1].append(r)
+    work, log_p, possible = tree.propagate_many(count, [(ev, np.array(rs, dtype=np.int64))
+                                                        for ev, rs in placed.values()])
+    refused |= {r for r in range(count) if not possible[r]}
+    keep = np.array([r not in refused for r in range(count)])
+    weights = np.array([float(w) for _, w in rows]) * keep
+    # Root marginals of every row, from each root's clique (its table is the posterior joint).
+    marg = np.empty((count, len(model.hypotheses)))
+    for k, r in enumerate(model.hypotheses):
+        i = tree.index[r]
+        c = int(tree.var_host[i])
+        axis = tree.cliques[c].index(i)
+        size = len(tree.cliques[c])
+        block = work[:, int(tree.offsets[c]):int(tree.offsets[c + 1])]
+        marg[:, k] = block.reshape(count, 1 << axis, 2, 1 << (size - 1 - axis))[:, :, 1, :].sum(axis=(1, 2))
+    marg = np.clip(marg, 0.0, 1.0)
+    marg[~keep] = 0.0
+    into.roots += (weights[:, None] * marg).sum(axis=0)
+    into.log_p += float(np.sum(np.where(keep, weights * (log_p + log_constant), 0.0)))
+    into.sessions += float(weights.sum())
     if prior_marginals is not None:
-        into.root_informed += weight * (np.abs(marg - prior_marginals) >= INFORMS)
+        into.root_informed += (weights[:, None] * (np.abs(marg - prior_marginals) >= INFORMS)).sum(axis=0)
+    # Each check made: the weighted sum of its family's clique tables, per (repairs before, check, epoch, outcome).
     index = _check_index(model)
-    for f in data.findings:
-        j = index.get(f.target)
-        if j is None:
+    groups: dict = {}
+    for r, (data, _) in enumerate(rows):
+        if not keep[r]:
             continue
-        check = model.check_by_id[f.target]
-        joint, _ = post.check_family(check.id, f.epoch)
+        for f in data.findings:
+            j = index.get(f.target)
+            if j is None:
+                continue
+            groups.setdefault((f.target, f.epoch, f.outcome, j), []).append(r)
+    for (target, epoch, outcome, j), rs in groups.items():
+        check = model.check_by_id[target]
+        fam = net.families[(target, epoch)]
+        picked = np.array(rs, dtype=np.int64)
+        w = weights[picked]
+        into.check_made[j] += float(w.sum())
+        if fam.nodes:
+            c, drop, perm = tree.joint_plan(tuple(fam.nodes))
+            table = (w[:, None] * work[picked, int(tree.offsets[c]):int(tree.offsets[c + 1])]).sum(axis=0)
+            table = table.reshape(tree.shapes[c])
+            summed = table.sum(axis=drop) if drop else table
+            joint = (np.transpose(summed, perm) if perm is not None else summed).ravel()
+        else:
+            joint = np.array([float(w.sum())])
         # What the check read then depends on the repairs made before it, not after.
-        key = (data.repairs[: f.epoch], j, f.epoch, _levels(check).index(f.outcome))
+        key = (repairs[:epoch], j, epoch, _levels(check).index(outcome))
         slot = into.pending.get(key)
         if slot is None:
-            into.pending[key] = [_cause_presence(engine, post, check, f.epoch), weight * joint]
+            into.pending[key] = [_cause_presence(engine, net, repairs, check, epoch), joint]
         else:
-            slot[1] = slot[1] + weight * joint
-        into.check_made[j] += weight
+            slot[1] = slot[1] + joint
+    return sorted(refused)
 
 
 def _levels(check) -> tuple[int, ...]:
@@ -744,13 +845,27 @@ def _estep_piece(piece, shared) -> Counts:
     token, model, params, prior_marginals = shared
     engine = _engine_for(token, model)
     counts = Counts.zeros(params)
-    for index, data, weight in piece:
+    start = 0
+    while start < len(piece):
+        # The rows are sorted by their repairs: each run of equal repairs is one batch.
+        stop = start + 1
+        while stop < len(piece) and piece[stop][1].repairs == piece[start][1].repairs:
+            stop += 1
+        batch = piece[start:stop]
         try:
-            session_counts(engine, params, data, float(weight), counts, prior_marginals)
-        except (ImpossibleFindings, SessionError):
-            counts.refused.append(index)
+            refused = rows_counts(engine, params, [(d, float(w)) for _, d, w in batch], counts, prior_marginals)
+            counts.refused.extend(batch[r][0] for r in refused)
+        except SessionError:
+            # A row the engine refuses outright (a finding dated after its repairs...): row by row, to name it.
+            for index, data, weight in batch:
+                try:
+                    if rows_counts(engine, params, [(data, float(weight))], counts, prior_marginals):
+                        counts.refused.append(index)
+                except SessionError:
+                    counts.refused.append(index)
+        start = stop
     engine.forget()
-    return counts.settle(params)
+    return counts  # pending: settled once all pieces are summed
 
 
 def _unflat(template: Parameters, flat: np.ndarray) -> Parameters:
@@ -1040,6 +1155,8 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
             counts = Counts.zeros(params)
             for piece_counts in results:
                 counts.add(piece_counts)
+            # The hidden outcome counts are linear in the summed weights: worked out once per E-step.
+            counts.settle(params)
             if not counts.refused:
                 break
             # Findings the model calls impossible: name the logs, leave them out, redo this E-step.
