@@ -80,12 +80,13 @@ def run(args) -> int:
     paths = log_files(args.logs)
     if not paths:
         raise LearnError(f"no session log (*.jsonl) found in {', '.join(args.logs)}")
-    started = time.perf_counter()
+    started, cpu_started = time.perf_counter(), _cpu_seconds()
     with executor_for(args.workers, args.scheduler) as executor, \
             ProgressDisplay(f"learning {model.name}", unit="session logs read") as progress:
         result = learn(model, sha, paths, prior_weight=args.prior_weight, exposure=args.exposure,
                        executor=executor, progress=progress)
     elapsed = time.perf_counter() - started
+    cpu = _cpu_seconds() - cpu_started  # this process and its local workers (ended by now), not a cluster's
     save_model(result.learned, args.output)
     if args.report:
         _write(args.report, learn_report.markdown(result, args.output))
@@ -101,6 +102,8 @@ def run(args) -> int:
         data["sessions_per_second"] = result.sessions / elapsed if elapsed > 0 else None
         data["sessions_per_second_per_worker"] = (result.sessions / elapsed / result.workers
                                                   if elapsed > 0 else None)
+        data["cpu_seconds"] = cpu
+        data["sessions_per_cpu_second"] = result.sessions / cpu if cpu > 0 else None
         print(json.dumps(data, indent=2))
     else:
         skipped = len({p.path for p in result.problems if p.kind != "torn"})
@@ -117,6 +120,14 @@ def run(args) -> int:
         print(f"Wrote {args.output}" + (f" and {args.report}" if args.report else "")
               + (f" and {args.plot}" if args.plot else "") + ".")
     return 0
+
+
+def _cpu_seconds() -> float:
+    """CPU time of this process and of its child processes that have ended (user + system), in seconds."""
+    import resource
+
+    own, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+    return own.ru_utime + own.ru_stime + kids.ru_utime + kids.ru_stime
 
 
 def _write(path: str, text: str) -> None:
