@@ -58,6 +58,7 @@ import numpy as np
 
 from troubleshoot.advice.repair import top_verification, verification_for
 from troubleshoot.engine.inference import Engine, Finding
+from troubleshoot.engine.jointree import Evidence
 from troubleshoot.errors import (
     ImpossibleFindings,
     LogError,
@@ -721,7 +722,7 @@ def session_counts(engine: Engine, params: Parameters, data: SessionData, weight
         raise ImpossibleFindings(["the findings"])  # pragma: no cover - the engine raised already
 
 
-def rows_counts(engine: FleetEngine, params: Parameters, rows, into: Counts,
+def rows_counts(engine: Engine, params: Parameters, rows, into: Counts,
                 prior_marginals: np.ndarray | None = None) -> list[int]:
     """Add the expected counts of sessions that share their repairs, propagated together.
 
@@ -763,7 +764,7 @@ def rows_counts(engine: FleetEngine, params: Parameters, rows, into: Counts,
     for r, fs in enumerate(findings):
         for f in fs:
             ev = engine._evidence(net, tree, f)
-            if getattr(ev, "clique", None) is None:  # a constant likelihood (the finding reads a constant)
+            if not isinstance(ev, Evidence):  # a constant likelihood (the finding reads a constant)
                 if ev.value <= 0.0:
                     refused.add(r)
                 else:
@@ -781,8 +782,8 @@ def rows_counts(engine: FleetEngine, params: Parameters, rows, into: Counts,
     weights = np.array([float(w) for _, w in rows]) * keep
     # Root marginals of every row, from each root's clique (its table is the posterior joint).
     marg = np.empty((count, len(model.hypotheses)))
-    for k, r in enumerate(model.hypotheses):
-        i = tree.index[r]
+    for k, root in enumerate(model.hypotheses):
+        i = tree.index[root]
         c = int(tree.var_host[i])
         axis = tree.cliques[c].index(i)
         size = len(tree.cliques[c])
