@@ -567,9 +567,23 @@ class Passes:
         P(root failed | findings) by level.
     """
 
-    def __init__(self, cm: CompiledModel, root: int):
-        s = cm.store
+    def __init__(self, cm: CompiledModel, root: int, priors: np.ndarray | None = None,
+                 like: Passes | None = None):
         self.cm, self.root = cm, root
+        #: P(root failed) by level that the passes weigh with: the model's
+        #: priors, or (``weighted``) with some roots fixed by exact observations.
+        self.p = cm.priors if priors is None else np.asarray(priors, dtype=float)
+        self.weighted = priors is not None
+        if like is not None and like.root == root:
+            self._share(like)
+        else:
+            self._structure()
+        self._values()
+
+    def _structure(self) -> None:
+        """The reachable nodes bottom-up and their children, which depend on the diagram only."""
+        cm, root = self.cm, self.root
+        s = cm.store
         n_levels = s.n_levels
         # Reachable nodes, bottom-up (by level, deepest first).
         seen = {root}
@@ -593,25 +607,40 @@ class Passes:
         hi = np.array([pos[high[i]] if inner_i else -1 for i, inner_i in zip(ids.tolist(), inner.tolist())], np.int64)
         self.ids, self.lv, self.lo, self.hi, self.pos = ids, lv, lo, hi, pos
         count = len(ids)
-        up = np.zeros(count)
         leaves = ~inner
-        up[leaves] = [s.value[i] for i in ids[leaves]]
+        self._leaf_values = np.array([s.value[i] for i in ids[leaves]], dtype=float)
         # Groups of one level, deepest first.
         bounds = np.flatnonzero(np.diff(lv)) + 1
         starts = np.concatenate(([0], bounds))
         ends = np.concatenate((bounds, [count]))
-        groups = [(int(lv[a]), a, b) for a, b in zip(starts, ends) if lv[a] < n_levels]
-        p = cm.priors
-        for level, a, b in groups:
-            up[a:b] = p[level] * up[hi[a:b]] + (1.0 - p[level]) * up[lo[a:b]]
+        self._groups = [(int(lv[a]), a, b) for a, b in zip(starts, ends) if lv[a] < n_levels]
         deepest = np.full(count, -1, dtype=np.int64)
-        for level, a, b in groups:
+        for level, a, b in self._groups:
             deepest[a:b] = np.maximum(level, np.maximum(deepest[hi[a:b]], deepest[lo[a:b]]))
         self.deepest = deepest
         self.deepest_list = deepest.tolist()
+        self._inner = inner
+
+    def _share(self, other: Passes) -> None:
+        """The structure of another pass over the same diagram (only the weights differ)."""
+        for name in ("ids", "lv", "lo", "hi", "pos", "_leaf_values", "_groups", "deepest", "deepest_list",
+                     "_inner"):
+            setattr(self, name, getattr(other, name))
+
+    def _values(self) -> None:
+        """The upward pass (P(findings)), the downward pass and every root's posterior, with weights ``p``."""
+        n_levels = self.cm.store.n_levels
+        ids, lv, lo, hi, pos, inner = self.ids, self.lv, self.lo, self.hi, self.pos, self._inner
+        groups = self._groups
+        count = len(ids)
+        up = np.zeros(count)
+        up[~inner] = self._leaf_values
+        p = self.p
+        for level, a, b in groups:
+            up[a:b] = p[level] * up[hi[a:b]] + (1.0 - p[level]) * up[lo[a:b]]
         self.up_list = up.tolist()
         self._pairs: dict = {}
-        r = pos[root]
+        r = pos[self.root]
         self.up = up
         self.p_evidence = float(up[r])
         if not self.p_evidence > 0.0:
@@ -624,7 +653,6 @@ class Passes:
             np.add.at(down, lo[a:b], d * (1.0 - p[level]))
         self.down = down
         # Root marginals: mass through nodes of that level plus edges skipping it.
-        n_inner = int(inner.sum())
         par = np.arange(count)[inner]
         plv = lv[inner]
         pw = p[plv]
@@ -643,7 +671,6 @@ class Passes:
         failed = p * skipped
         np.add.at(failed, plv, down[par] * pw * up[hi[inner]])
         self.root_marginals = np.clip(failed / self.p_evidence, 0.0, 1.0)
-        del n_inner
 
     def max_state(self) -> tuple[np.ndarray, float]:
         """The most probable joint state of the roots with the findings, and log P(state, findings).
@@ -653,7 +680,11 @@ class Passes:
         """
         cm, lv, lo, hi, ids = self.cm, self.lv, self.lo, self.hi, self.ids
         n_levels = cm.store.n_levels
-        p, free = cm.priors, cm._free_log
+        p = self.p
+        if self.weighted:
+            free = np.concatenate(([0.0], np.cumsum(np.log(np.maximum(p, 1.0 - p)))))
+        else:
+            free = cm._free_log
         count = len(ids)
         with np.errstate(divide="ignore"):
             best = np.full(count, -np.inf)
@@ -705,6 +736,7 @@ class Passes:
         s = self.cm.store
         n_levels = s.n_levels
         var, low, high = s.var, s.low, s.high
+        assert not self.weighted, "pair walks read the priors of the cause diagrams"
         up, pos, ids, p = self.up, self.pos, self.ids, self.cm.priors
         memo: dict = {}
 
@@ -796,6 +828,7 @@ class Passes:
             return float(g)
         if low[g] == 0 and high[g] == 1:
             return float(self.root_marginals[var[g]])
+        assert not self.weighted, "pair walks read the priors of the cause diagrams"
         up, pos, p, deepest = self.up_list, self.pos, cm.priors, self.deepest_list
         prior, known = cm.prior, cm._prior
         # One memo for every walk over this evidence: the gates' diagrams
@@ -850,6 +883,7 @@ class Passes:
         brings there.
         """
         cm = self.cm
+        assert not self.weighted, "pair walks read the priors of the cause diagrams"
         var, low, high, prior, deep_f = cm.arrays()
         n_levels = cm.store.n_levels
         size = len(var)
