@@ -556,6 +556,26 @@ class CompiledModel:
         return result
 
 
+class OneMore:
+    """What :meth:`Passes.one_more` gives: P(findings) and every root's posterior, by level.
+
+    Attributes
+    ----------
+    p_evidence : float
+    root_marginals : numpy.ndarray
+    nodes : int
+        Nodes and pairs the passes went over.
+    """
+
+    #: Not a pass over a diagram of all the findings: pair walks go elsewhere.
+    weighted = True
+
+    def __init__(self, p_evidence: float, root_marginals: np.ndarray, nodes: int):
+        self.p_evidence = p_evidence
+        self.root_marginals = root_marginals
+        self.nodes = nodes
+
+
 class Passes:
     """The upward, downward and max passes over one evidence diagram.
 
@@ -716,6 +736,196 @@ class Passes:
                 n = lo[n]
         r = self.pos[self.root]
         return state, float(best[r] + free[lv[r]])
+
+    def one_more(self, finding: int) -> OneMore:
+        """P(findings, one more finding) and every root's posterior with it, without its evidence diagram.
+
+        Parameters
+        ----------
+        finding : int
+            The diagram of P(new finding | roots) (leaves in [0, 1]), e.g.
+            :meth:`CompiledModel.finding_diagram`.
+
+        Notes
+        -----
+        The product of the evidence diagram E with the finding's diagram L
+        is walked, never built (Darwiche 2003: marginals are derivatives of
+        the weighted count, read from one upward and one downward pass over
+        the circuit). Above L's top level a the product is E itself with new
+        upward values, and the downward values there are E's; from a on, the
+        pairs (node of E, node of L) are walked until L reaches a leaf q,
+        where the rest is E's node weighted by q, with E's upward values and
+        new downward values. The passes run over E's level groups; only the
+        pairs of L's few levels are new nodes.
+        """
+        cm = self.cm
+        s = cm.store
+        n_levels = s.n_levels
+        p = self.p
+        up, down, lv, lo, hi, pos = self.up, self.down, self.lv, self.lo, self.hi, self.pos
+        if s.var[finding] == n_levels:
+            q = s.value[finding]
+            if not self.p_evidence * q > 0.0:
+                raise ZeroEvidence
+            return OneMore(self.p_evidence * q, self.root_marginals, len(self.ids))
+        top = s.var[finding]
+        svar, slow, shigh, sval = s.var, s.low, s.high, s.value
+        count = len(self.ids)
+        r = pos[self.root]
+        # Pairs (E position, L node), numbered as met in a walk from where
+        # E's edges cross level `top`. For pair k: its level, and per branch
+        # (0 works, 1 failed) the child: a pair (kind 0) or, once L reaches a
+        # leaf q, E's node weighted by q (kind 1).
+        size = len(s)
+        index: dict[int, int] = {}
+        e_of: list[int] = []
+        f_of: list[int] = []
+        above = lv < top
+        inner = self._inner
+        cross_parent = np.flatnonzero(above & inner)
+        seeds: set[int] = set()
+        for child in (hi[cross_parent], lo[cross_parent]):
+            seeds.update(child[lv[child] >= top].tolist())
+        if lv[r] >= top:
+            seeds.add(r)
+        for n in sorted(seeds):
+            index[n * size + finding] = len(e_of)
+            e_of.append(n)
+            f_of.append(finding)
+        levels: list[int] = []
+        kind0: list[int] = []
+        kid0: list[int] = []
+        scale0: list[float] = []
+        kind1: list[int] = []
+        kid1: list[int] = []
+        scale1: list[float] = []
+        lv_list, lo_list, hi_list = lv.tolist(), lo.tolist(), hi.tolist()
+        k = 0
+        while k < len(e_of):  # every pair once, in the order met
+            n, f = e_of[k], f_of[k]
+            ln, lf = lv_list[n], svar[f]
+            if ln <= lf:
+                level, e0, e1 = ln, lo_list[n], hi_list[n]
+            else:
+                level, e0, e1 = lf, n, n
+            if lf == level:
+                f0, f1 = slow[f], shigh[f]
+            else:
+                f0 = f1 = f
+            levels.append(level)
+            for e, g, kinds, kids, scales in ((e0, f0, kind0, kid0, scale0), (e1, f1, kind1, kid1, scale1)):
+                if svar[g] == n_levels:
+                    kinds.append(1)
+                    kids.append(e)
+                    scales.append(sval[g])
+                else:
+                    key = e * size + g
+                    found = index.get(key)
+                    if found is None:
+                        found = len(e_of)
+                        index[key] = found
+                        e_of.append(e)
+                        f_of.append(g)
+                    kinds.append(0)
+                    kids.append(found)
+                    scales.append(1.0)
+            k += 1
+        n_pairs = len(e_of)
+        # Upward values of the pairs, deepest first.
+        order = sorted(range(n_pairs), key=levels.__getitem__, reverse=True)
+        up_list = self.up_list
+        pl_list = p.tolist()
+        pair_up = [0.0] * n_pairs
+        for k in order:
+            pl = pl_list[levels[k]]
+            i0, i1 = kid0[k], kid1[k]
+            v0 = (up_list[i0] if kind0[k] else pair_up[i0]) * scale0[k]
+            v1 = (up_list[i1] if kind1[k] else pair_up[i1]) * scale1[k]
+            pair_up[k] = (1.0 - pl) * v0 + pl * v1
+        # Upward values above `top`: E's groups there, with the crossing children's pair values.
+        new_up = up.copy()
+        seed_pos = np.array(sorted(seeds), dtype=np.int64)
+        if len(seed_pos):
+            new_up[seed_pos] = [pair_up[index[int(n) * size + finding]] for n in seed_pos]
+        for level, a, b in self._groups:
+            if level < top:
+                new_up[a:b] = p[level] * new_up[hi[a:b]] + (1.0 - p[level]) * new_up[lo[a:b]]
+        p_evidence = float(new_up[r])
+        if not p_evidence > 0.0:
+            raise ZeroEvidence
+        # Downward values: E's above `top`; the pairs' from E's crossing edges; E's below from the pairs.
+        pair_down = [0.0] * n_pairs
+        if lv[r] >= top:
+            pair_down[index[r * size + finding]] += 1.0
+        for child, weight in ((hi, p), (lo, 1.0 - p)):
+            c = child[cross_parent]
+            w = weight[lv[cross_parent]] * down[cross_parent]
+            crossing = lv[c] >= top
+            for n, m in zip(c[crossing].tolist(), w[crossing].tolist()):
+                pair_down[index[n * size + finding]] += m
+        e_down = np.zeros(count)
+        for k in reversed(order):  # parents first
+            d = pair_down[k]
+            pl = pl_list[levels[k]]
+            flow = d * (1.0 - pl) * scale0[k]
+            if kind0[k]:
+                e_down[kid0[k]] += flow
+            else:
+                pair_down[kid0[k]] += flow
+            flow = d * pl * scale1[k]
+            if kind1[k]:
+                e_down[kid1[k]] += flow
+            else:
+                pair_down[kid1[k]] += flow
+        for level, a, b in reversed(self._groups):
+            if level >= top:
+                d = e_down[a:b]
+                np.add.at(e_down, hi[a:b], d * p[level])
+                np.add.at(e_down, lo[a:b], d * (1.0 - p[level]))
+        # Root marginals: mass through each level's nodes plus edges skipping it (as in the passes).
+        diff = np.zeros(n_levels + 2)
+        failed = np.zeros(n_levels)
+        root_up = p_evidence
+        root_lv = int(lv[r]) if lv[r] < top else top
+        diff[0] += root_up
+        diff[root_lv] -= root_up
+
+        def edges(parent_lv, child_lv, flow, child_up, high):
+            through = flow * child_up
+            np.add.at(diff, parent_lv + 1, through)
+            np.add.at(diff, child_lv, -through)
+            np.add.at(failed, parent_lv[high], through[high])
+
+        # E above `top` (downward values unchanged; children's upward values new).
+        for child, weight, high in ((hi, p, True), (lo, 1.0 - p, False)):
+            c = child[cross_parent]
+            plv = lv[cross_parent]
+            child_lv = np.where(lv[c] >= top, top, lv[c])
+            edges(plv, child_lv, down[cross_parent] * weight[plv], new_up[c], np.full(len(c), high))
+        # The pairs.
+        if n_pairs:
+            pair_lv = np.array(levels, dtype=np.int64)
+            pair_up_arr = np.array(pair_up)
+            pair_down_arr = np.array(pair_down)
+            for kinds, kids, scales, weight, high in ((kind0, kid0, scale0, 1.0 - p, False),
+                                                      (kind1, kid1, scale1, p, True)):
+                to_e = np.array(kinds, dtype=bool)
+                kid = np.array(kids, dtype=np.int64)
+                e_kid = np.where(to_e, kid, 0)
+                p_kid = np.where(to_e, 0, kid)
+                c_lv = np.where(to_e, lv[e_kid], pair_lv[p_kid])
+                c_up = np.where(to_e, up[e_kid], pair_up_arr[p_kid])
+                flow = pair_down_arr * weight[pair_lv] * np.array(scales)
+                edges(pair_lv, c_lv, flow, c_up, np.full(n_pairs, high))
+        # E from `top` on (upward values E's, downward values new).
+        below = np.flatnonzero(~above & inner)
+        for child, weight, high in ((hi, p, True), (lo, 1.0 - p, False)):
+            c = child[below]
+            plv = lv[below]
+            edges(plv, lv[c], e_down[below] * weight[plv], up[c], np.full(len(c), high))
+        skipped = np.cumsum(diff)[:n_levels]
+        failed += p * skipped
+        return OneMore(p_evidence, np.clip(failed / p_evidence, 0.0, 1.0), count + n_pairs)
 
     def grouped(self, causes: tuple[int, ...], addends: tuple, zero=0, add=operator.add) -> dict:
         """P(findings)-normalised mass of the cause states, grouped by the sum of the present causes' addends.

@@ -30,6 +30,7 @@ from troubleshoot.engine.compiled import (
     ENGINE_NAME as COMPILED,
     MAX_CAUSE_STATES_BITS,
     CompiledModel,
+    OneMore,
     Passes,
     ZeroEvidence,
 )
@@ -242,7 +243,21 @@ class Engine:
             kept.append(f)
         return kept
 
-    def _run_compiled(self, findings, repairs) -> tuple[Passes, float]:
+    def passes_for(self, root: int) -> Passes:
+        """The passes over one evidence diagram (compiled path), kept for the next few propagations."""
+        cm = self._diagram
+        assert cm is not None
+        base = self._base_passes.get(root)
+        if base is None:
+            base = Passes(cm, root)
+            self._base_passes[root] = base
+            while len(self._base_passes) > 2 * self.cache_size:
+                self._base_passes.pop(next(iter(self._base_passes)))
+        else:
+            self._base_passes[root] = self._base_passes.pop(root)  # most recently used last
+        return base
+
+    def _run_compiled(self, findings, repairs) -> tuple[Passes | OneMore, float]:
         """The passes for findings under repairs, and the log of the factor the weights leave out.
 
         An exact observation of a root event does not enter the evidence
@@ -275,13 +290,17 @@ class Engine:
             else:
                 others.append(f)
         try:
+            last = others[-1] if others else None
+            if not fixed and last is not None and last.target in self.model.check_by_id:
+                # One check finding more than findings already propagated:
+                # answered from their passes (Passes.one_more), no new diagram.
+                before = self._base_passes.get(cm.evidence(tuple(others[:-1]), repairs))
+                if before is not None:
+                    lik = cm.finding_diagram(last.target, last.outcome, last.epoch, repairs)
+                    with gc_paused():  # many small tuples, no cycles
+                        return before.one_more(lik), 0.0
             root = cm.evidence(tuple(others), repairs)
-            base = self._base_passes.get(root)
-            if base is None:
-                base = Passes(cm, root)
-                self._base_passes[root] = base
-                while len(self._base_passes) > 2 * self.cache_size:
-                    self._base_passes.pop(next(iter(self._base_passes)))
+            base = self.passes_for(root)
             if not fixed:
                 return base, 0.0
             priors = cm.priors.copy()
@@ -345,10 +364,11 @@ class Engine:
                                       for f in self.conflict(findings, repairs)]) from None
         self.propagations += 1
         post: AnyPosterior
-        if self._diagram is not None and isinstance(run[0], Passes):
+        if self._diagram is not None and isinstance(run[0], (Passes, OneMore)):
             passes, log_factor = run
-            post = CompiledPosterior(self.model, self._diagram, passes, findings, repairs, log_factor)
-            entries = len(passes.ids)
+            post = CompiledPosterior(self.model, self._diagram, passes, findings, repairs, log_factor,
+                                     self.passes_for)
+            entries = len(passes.ids) if isinstance(passes, Passes) else passes.nodes
         else:
             net, tree, calibrated, log_constant, evidence = run
             post = Posterior(self.model, net, tree, calibrated, calibrated.log_p + log_constant, findings, repairs,
@@ -601,8 +621,8 @@ class CompiledPosterior:
 
     engine = COMPILED
 
-    def __init__(self, model: Model, compiled: CompiledModel, passes: Passes, findings, repairs,
-                 log_factor: float = 0.0):
+    def __init__(self, model: Model, compiled: CompiledModel, passes: Passes | OneMore, findings, repairs,
+                 log_factor: float = 0.0, passes_for=None):
         self.model = model
         self.compiled = compiled
         self.passes = passes
@@ -614,7 +634,8 @@ class CompiledPosterior:
         self._families: dict = {}
         self._gates: dict = {}
         self._batched: set[int] = set()
-        self._walks: Passes | None = None if passes.weighted else passes
+        self._walks: Passes | None = None if passes.weighted else passes  # type: ignore[assignment]
+        self._passes_for = passes_for
 
     @property
     def walks(self) -> Passes:
@@ -626,7 +647,8 @@ class CompiledPosterior:
         """
         if self._walks is None:
             cm = self.compiled
-            self._walks = Passes(cm, cm.evidence(tuple(self.findings), tuple(self.repairs)))
+            root = cm.evidence(tuple(self.findings), tuple(self.repairs))
+            self._walks = self._passes_for(root) if self._passes_for is not None else Passes(cm, root)
         return self._walks
 
     def root_marginals(self) -> np.ndarray:
@@ -725,10 +747,11 @@ class CompiledPosterior:
         One max pass over the evidence diagram, whose leaves already hold the
         checks' noise summed out: exact, at the cost of one pass.
         """
-        state, log_joint = self.passes.max_state()
+        passes = self.passes if isinstance(self.passes, Passes) else self.walks
+        state, log_joint = passes.max_state()
         failed = tuple(r for r, lv in zip(self.model.hypotheses, self._levels) if state[lv] == 1)
         # Both logs leave out the same factor of the fixed roots' priors.
-        return failed, float(np.exp(min(0.0, log_joint - math.log(self.passes.p_evidence))))
+        return failed, float(np.exp(min(0.0, log_joint - math.log(passes.p_evidence))))
 
 
 #: What :meth:`Engine.propagate` gives: either posterior, read through the same interface.
