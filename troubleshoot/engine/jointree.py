@@ -221,13 +221,17 @@ def min_fill_order(adjacency: list[set[int]], max_entries: float = math.inf
         # 2^(bound + 1) > max_entries entries, so it is computed when the
         # order first meets a clique within _MMW_SLACK_BITS of the budget (or
         # is about to refuse): narrow trees never pay for it, wide ones are
-        # refused by it as before.
+        # refused by it as before (at once where a vertex's degree is that high).
         nonlocal lower_bound_checked
         lower_bound_checked = True
         bound, where = minor_min_width(adjacency)
         if 2 ** (bound + 1) > max_entries:
             raise _OverBudget(where, 2 ** (bound + 1), bound)
 
+    # A vertex of high degree would make such a clique if eliminated now, and
+    # makes min-fill's own scoring slow (wide trees): bound the width first.
+    if not lower_bound_checked and 2 ** (max(map(len, adjacency), default=0) + 1 + _MMW_SLACK_BITS) > max_entries:
+        check_lower_bound()
     adj = [set(s) for s in adjacency]
     n = len(adj)
     entries = 0
