@@ -879,9 +879,9 @@ class Passes:
                 pair_down[kid1[k]] += flow
         for level, a, b in reversed(self._groups):
             if level >= top:
-                d = e_down[a:b]
-                np.add.at(e_down, hi[a:b], d * p[level])
-                np.add.at(e_down, lo[a:b], d * (1.0 - p[level]))
+                mass = e_down[a:b]
+                np.add.at(e_down, hi[a:b], mass * p[level])
+                np.add.at(e_down, lo[a:b], mass * (1.0 - p[level]))
         # Root marginals: mass through each level's nodes plus edges skipping it (as in the passes).
         diff = np.zeros(n_levels + 2)
         failed = np.zeros(n_levels)
@@ -1095,7 +1095,6 @@ class Passes:
         cm = self.cm
         assert not self.weighted, "pair walks read the priors of the cause diagrams"
         var, low, high, prior, deep_f = cm.arrays()
-        n_levels = cm.store.n_levels
         size = len(var)
         epos = np.full(size, -1, dtype=np.int64)
         epos[self.ids] = np.arange(len(self.ids))
