@@ -115,29 +115,33 @@ class StudyRow:
         return cost / self.optimal
 
 
-def study_seeds(models: int, seed: int) -> list[int]:
-    """The model seeds of a study: ``models`` of them, drawn from ``seed``."""
+def study_seeds(seed: int):
+    """The stream of model seeds of a study drawn from ``seed`` (endless; same seed, same stream)."""
     rng = random.Random(f"optimum-study-{seed}")
-    return rng.sample(range(1_000_000), models)
+    while True:
+        yield rng.randrange(1_000_000)
 
 
 def optimum_study(models: int, seed: int, strategies: tuple[str, ...] = ("info-per-cost",),
-                  max_states: int = STUDY_MAX_STATES,
-                  progress: Callable[[int], None] | None = None) -> Iterator[StudyRow]:
-    """Each generated model with its optimum and every strategy's exact expected cost, in seed order.
+                  max_states: int = STUDY_MAX_STATES, max_tries: int | None = None,
+                  progress: Callable[[int, int], None] | None = None) -> Iterator[StudyRow]:
+    """Generated models with their optimum and every strategy's exact expected cost, in the order drawn.
 
     Parameters
     ----------
     models : int
-        How many models.
+        How many models with a computed optimum to study.
     seed : int
         Same seed, same models, same figures.
     strategies : tuple of str
         Names of :mod:`troubleshoot.study.strategies` (not ``optimal``).
     max_states : int
-        A model whose optimum needs more states is skipped (reported, not hidden).
+        A model whose optimum needs more states is skipped: yielded with
+        ``skipped`` set (reported, not hidden), and another model is drawn.
+    max_tries : int, optional
+        Stop after drawing this many models (default 4 x ``models``).
     progress : callable, optional
-        Called with 1 after each model.
+        Called with (models solved so far, ``models``) after each model with a computed optimum.
 
     Yields
     ------
@@ -148,18 +152,23 @@ def optimum_study(models: int, seed: int, strategies: tuple[str, ...] = ("info-p
     from troubleshoot.study.optimal import OptimalTooLarge, expected_cost, solve
     from troubleshoot.study.strategies import make_strategy, protocol_actor
 
-    for model_seed in study_seeds(models, seed):
+    max_tries = 4 * models if max_tries is None else max_tries
+    solved = 0
+    for tries, model_seed in enumerate(study_seeds(seed)):
+        if solved >= models or tries >= max_tries:
+            return
         model = small_model(model_seed)
         shape = (len(model.basic_events), len(model.checks), sum(1 for g in model.gates if g.unlisted))
         try:
             solution = solve(model, max_states=max_states)
         except OptimalTooLarge as exc:
             yield StudyRow(model.name, *shape, None, (), 0, str(exc))
-        else:
-            settings = settings_for(model)
-            engine = Engine(model)
-            costs = tuple((name, expected_cost(model, protocol_actor(model, make_strategy(name), settings, engine)))
-                          for name in strategies)
-            yield StudyRow(model.name, *shape, solution.expected_cost, costs, solution.states)
+            continue
+        settings = settings_for(model)
+        engine = Engine(model)
+        costs = tuple((name, expected_cost(model, protocol_actor(model, make_strategy(name), settings, engine)))
+                      for name in strategies)
+        solved += 1
+        yield StudyRow(model.name, *shape, solution.expected_cost, costs, solution.states)
         if progress is not None:
-            progress(1)
+            progress(solved, models)
