@@ -62,9 +62,9 @@ def run(args) -> int:
         for row in optimum_study(args.models, args.seed, names, args.max_states, progress=progress.count):
             rows.append(row)
     solved = [r for r in rows if r.optimal is not None]
-    summary = {}
+    summary: dict[str, dict[str, float | int | None]] = {}
     for name in names:
-        ratios = [r.ratio(name) for r in solved if r.ratio(name) is not None]
+        ratios = [x for x in (r.ratio(name) for r in solved) if x is not None]
         summary[name] = {"mean_ratio": sum(ratios) / len(ratios) if ratios else None,
                          "worst_ratio": max(ratios) if ratios else None,
                          "at_optimum": sum(1 for x in ratios if x <= 1 + 1e-9)}
