@@ -389,15 +389,20 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
             cost, branches = protocol.after_repair(state, w, r)
             yield ("repair", r), cost, branches
 
-    def value(state: State, w: np.ndarray, budget: float = np.inf) -> float:
-        """V(state) when it is below ``budget``; otherwise some lower bound of it that is >= budget."""
+    def value(state: State, w: np.ndarray, budget: float = np.inf) -> tuple[float, bool]:
+        """(V(state), True) when it is below ``budget``; otherwise (a lower bound of it >= budget, False).
+
+        The flag, not a comparison with the budget, says which: p * (budget / p)
+        may round below the budget, and a bound taken for a value makes a
+        course look cheaper than it is.
+        """
         nonlocal visited
         key = protocol.key(state, w)
         if key in memo:
-            return memo[key]
+            return memo[key], True
         low = max(floor.get(key, 0.0), protocol.lower_bound(state, w))
         if low >= budget:
-            return low
+            return low, False
         visited += 1
         if visited > max_states:
             raise OptimalTooLarge(
@@ -413,9 +418,9 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
             total, cut = cost, False
             for (p, child, w2), low_i in zip(branches, lows):
                 rest -= low_i
-                v = value(child, w2, (limit - total - rest) / p)
+                v, exact = value(child, w2, (limit - total - rest) / p)
                 total += p * v
-                if total + rest >= limit:
+                if not exact or total + rest >= limit:
                     cut = True
                     break
             if not cut and total < best * (1.0 - 1e-12):
@@ -423,11 +428,11 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
         if best < budget:
             memo[key] = best
             policy[key] = action
-            return best
+            return best, True
         floor[key] = max(floor.get(key, 0.0), budget)
-        return budget
+        return budget, False
 
-    total = sum(p * value(state, w) for p, state, w in protocol.start())
+    total = sum(p * value(state, w)[0] for p, state, w in protocol.start())
     return OptimalSolution(float(total), policy, visited, protocol)
 
 
