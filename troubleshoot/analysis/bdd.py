@@ -92,6 +92,24 @@ def fold_children_first(f: int, low, high, cache: dict, combine) -> Any:
     return cache[f]
 
 
+def internal_nodes_under(root: int, low, high, last_terminal: int) -> list[int]:
+    """Nodes under ``root`` with an id above ``last_terminal``, in increasing id order.
+
+    Children always have smaller ids than their parent in a hash-consed
+    store, so increasing id order is children-first order.
+    """
+    seen = set()
+    stack = [root]
+    while stack:
+        n = stack.pop()
+        if n <= last_terminal or n in seen:
+            continue
+        seen.add(n)
+        stack.append(low[n])
+        stack.append(high[n])
+    return sorted(seen)
+
+
 class NodeStore:
     """Hash-consed nodes (level, low, high) in three parallel lists, with a size limit.
 
@@ -256,16 +274,7 @@ class Diagram(NodeStore):
 
     def reachable(self, root: int) -> list[int]:
         """Internal nodes reachable from ``root``, in increasing id (bottom-up) order."""
-        seen = set()
-        stack = [root]
-        while stack:
-            n = stack.pop()
-            if n <= TRUE or n in seen:
-                continue
-            seen.add(n)
-            stack.append(self.low[n])
-            stack.append(self.high[n])
-        return sorted(seen)
+        return internal_nodes_under(root, self.low, self.high, TRUE)
 
     def is_monotone(self, root: int) -> bool:
         """True when the function never goes from failed to working as a root fails.

@@ -30,7 +30,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 
 from troubleshoot.errors import TroubleshootError
-from troubleshoot.analysis.bdd import FALSE, TRUE, FaultTreeBdd, NodeStore, fold_children_first
+from troubleshoot.analysis.bdd import FALSE, TRUE, FaultTreeBdd, NodeStore, fold_children_first, internal_nodes_under
 from troubleshoot.model import Model
 
 #: Empty family of sets.
@@ -164,16 +164,7 @@ class CutSetFamily(NodeStore):
                                     lambda n, low, high: self._node(d.var[n], low, self._without(high, low)))
 
     def _bottom_up(self) -> list[int]:
-        seen = set()
-        stack = [self.root]
-        while stack:
-            n = stack.pop()
-            if n <= BASE or n in seen:
-                continue
-            seen.add(n)
-            stack.append(self.low[n])
-            stack.append(self.high[n])
-        return sorted(seen)
+        return internal_nodes_under(self.root, self.low, self.high, BASE)
 
     def count_by_order(self) -> dict[int, int]:
         """Number of minimal cut sets of each order, without listing them.

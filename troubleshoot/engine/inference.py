@@ -30,6 +30,7 @@ from troubleshoot.engine.compiled import (
     ENGINE_NAME as COMPILED,
     MAX_CAUSE_STATES_BITS,
     CompiledModel,
+    OneMore,
     Passes,
     ZeroEvidence,
 )
@@ -104,6 +105,9 @@ class Engine:
         self._coherent = all(g.kind != "not" for g in model.gates)
         self._posteriors: dict = {}
         self._diagram: CompiledModel | None = None
+        # Passes over evidence diagrams, by diagram root: the structure that
+        # weighted passes (exact observations of roots) share.
+        self._base_passes: dict[int, Passes] = {}
         #: Propagations actually run (not answered from memory).
         self.propagations = 0
         # Compile now, so a model too large for both paths is refused at once.
@@ -122,6 +126,7 @@ class Engine:
         self._trees.clear()
         self._networks.clear()
         self._posteriors.clear()
+        self._base_passes.clear()
         try:
             self._diagram = CompiledModel(self.model, self.memory_budget)
         except NetworkTooLarge as second:
@@ -164,6 +169,7 @@ class Engine:
     def forget(self) -> None:
         """Drop the posteriors kept in memory (the next propagation runs afresh)."""
         self._posteriors.clear()
+        self._base_passes.clear()
 
     @property
     def tree(self) -> JoinTree | None:
@@ -237,7 +243,31 @@ class Engine:
             kept.append(f)
         return kept
 
-    def _run_compiled(self, findings, repairs) -> Passes:
+    def passes_for(self, root: int) -> Passes:
+        """The passes over one evidence diagram (compiled path), kept for the next few propagations."""
+        cm = self._diagram
+        assert cm is not None
+        base = self._base_passes.get(root)
+        if base is None:
+            base = Passes(cm, root)
+            self._base_passes[root] = base
+            while len(self._base_passes) > 2 * self.cache_size:
+                self._base_passes.pop(next(iter(self._base_passes)))
+        else:
+            self._base_passes[root] = self._base_passes.pop(root)  # most recently used last
+        return base
+
+    def _run_compiled(self, findings, repairs) -> tuple[Passes | OneMore, float]:
+        """The passes for findings under repairs, and the log of the factor the weights leave out.
+
+        An exact observation of a root event does not enter the evidence
+        diagram: it fixes that root's weight (prior 1 if seen failed, 0 if
+        seen working) and multiplies P(findings) by its prior probability.
+        The passes then reuse the structure of the other findings' diagram
+        (kept from an earlier propagation), so "these findings and these
+        roots ok" costs one pass over a diagram already built, not a product
+        of diagrams.
+        """
         cm = self._diagram
         assert cm is not None
         for r in repairs:
@@ -245,8 +275,44 @@ class Engine:
                 raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
         for f in findings:
             self._validate(f, len(repairs))
+        fixed: dict[int, int] = {}
+        others = []
+        for f in findings:
+            if f.target in cm.level and f.target not in self.model.check_by_id \
+                    and f.target not in self.model.gate_by_id:
+                if f.target in repairs[: f.epoch]:  # held working since its repair
+                    if f.outcome == 1:
+                        raise ZeroProbability
+                    continue
+                level = cm.level[f.target]
+                if fixed.setdefault(level, f.outcome) != f.outcome:
+                    raise ZeroProbability
+            else:
+                others.append(f)
         try:
-            return Passes(cm, cm.evidence(findings, repairs))
+            last = others[-1] if others else None
+            if not fixed and last is not None and last.target in self.model.check_by_id:
+                # One check finding more than findings already propagated:
+                # answered from their passes (Passes.one_more), no new diagram.
+                before = self._base_passes.get(cm.evidence(tuple(others[:-1]), repairs))
+                if before is not None:
+                    lik = cm.finding_diagram(last.target, last.outcome, last.epoch, repairs)
+                    with gc_paused():  # many small tuples, no cycles
+                        return before.one_more(lik), 0.0
+            root = cm.evidence(tuple(others), repairs)
+            base = self.passes_for(root)
+            if not fixed:
+                return base, 0.0
+            priors = cm.priors.copy()
+            log_factor = 0.0
+            for level, outcome in fixed.items():
+                p = float(priors[level])
+                weight = p if outcome == 1 else 1.0 - p
+                if weight <= 0.0:
+                    raise ZeroProbability
+                log_factor += math.log(weight)
+                priors[level] = float(outcome)
+            return Passes(cm, root, priors=priors, like=base), log_factor
         except ZeroEvidence:
             raise ZeroProbability from None
 
@@ -298,10 +364,11 @@ class Engine:
                                       for f in self.conflict(findings, repairs)]) from None
         self.propagations += 1
         post: AnyPosterior
-        if isinstance(run, Passes):
-            assert self._diagram is not None
-            post = CompiledPosterior(self.model, self._diagram, run, findings, repairs)
-            entries = len(run.ids)
+        if self._diagram is not None and isinstance(run[0], (Passes, OneMore)):
+            passes, log_factor = run
+            post = CompiledPosterior(self.model, self._diagram, passes, findings, repairs, log_factor,
+                                     self.passes_for)
+            entries = len(passes.ids) if isinstance(passes, Passes) else passes.nodes
         else:
             net, tree, calibrated, log_constant, evidence = run
             post = Posterior(self.model, net, tree, calibrated, calibrated.log_p + log_constant, findings, repairs,
@@ -554,18 +621,35 @@ class CompiledPosterior:
 
     engine = COMPILED
 
-    def __init__(self, model: Model, compiled: CompiledModel, passes: Passes, findings, repairs):
+    def __init__(self, model: Model, compiled: CompiledModel, passes: Passes | OneMore, findings, repairs,
+                 log_factor: float = 0.0, passes_for=None):
         self.model = model
         self.compiled = compiled
         self.passes = passes
         self.findings = findings
         self.repairs = repairs
         self.epoch = len(repairs)
-        self.log_p = math.log(passes.p_evidence)
+        self.log_p = math.log(passes.p_evidence) + log_factor
         self._levels = np.array([compiled.level[r] for r in model.hypotheses], dtype=np.int64)
         self._families: dict = {}
         self._gates: dict = {}
         self._batched: set[int] = set()
+        self._walks: Passes | None = None if passes.weighted else passes  # type: ignore[assignment]
+        self._passes_for = passes_for
+
+    @property
+    def walks(self) -> Passes:
+        """Passes whose pair walks answer gate marginals and check families.
+
+        Pair walks read the cause diagrams' prior probabilities, so where
+        the passes weigh roots fixed by exact observations, they run on the
+        evidence diagram of every finding (the product, built once on first use).
+        """
+        if self._walks is None:
+            cm = self.compiled
+            root = cm.evidence(tuple(self.findings), tuple(self.repairs))
+            self._walks = self._passes_for(root) if self._passes_for is not None else Passes(cm, root)
+        return self._walks
 
     def root_marginals(self) -> np.ndarray:
         """P(failed | findings) of every hypothesis, in ``model.hypotheses`` order."""
@@ -579,7 +663,13 @@ class CompiledPosterior:
         key = (node_id, epoch)
         if key not in self._gates:
             f = self.compiled.function_at(node_id, self.repairs, epoch)
-            self._gates[key] = float(f) if f in (0, 1) else float(self.passes.joint((f,))[1])
+            store = self.compiled.store
+            if f in (0, 1):
+                self._gates[key] = float(f)
+            elif store.low[f] == 0 and store.high[f] == 1:  # a root, not repaired by then
+                self._gates[key] = float(self.passes.root_marginals[store.var[f]])
+            else:
+                self._gates[key] = float(self.walks.joint((f,))[1])
         return self._gates[key]
 
     @property
@@ -609,9 +699,9 @@ class CompiledPosterior:
         if key not in self._families:
             causes, fam = self.compiled.family(check_id, self.repairs, epoch)
             if len(causes) <= MAX_CAUSE_STATES_BITS:
-                self._families[key] = (self.passes.joint(causes), fam.likelihood().reshape(-1, fam.n_outcomes))
+                self._families[key] = (self.walks.joint(causes), fam.likelihood().reshape(-1, fam.n_outcomes))
             else:
-                sums, mass = self.passes.joint_by_likelihood(causes, fam.log_cdfs)
+                sums, mass = self.walks.joint_by_likelihood(causes, fam.log_cdfs)
                 log_cdf = np.array(fam.leak_log_cdf)[None, :] + np.array(sums).reshape(len(sums), -1)
                 self._families[key] = (mass, table_from_log_cdf(log_cdf, fam.order))
         return self._families[key]
@@ -630,7 +720,7 @@ class CompiledPosterior:
                 ids.append(check.id)
                 causes_list.append(causes)
                 fams.append(fam)
-        for check_id, joint, fam in zip(ids, self.passes.joints_many(causes_list), fams):
+        for check_id, joint, fam in zip(ids, self.walks.joints_many(causes_list), fams):
             self._families[(check_id, epoch)] = (joint, fam.likelihood().reshape(-1, fam.n_outcomes))
 
     def family_batches(self, check_ids, epoch: int | None = None) -> list[FamilyBatch]:
@@ -657,9 +747,11 @@ class CompiledPosterior:
         One max pass over the evidence diagram, whose leaves already hold the
         checks' noise summed out: exact, at the cost of one pass.
         """
-        state, log_joint = self.passes.max_state()
+        passes = self.passes if isinstance(self.passes, Passes) else self.walks
+        state, log_joint = passes.max_state()
         failed = tuple(r for r, lv in zip(self.model.hypotheses, self._levels) if state[lv] == 1)
-        return failed, float(np.exp(min(0.0, log_joint - self.log_p)))
+        # Both logs leave out the same factor of the fixed roots' priors.
+        return failed, float(np.exp(min(0.0, log_joint - math.log(passes.p_evidence))))
 
 
 #: What :meth:`Engine.propagate` gives: either posterior, read through the same interface.

@@ -57,6 +57,9 @@ _BYTES_PER_ENTRY = 8 * 3
 _PLAN_BYTES_PER_ENTRY = 8 * 2
 #: Cliques are merged while the merged table stays at most this many entries.
 MERGE_ENTRIES = 256
+#: The minor-min-width lower bound is computed once an elimination clique
+#: comes within this many bits (a factor 2^10) of the table budget.
+_MMW_SLACK_BITS = 10
 #: Index arrays of the table layout are built this many entries at a time (bounds peak memory).
 _CHUNK = 1 << 20
 
@@ -186,7 +189,8 @@ def min_fill_order(adjacency: list[set[int]], max_entries: float = math.inf
         Raise _OverBudget as soon as the elimination cliques made so far
         hold more table entries than this (a tree too large is refused
         without finishing the order); with a finite budget, the
-        minor-min-width lower bound is checked first.
+        minor-min-width lower bound is checked as soon as a clique comes
+        within 2^10 of the budget, so a tree too wide is refused early.
 
     Returns
     -------
@@ -209,10 +213,25 @@ def min_fill_order(adjacency: list[set[int]], max_entries: float = math.inf
     ----------
     Kjaerulff 1990 (min-fill).
     """
-    if max_entries < math.inf:
+    lower_bound_checked = max_entries == math.inf
+
+    def check_lower_bound() -> None:
+        # The minor-min-width bound refuses a tree too wide before the order
+        # is finished. It can only refuse a tree whose order meets a clique of
+        # 2^(bound + 1) > max_entries entries, so it is computed when the
+        # order first meets a clique within _MMW_SLACK_BITS of the budget (or
+        # is about to refuse): narrow trees never pay for it, wide ones are
+        # refused by it as before (at once where a vertex's degree is that high).
+        nonlocal lower_bound_checked
+        lower_bound_checked = True
         bound, where = minor_min_width(adjacency)
         if 2 ** (bound + 1) > max_entries:
             raise _OverBudget(where, 2 ** (bound + 1), bound)
+
+    # A vertex of high degree would make such a clique if eliminated now, and
+    # makes min-fill's own scoring slow (wide trees): bound the width first.
+    if not lower_bound_checked and 2 ** (max(map(len, adjacency), default=0) + 1 + _MMW_SLACK_BITS) > max_entries:
+        check_lower_bound()
     adj = [set(s) for s in adjacency]
     n = len(adj)
     entries = 0
@@ -246,7 +265,11 @@ def min_fill_order(adjacency: list[set[int]], max_entries: float = math.inf
         entries += 1 << (len(nb) + 1)
         if len(nb) + 1 > len(largest):
             largest = neighbours[v] | {v}
+            if not lower_bound_checked and 2 ** (len(largest) + _MMW_SLACK_BITS) > max_entries:
+                check_lower_bound()
         if entries > max_entries:
+            if not lower_bound_checked:
+                check_lower_bound()
             raise _OverBudget(largest, entries)
         if not f:
             # v is simplicial: each neighbour a loses exactly the missing

@@ -87,6 +87,11 @@ def _log_cdf(check: Check, shows, total: float) -> np.ndarray:
     Computed from the tail (the abnormal probabilities above l) with log1p,
     so a detection of 1e-12 keeps its digits.
     """
+    if not shows and len(check.outcomes) == 2:
+        # Two outcomes, one probability: the tail is ``total`` itself (the
+        # general path below gives the same number, at many small array calls).
+        tail1 = min(float(total), 1.0)
+        return np.array([np.log1p(-tail1) if tail1 < 1.0 else -np.inf])
     p = distribution(check, shows, total)[list(levels(check))]
     tail = np.cumsum(p[::-1])[::-1][1:]  # P(level > l), l = 0..K-2
     with np.errstate(divide="ignore"):
