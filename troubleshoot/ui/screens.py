@@ -778,7 +778,7 @@ HELP_TEXT = """\
 | r | record a repair (the repair order comes first) |
 | v | verify the last repair (shown while a repair awaits it) |
 | m | add a note to the log |
-| e | escalate: hand the unit over (the model says how, and its price); a card shows both and the tool's advice, `y` confirms; the diagnosis ends as escalated (`u` takes it back) |
+| e | escalate: hand the unit over; a card shows what it means, its price and the tool's advice; `y` confirms, `u` undoes |
 | f | show or hide the figures: information in bits, scores, uncertainty |
 | ? | this help |
 | q | quit: every action is already saved in the log |
