@@ -46,15 +46,25 @@ class VerificationRequest:
     caution: str | None = None
 
 
-def verification_for(model: Model, repaired: str) -> VerificationRequest:
-    """The first check after a repair of ``repaired``: its ``verify`` check, else the top event."""
+def _verify_check(model: Model, repaired: str):
+    """The repair's own ``verify`` check, or None."""
     event = model.event_by_id.get(repaired)
     verify = event.repair.verify if event is not None and event.repair is not None else None
-    if verify is not None and verify in model.check_by_id:
-        check = model.check_by_id[verify]
+    return model.check_by_id.get(verify) if verify is not None else None
+
+
+def verification_for(model: Model, repaired: str) -> VerificationRequest:
+    """The first check after a repair of ``repaired``: its ``verify`` check, else the top event."""
+    check = _verify_check(model, repaired)
+    if check is not None:
         return VerificationRequest(check.id, check.label, float(check.cost), tuple(check.outcomes),
                                    check.instructions, check.caution)
     return top_verification(model)
+
+
+def top_verification_cost(model: Model) -> float:
+    """What checking the unit itself costs (0 when the model gives no verification)."""
+    return float(model.verification.cost) if model.verification is not None else 0.0
 
 
 def top_verification(model: Model) -> VerificationRequest:
@@ -62,8 +72,8 @@ def top_verification(model: Model) -> VerificationRequest:
     v = model.verification
     if v is None:
         return VerificationRequest(model.top, f"does the unit work now? ({model.label_of(model.top)})",
-                                   0.0, ("works", "still fails"))
-    return VerificationRequest(model.top, v.label, float(v.cost), tuple(v.outcomes), v.instructions)
+                                   top_verification_cost(model), ("works", "still fails"))
+    return VerificationRequest(model.top, v.label, top_verification_cost(model), tuple(v.outcomes), v.instructions)
 
 
 def verification_of(model: Model, target: str, repaired: str) -> VerificationRequest:
@@ -79,9 +89,12 @@ def repair_cost(model: Model, root: str) -> float:
 
 def verification_cost(model: Model, root: str) -> float:
     """Cost of verifying a repair of ``root``: its own check (if any), then the unit itself."""
-    request = verification_for(model, root)
-    top = top_verification(model).cost
-    return request.cost + (top if request.target != model.top else 0.0)
+    # The same figure as verification_for(...).cost plus the unit's check,
+    # without building the requests (the policy asks it for every suspect
+    # of every outcome it weighs).
+    check = _verify_check(model, root)
+    top = top_verification_cost(model)
+    return top if check is None else float(check.cost) + top
 
 
 # ---------------------------------------------------------------- the order
