@@ -86,6 +86,8 @@ class Status(enum.StrEnum):
     AMBIGUITY = "ambiguity"
     AWAITING_VERIFICATION = "awaiting-verification"
     CONFIRMED = "confirmed"
+    #: The technician handed the unit over (a session's ``escalate`` action); never returned by :func:`decide`.
+    ESCALATED = "escalated"
 
 
 class Action(enum.StrEnum):

@@ -16,11 +16,14 @@ Actions are typed (:mod:`troubleshoot.session.actions`: one dataclass each);
 :meth:`Session.apply` takes one (or the dict the log stores) and calls the
 method: ``record_finding``, ``retract_finding``, ``correct_finding``,
 ``skip_check``, ``unskip_check``, ``record_repair``, ``record_verification``,
-``add_note``, ``acknowledge_caution``, ``undo``, ``record_resume``.
+``add_note``, ``acknowledge_caution``, ``escalate``, ``undo``, ``record_resume``.
 :attr:`Session.actions` lists them in order as committed.
 
 Status, in this order of precedence:
 
+``escalated``
+    The technician handed the unit over (:meth:`Session.escalate`); the
+    session is finished: only a note, or undo, is accepted.
 ``confirmed``
     The verification after the last repair says the unit works.
 ``awaiting-verification``
@@ -59,17 +62,22 @@ from troubleshoot.advice.diagnosis import (
     suspects,
 )
 from troubleshoot.advice.explain import Why, explain_check
+from troubleshoot.advice.policy import Action as Course
 from troubleshoot.advice.policy import (
     DEFAULT_GROUP_MIN_P,
     DEFAULT_MIN_BITS,
     DEFAULT_VALUE_DEPTH,
     DEFAULT_VALUE_LOOKAHEAD,
+    Alternative,
     Decision,
     OutsideModel,
+    Reason,
     Status,
     cost_of_check_then,
     decide,
+    escalation_price,
     finish_plan,
+    outside_model,
 )
 from troubleshoot.advice.policy import Settings as SessionSettings
 from troubleshoot.advice.policy import settings_for
@@ -92,6 +100,7 @@ from troubleshoot.session.actions import (
     Action,
     AddNote,
     CorrectFinding,
+    Escalate,
     RecordFinding,
     RecordRepair,
     RecordVerification,
@@ -101,6 +110,7 @@ from troubleshoot.session.actions import (
     Undo,
     UnskipCheck,
     as_action,
+    describe,
 )
 
 DIAGNOSING = Status.DIAGNOSING
@@ -108,6 +118,7 @@ ISOLATED = Status.ISOLATED
 AMBIGUITY = Status.AMBIGUITY
 AWAITING_VERIFICATION = Status.AWAITING_VERIFICATION
 CONFIRMED = Status.CONFIRMED
+ESCALATED = Status.ESCALATED
 STATUSES = tuple(Status)
 
 __all__ = ["DEFAULT_GROUP_MIN_P", "DEFAULT_MIN_BITS", "DEFAULT_VALUE_DEPTH", "DEFAULT_VALUE_LOOKAHEAD",
@@ -133,6 +144,7 @@ class Record:
     repairs: tuple[str, ...] = ()
     skipped: tuple[tuple[str, str], ...] = ()
     notes: tuple[str, ...] = ()
+    escalated: bool = False
 
     @property
     def findings(self) -> tuple[Finding, ...]:
@@ -180,7 +192,8 @@ class SessionState:
     skipped : tuple of (check id, reason)
     notes : tuple of str
     cost_spent : float
-        Checks, repairs and verifications so far, in ``cost_unit``.
+        Checks, repairs, verifications and (once escalated) the escalation's
+        price so far, in ``cost_unit``.
     cost_unit : str
     isolated : Suspect or None
     ambiguity_group : tuple of Suspect or None
@@ -272,7 +285,7 @@ class SessionView:
         a unit that still fails, sends the diagnosis on.
         """
         rec = self.record
-        if not rec.repairs:
+        if not rec.repairs or rec.escalated:
             return None
         done = [o for o in rec.observations if o.kind == VERIFICATION and o.finding.epoch == rec.epoch]
         if not done:
@@ -291,6 +304,8 @@ class SessionView:
     @cached_property
     def candidates(self) -> tuple[str, ...]:
         rec = self.record
+        if rec.escalated:
+            return ()
         done = {o.finding.target for o in rec.observations if o.finding.epoch == rec.epoch}
         skipped = {c for c, _ in rec.skipped}
         return tuple(c.id for c in self.model.checks + self.model.symptoms
@@ -322,15 +337,28 @@ class SessionView:
 
     @cached_property
     def decision(self) -> Decision:
-        """What to do next and why (:func:`troubleshoot.advice.policy.decide`)."""
+        """What to do next and why (:func:`troubleshoot.advice.policy.decide`); nothing once escalated."""
+        if self.record.escalated:
+            return self._escalated_decision()
         return decide(self.engine, self.posterior, self.settings, self.candidates,
                       verification=self.verification_request, confirmed=self.confirmed,
                       ranking=self.ranking, ranked=self.suspects)
 
+    def _escalated_decision(self) -> Decision:
+        """Done: the unit was handed over; the figures are those it was handed over with."""
+        model = self.model
+        unit = model.cost_unit
+        price = escalation_price(model)
+        what = model.escalation.label if model.escalation is not None else "handed over beyond the model"
+        text = f"the unit was handed over: {what}" + (f" ({price:g} {unit})" if price is not None else "")
+        reason = Reason("escalated", text, costs=(("escalate", price),) if price is not None else ())
+        return Decision(Course.DONE, None, 0.0, (Alternative(Course.DONE, None, 0.0),), (reason,),
+                        Status.ESCALATED, None, outside_model(self.engine, self.posterior), unit)
+
     @cached_property
     def finish(self) -> Decision:
         """How to finish without another check: repair the next suspect, or escalate (the policy's choice)."""
-        if self.verification_request is not None or self.confirmed:
+        if self.verification_request is not None or self.confirmed or self.record.escalated:
             return self.decision
         return decide(self.engine, self.posterior, self.settings, (), ranked=self.suspects)
 
@@ -385,6 +413,9 @@ class SessionView:
             event = model.event_by_id.get(r)
             if event is not None and event.repair is not None:
                 total += event.repair.cost
+        price = escalation_price(model)
+        if self.record.escalated and price is not None:
+            total += price
         return float(total)
 
     def finding_views(self) -> tuple[FindingView, ...]:
@@ -679,6 +710,30 @@ class Session:
                                                                          VERIFICATION),))
         return self._commit(RecordVerification(request.outcomes[index]), new)
 
+    def escalate(self, reason: str | None = None) -> SessionState:
+        """Hand the unit over (the model's escalation, at its price): the session ends escalated.
+
+        Allowed at any time before a confirmed repair, whatever the tool
+        advises; the log keeps what escalating means and costs by the model,
+        P(the cause lies outside the model) and whether the tool advised it.
+        Afterwards only a note or undo is accepted (undo takes it back).
+
+        Parameters
+        ----------
+        reason : str, optional
+            Why, in the technician's words.
+        """
+        view = self._view
+        if view.record.escalated:
+            raise SessionError("the unit was already handed over (escalated) in this session; undo to take it back")
+        self._refuse_if_confirmed("escalate")
+        model = self.model
+        action = Escalate((reason or "").strip() or None,
+                          model.escalation.label if model.escalation is not None else None,
+                          escalation_price(model), model.cost_unit, view.outside_model.p,
+                          view.decision.action == Course.ESCALATE)
+        return self._commit(action, replace(view.record, escalated=True), same_posterior=True)
+
     def add_note(self, text: str) -> SessionState:
         """Add a free-text note to the session (and its log)."""
         text = (text or "").strip()
@@ -767,6 +822,8 @@ class Session:
                 return self.add_note(text)
             case AcknowledgeCaution(check, _):
                 return self.acknowledge_caution(check)
+            case Escalate():
+                return self.escalate(action.reason)
             case Undo():
                 return self.undo()
             case Resume():
@@ -794,6 +851,9 @@ class Session:
         return self.state
 
     def _commit(self, action: Action, record: Record, same_posterior: bool = False) -> SessionState:
+        if self._view.record.escalated and not isinstance(action, AddNote):
+            raise SessionError(f"refused ({describe(action)}): the unit was handed over (escalated) and the "
+                               "diagnosis is finished; undo to take the escalation back")
         if same_posterior:
             view = SessionView(self.model, self.engine, self.settings, record, self._view.posterior)
         else:
@@ -819,6 +879,9 @@ class Session:
         return check
 
     def _refuse_if_confirmed(self, what: str) -> None:
+        if self._view.record.escalated:
+            raise SessionError(f"cannot {what}: the unit was handed over (escalated) and the diagnosis is "
+                               "finished; undo to take the escalation back")
         if self._view.confirmed:
             raise SessionError(f"cannot {what}: the repair is confirmed and the diagnosis is finished; "
                                "undo or retract the verification to go on")

@@ -426,13 +426,14 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
     Notes
     -----
     Memoised recursion of the Bellman equation in the module notes, with
-    branch and bound: every case still ends with a verified repair or an
-    escalation, so the cheapest of them bounds a state's value from below
-    (:meth:`Protocol.lower_bound`); a course whose cost so far plus the
-    bounds of its remaining branches reaches the best found is cut, and a
-    state is solved only as far as its budget requires (a state cut by its
-    budget keeps the bound it was cut at). Ties go to the first found:
-    escalation, then checks in model order, then repairs in model order.
+    branch and bound: the expected cost of ending the case with the faults
+    known bounds a state's value from below (:meth:`Protocol.lower_bound`);
+    a course whose cost so far plus the bounds of its remaining branches
+    reaches the best found is cut, and a state is solved only as far as its
+    budget requires (a state cut by its budget keeps the bound it was cut
+    at). Ties go to the first found: escalation, then checks in model order,
+    then repairs in decreasing P / (repair + first verification cost), by
+    model order within a tie.
 
     References
     ----------
@@ -455,15 +456,20 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
             cost, branches = protocol.after_repair(state, w, r)
             yield ("repair", r), cost, branches
 
-    def value(state: State, w: np.ndarray, budget: float = np.inf) -> float:
-        """V(state) when it is below ``budget``; otherwise some lower bound of it that is >= budget."""
+    def value(state: State, w: np.ndarray, budget: float = np.inf) -> tuple[float, bool]:
+        """(V(state), True) when it is below ``budget``; otherwise (a lower bound of it >= budget, False).
+
+        The flag, not a comparison with the budget, says which: p * (budget / p)
+        may round below the budget, and a bound taken for a value makes a
+        course look cheaper than it is.
+        """
         nonlocal visited
         key = protocol.key(state, w)
         if key in memo:
-            return memo[key]
+            return memo[key], True
         low = max(floor.get(key, 0.0), protocol.lower_bound(state, w))
         if low >= budget:
-            return low
+            return low, False
         visited += 1
         if visited > max_states:
             raise OptimalTooLarge(
@@ -479,24 +485,21 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
             total, cut = cost, False
             for (p, child, w2), low_i in zip(branches, lows):
                 rest -= low_i
-                allowed = (limit - total - rest) / p
-                v = value(child, w2, allowed)
-                # A value at or above its budget may be a bound only (the child was cut): never
-                # add it as exact (rounding of total + rest must not turn a bound into a value).
-                if v >= allowed:
+                v, exact = value(child, w2, (limit - total - rest) / p)
+                total += p * v
+                if not exact or total + rest >= limit:
                     cut = True
                     break
-                total += p * v
             if not cut and total < best * (1.0 - 1e-12):
                 best, action = total, course
         if best < budget:
             memo[key] = best
             policy[key] = action
-            return best
+            return best, True
         floor[key] = max(floor.get(key, 0.0), budget)
-        return budget
+        return budget, False
 
-    total = sum(p * value(state, w) for p, state, w in protocol.start())
+    total = sum(p * value(state, w)[0] for p, state, w in protocol.start())
     return OptimalSolution(float(total), policy, visited, protocol)
 
 
