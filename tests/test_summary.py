@@ -105,6 +105,12 @@ def test_the_ending_is_said_honestly():
     assert "Fault repaired" not in group
     open_ = summary_markdown(model, _state("isolated", isolated=a, suspects=(a,)))
     assert "**Ending:** Abandoned" in open_
-    escalated = summary_markdown(model, _state("ambiguity", suspects=(a,)),
-                                 records=[{"time": "2026-12-02T05:00:00Z", "action": {"action": "escalate"}}])
-    assert "**Ending:** Escalated" in escalated
+    # The ending is the session's status (an escalate action that stands), not the last line's kind.
+    record = {"time": "2026-12-02T05:00:00Z", "action": {"action": "escalate", "reason": "customer asked",
+                                                          "label": model.escalation.label, "cost": 720.0}}
+    escalated = summary_markdown(model, _state("escalated", suspects=(a,)), records=[record])
+    assert "**Ending:** Escalated" in escalated and model.escalation.label in escalated
+    assert "reason: customer asked" in escalated and "| 720 min |" in escalated
+    undone = summary_markdown(model, _state("ambiguity", suspects=(a,)),
+                              records=[record, {"time": "2026-12-02T05:01:00Z", "action": {"action": "undo"}}])
+    assert "**Ending:** Escalated" not in undone and "Undo: took back “Escalated" in undone

@@ -18,6 +18,7 @@ class                      log record ``action``    line-mode text
 :class:`UnskipCheck`       ``unskip``               ``unskip CHECK``
 :class:`RecordRepair`      ``repair``               ``repair EVENT``
 :class:`RecordVerification`  ``verify``             ``verify OUTCOME``
+:class:`Escalate`          ``escalate``             ``escalate [REASON...]``
 :class:`AddNote`           ``note``                 ``note TEXT...``
 :class:`AcknowledgeCaution`  ``acknowledge``        ``ack CHECK``
 :class:`Undo`              ``undo``                 ``undo``
@@ -32,6 +33,7 @@ also give its index (an int, 0 for the first).
 
 from __future__ import annotations
 
+import math
 import re
 import shlex
 from dataclasses import MISSING, dataclass, fields
@@ -124,6 +126,40 @@ class RecordVerification(Action):
 
 
 @dataclass(frozen=True)
+class Escalate(Action):
+    """The technician hands the unit over (the model's escalation); the session ends escalated.
+
+    Typed, only ``reason`` is given (the technician's own words, optional);
+    the session fills in the rest from the model and the state at that
+    moment, so the log keeps what the technician was shown when escalating.
+
+    Attributes
+    ----------
+    reason : str or None
+        Why, in the technician's words.
+    label : str or None
+        What escalating means, the model's words (``<escalation>``'s label);
+        None when the model gives no escalation.
+    cost : float or None
+        Its price in ``cost_unit``; None when the model gives none.
+    cost_unit : str or None
+        The model's cost unit.
+    outside_model_p : float or None
+        P(the cause lies outside the model | findings) when escalating.
+    advised : bool or None
+        The tool's decision at that moment was to escalate.
+    """
+
+    reason: str | None = None
+    label: str | None = None
+    cost: float | None = None
+    cost_unit: str | None = None
+    outside_model_p: float | None = None
+    advised: bool | None = None
+    kind: ClassVar[str] = "escalate"
+
+
+@dataclass(frozen=True)
 class AddNote(Action):
     """Free text kept in the log and the summary."""
 
@@ -196,7 +232,7 @@ class JobDetails(Action):
 ACTION_TYPES: dict[str, type[Action]] = {
     cls.kind: cls for cls in (RecordFinding, CorrectFinding, RetractFinding, SkipCheck, UnskipCheck,
                               RecordRepair, RecordVerification, AddNote, AcknowledgeCaution, Undo, Resume,
-                              JobDetails)
+                              JobDetails, Escalate)
 }
 
 #: Actions that change neither the findings nor the posterior and are not taken back by undo.
@@ -213,8 +249,17 @@ def _field_type_ok(name: str, value: Any) -> bool:
         return isinstance(value, (str, int)) and not isinstance(value, bool)
     if name == "epoch":
         return value is None or (isinstance(value, int) and not isinstance(value, bool) and value >= 0)
-    if name in ("caution", "model_path", "tool_version", "technician", "unit", "site", "work_order"):
+    if name in ("caution", "model_path", "tool_version", "technician", "unit", "site", "work_order",
+                "label", "cost_unit"):
         return value is None or isinstance(value, str)
+    if name == "cost":
+        return value is None or (isinstance(value, (int, float)) and not isinstance(value, bool)
+                                 and math.isfinite(value) and value >= 0)
+    if name == "outside_model_p":
+        return value is None or (isinstance(value, (int, float)) and not isinstance(value, bool)
+                                 and 0.0 <= value <= 1.0)
+    if name == "advised":
+        return value is None or isinstance(value, bool)
     if name == "model_sha256":
         return value is None or (isinstance(value, str) and re.fullmatch(r"[0-9a-f]{64}", value) is not None)
     if name == "model_changed":
@@ -228,6 +273,8 @@ _FIELD_WORDS = {
     "caution": "text", "model_path": "a path (text)", "tool_version": "text",
     "model_sha256": "64 lowercase hexadecimal digits", "model_changed": "true or false",
     "technician": "text", "unit": "text", "site": "text", "work_order": "text",
+    "label": "text", "cost_unit": "text", "cost": "a finite number, 0 or more",
+    "outside_model_p": "a probability from 0 to 1", "advised": "true or false",
 }
 
 
@@ -305,6 +352,8 @@ def describe(action: Action | dict) -> str:
         return "resume" + (" under a changed model" if action.model_changed else "")
     if isinstance(action, JobDetails):
         return "job details"
+    if isinstance(action, Escalate):
+        return "escalate" + (f" ({action.label})" if action.label else "")
     return action.kind
 
 
@@ -320,6 +369,8 @@ LINE_HELP = """commands (one per line):
   unskip CHECK             bring a skipped check back
   repair EVENT             record a repair
   verify OUTCOME           record the check after the repair (e.g. verify works, verify 1)
+  escalate [REASON...]     hand the unit over (the model's escalation, at its price); the
+                           session ends escalated ('undo' takes it back)
   ack CHECK                acknowledge the safety caution of a check before doing it
   note TEXT...             add a note to the log
   undo                     take back the last action
@@ -382,6 +433,8 @@ def parse_action(line: str) -> Action:
         if not rest:
             raise ActionError("write: verify OUTCOME")
         return RecordVerification(outcome_from_text(rest))
+    if word_folded == "escalate":
+        return Escalate(rest or None)
     if word_folded == "note":
         if not rest:
             raise ActionError("write: note TEXT")

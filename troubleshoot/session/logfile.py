@@ -7,7 +7,10 @@ further line is one action: its sequence number, time (ISO 8601, UTC), the
 action (:meth:`troubleshoot.session.actions.Action.to_record`) and what the
 tool showed after it (the top 10 of the ranking with bits, cost and score,
 the top 10 suspects with their probability, the remaining entropy in bits,
-log P(findings) and the status).
+log P(findings), the status, P(the cause lies outside the model) in total
+and per gate, and the decision: action, target and expected cost to finish
+in the model's cost unit). Lines written before the outside-model figures
+and the decision were logged lack those keys and read as they always did.
 
 Format version 2 chains the lines: each carries ``seq`` (0 for the header,
 then 1, 2, ...), ``prev`` (the ``hash`` of the line before it, null for the
@@ -72,6 +75,8 @@ JOB_KEYS = ("technician", "unit", "site", "work_order")
 LOG_MAX_BYTES = 64 * 1024 * 1024
 #: The keys of the state shown after each action, as the log keeps it.
 SNAPSHOT_KEYS = ("status", "entropy_bits", "log_p_findings", "ranking", "suspects")
+#: Keys logged since the escalation became an action (a line of an older log lacks them; no difference).
+LATER_SNAPSHOT_KEYS = ("outside_model_p", "outside_model_by_gate", "decision")
 
 _HASH_TAIL = re.compile(rb', "hash": "([0-9a-f]{64})"\}\Z')
 _HASH_TAIL_LENGTH = len(b', "hash": "') + 64 + len(b'"}')
@@ -98,7 +103,15 @@ def snapshot(view: SessionView) -> dict:
         "ranking": [{"id": r.check, "bits": r.bits, "cost": r.cost, "score": _json_score(r.score)}
                     for r in view.ranking.rows[:LOGGED_ROWS]],
         "suspects": [{"id": s.id, "p": s.p} for s in view.suspects[:LOGGED_ROWS]],
+        "outside_model_p": view.outside_model.p,
+        "outside_model_by_gate": dict(view.outside_model.by_gate),
+        "decision": {"action": str(view.decision.action), "target": view.decision.target,
+                     "expected_cost": _finite(view.decision.expected_cost)},
     }
+
+
+def _finite(x: float | None) -> float | None:
+    return None if x is None or not math.isfinite(x) else float(x)
 
 
 def file_sha256(path: str | os.PathLike) -> str:
@@ -130,6 +143,7 @@ def header_record(session: Session, version: int = LOG_FORMAT_VERSION) -> dict:
             "group_min_p": session.settings.group_min_p,
             "value_lookahead": session.settings.value_lookahead,
             "value_depth": session.settings.value_depth,
+            "value_run": session.settings.value_run,
         },
         "time": utc_now(),
         "job": dict(getattr(session, "job", None) or {}),
@@ -401,6 +415,10 @@ def _is_number(value: Any) -> bool:
     return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
 
 
+def _is_probability(value: Any) -> bool:
+    return _is_number(value) and 0.0 <= value <= 1.0
+
+
 def _is_count(value: Any) -> bool:
     return isinstance(value, int) and not isinstance(value, bool) and value >= 0
 
@@ -422,6 +440,21 @@ def _snapshot_problem(record: dict) -> str | None:
     for key in ("entropy_bits", "log_p_findings"):
         if key in record and not _is_number(record[key]):
             return f"field {key!r} must be a number, not {record[key]!r}"
+    if "outside_model_p" in record and not _is_probability(record["outside_model_p"]):
+        return f"field 'outside_model_p' must be a probability from 0 to 1, not {record['outside_model_p']!r}"
+    if "outside_model_by_gate" in record:
+        by_gate = record["outside_model_by_gate"]
+        if not isinstance(by_gate, dict) or not all(isinstance(g, str) and _is_probability(p)
+                                                    for g, p in by_gate.items()):
+            return f"field 'outside_model_by_gate' must map gate ids to probabilities, not {by_gate!r}"
+    if "decision" in record:
+        decision = record["decision"]
+        if not (isinstance(decision, dict) and {"action", "target", "expected_cost"} <= set(decision)
+                and isinstance(decision.get("action"), str)
+                and (decision.get("target") is None or isinstance(decision.get("target"), str))
+                and (decision.get("expected_cost") is None or _is_number(decision.get("expected_cost")))):
+            return (f"field 'decision' must be an object with an 'action' (text), a 'target' (text or null) "
+                    f"and an 'expected_cost' (a number or null), not {decision!r}")
     for key, names in (("ranking", ("bits", "cost", "score")), ("suspects", ("p",))):
         if key not in record:
             continue
@@ -460,7 +493,7 @@ def _header_problem(header: dict) -> str | None:
     for key in ("isolation_threshold", "min_bits", "group_min_p"):
         if key in settings and not _is_number(settings[key]):
             return f"header setting {key!r} must be a number, not {settings[key]!r}"
-    for key in ("value_lookahead", "value_depth"):
+    for key in ("value_lookahead", "value_depth", "value_run"):
         if key in settings and not _is_count(settings[key]):
             return f"header setting {key!r} must be a whole number, not {settings[key]!r}"
     return _snapshot_problem(header)

@@ -22,12 +22,31 @@ STATUS_SENTENCES = {
     Status.AMBIGUITY: "only an ambiguity group is left, not yet repaired",
     Status.AWAITING_VERIFICATION: "repair recorded, not yet verified",
     Status.CONFIRMED: "repair confirmed: the unit works",
+    Status.ESCALATED: "handed over (escalated): the diagnosis is finished",
 }
 
 
 def percent(p: float) -> str:
     """A probability as a percentage with its unit: ``12.3 %``."""
     return f"{p * 100:.1f} %"
+
+
+def outside_words(p: float) -> str:
+    """How likely the cause lies outside the model, in words (thresholds: ours, common practice).
+
+    ``near certain`` (0.9 or more), ``likely`` (0.6), ``possible`` (0.3),
+    ``unlikely`` (0.05), ``remote`` (below). The UI says "a cause this model
+    does not list: likely"; the figures key shows the number.
+    """
+    if p >= 0.9:
+        return "near certain"
+    if p >= 0.6:
+        return "likely"
+    if p >= 0.3:
+        return "possible"
+    if p >= 0.05:
+        return "unlikely"
+    return "remote"
 
 
 def conclusion(model, state) -> list[tuple[str, str]]:
@@ -132,6 +151,21 @@ def decision_lines(state) -> list[str]:
     return lines
 
 
+def escalation_lines(state) -> list[str]:
+    """The line mode's word on escalating: P(cause outside the model), and the advice when it is to escalate."""
+    lines = []
+    if state.outside_model_by_gate:
+        lines.append(f"cause outside the model: P = {state.outside_model_p:.3f} ("
+                     + ", ".join(f"under {g} {p:.3f}" for g, p in state.outside_model_by_gate) + ")")
+    d = state.decision
+    if d is not None and d.action == "escalate" and state.status != Status.ESCALATED:
+        price = (f"{d.expected_cost:g} {state.cost_unit}" if d.expected_cost is not None
+                 else "the model gives no price")
+        why = d.reasons[0].text if d.reasons else ""
+        lines.append(f"advice: escalate ({price}): {why}; type 'escalate REASON' to hand the unit over")
+    return lines
+
+
 def _repair_order_lines(state, unit: str, indent: str) -> list[str]:
     if state.status not in (ISOLATED, AMBIGUITY) or not state.repair_order:
         return []
@@ -162,6 +196,7 @@ def render_brief(state) -> str:
     if state.status in (ISOLATED, AMBIGUITY) and state.repair_order:
         lines.append("repair order: " + ", ".join(s.id for s in state.repair_order))
     lines.append("suspects: " + ", ".join(f"{s.id} {s.p:.3f}" for s in state.suspects[:5]))
+    lines += escalation_lines(state)
     for c in state.cautions:
         lines.append(f"CAUTION: {c}")
     return "\n".join(lines)

@@ -3,7 +3,10 @@
 :func:`rerun` applies a log's typed actions to a fresh :class:`Session` on
 its model and compares the state after each with what the log says the tool
 showed: every ranking row (bits, cost, score), every suspect's probability,
-the remaining entropy, log P(findings) and the status, to 1e-9. What differs
+the remaining entropy, log P(findings), the status, and (on lines that carry
+them) P(the cause lies outside the model) in total and per gate and the
+decision (action, target, expected cost), to 1e-9; an ``escalate`` line's
+price, words, outside-model probability and whether it was advised as well. What differs
 is a :class:`Difference`; an action the session refuses now is a
 :class:`Refusal`. A ``resume`` line that names another model file switches
 the re-run to that file (when its SHA-256 still matches), re-running every
@@ -20,7 +23,7 @@ from typing import Any
 
 from troubleshoot.errors import LogError, SessionError, TroubleshootError
 from troubleshoot.model import Model
-from troubleshoot.session.actions import Action, Resume, describe
+from troubleshoot.session.actions import Action, Escalate, Resume, describe
 from troubleshoot.session.logfile import (
     SNAPSHOT_KEYS,
     LogContents,
@@ -74,8 +77,12 @@ class Difference:
         if self.name == "missing":
             return f"{where}: the key {self.key!r} is missing from the log line"
         if self.row is None:
-            what = {"entropy_bits": "remaining entropy (bits)", "log_p_findings": "log P(findings)"}.get(
-                self.key, self.key)
+            what = {"entropy_bits": "remaining entropy (bits)", "log_p_findings": "log P(findings)",
+                    "outside_model_p": "P(cause outside the model)",
+                    "outside_model_by_gate": "P(cause outside the model) under gate",
+                    "escalate": "the escalation's"}.get(self.key, self.key)
+            if self.name:
+                what += f" {self.name}"
             return f"{where}: {what} is {self.logged!r} in the log but {self.now!r} now"
         if self.name == "rows":
             return f"{where}: {self.key} has {self.logged} rows in the log but {self.now} now"
@@ -190,6 +197,20 @@ def compare_snapshot(logged: dict, now: dict, line: int = 0, action: str = "", p
             diff(key, old=logged[key], new=now[key])
     if "status" in logged and logged["status"] != now["status"]:
         diff("status", old=logged["status"], new=now["status"])
+    if "outside_model_p" in logged and not _close(logged["outside_model_p"], now["outside_model_p"]):
+        diff("outside_model_p", old=logged["outside_model_p"], new=now["outside_model_p"])
+    if isinstance(logged.get("outside_model_by_gate"), dict):
+        old_gates, new_gates = logged["outside_model_by_gate"], now["outside_model_by_gate"]
+        for gate in sorted(set(old_gates) | set(new_gates)):
+            if not _close(old_gates.get(gate), new_gates.get(gate)):
+                diff("outside_model_by_gate", name=gate, old=old_gates.get(gate), new=new_gates.get(gate))
+    if isinstance(logged.get("decision"), dict):
+        old_d, new_d = logged["decision"], now["decision"]
+        for name in ("action", "target"):
+            if old_d.get(name) != new_d[name]:
+                diff("decision", name=name, old=old_d.get(name), new=new_d[name])
+        if not _close(old_d.get("expected_cost"), new_d["expected_cost"]):
+            diff("decision", name="expected_cost", old=old_d.get("expected_cost"), new=new_d["expected_cost"])
     for key, names in (("ranking", ("bits", "cost", "score")), ("suspects", ("p",))):
         if key not in logged:
             continue
@@ -204,6 +225,20 @@ def compare_snapshot(logged: dict, now: dict, line: int = 0, action: str = "", p
             for name in names:
                 if not _close(a.get(name), b[name]):
                     diff(key, i, name, a.get(name), b[name])
+    return out
+
+
+def _escalation_differences(logged: Escalate, now: Action, line: int, path: str) -> list[Difference]:
+    """What an ``escalate`` line says it was shown (price, words, P outside, advised) against the re-run."""
+    assert isinstance(now, Escalate)
+    out = []
+    for name in ("label", "cost", "cost_unit", "outside_model_p", "advised"):
+        old, new = getattr(logged, name), getattr(now, name)
+        if old is None:
+            continue  # not logged (a record typed by hand): nothing to confirm
+        same = _close(old, new) if name in ("cost", "outside_model_p") else old == new
+        if not same:
+            out.append(Difference(line, describe(logged), "escalate", None, name, old, new, path))
     return out
 
 
@@ -229,7 +264,7 @@ def _settings_from(contents: LogContents, model: Model) -> SessionSettings:
     s = contents.header.get("settings") or {}
     try:
         return settings_for(model, s.get("isolation_threshold"), s.get("min_bits"), s.get("group_min_p"),
-                            s.get("value_lookahead"), s.get("value_depth"))
+                            s.get("value_lookahead"), s.get("value_depth"), s.get("value_run"))
     except SessionError as exc:
         raise LogError(f"{contents.path}:1: bad settings in the header: {exc}") from None
 
@@ -247,8 +282,7 @@ def _switch_model(contents: LogContents, line: int, resume: Resume, settings: Se
         return None
     model, _ = load_any_model(resume.model_path)
     session = Session(model, settings.validated(), model_path=resume.model_path)
-    for action in done:
-        session.apply(action)
+    session.apply_all(done)
     report.warnings.append(f"{where}: the session was resumed under another model file, {resume.model_path}; "
                            "the re-run goes on with it")
     return session
@@ -303,6 +337,8 @@ def rerun(contents: LogContents, model: Model | None = None, stop_at_difference:
         done.append(action)
         report.actions += 1
         found = compare_snapshot(line.record, snapshot(session.view), line.number, describe(action), path)
+        if isinstance(action, Escalate):
+            found += _escalation_differences(action, session.actions[-1], line.number, path)
         report.differences += found
         if found and stop_at_difference:
             return report

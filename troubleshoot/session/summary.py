@@ -24,7 +24,7 @@ from __future__ import annotations
 import datetime as _dt
 from pathlib import Path
 
-from troubleshoot.session.render import STATUS_SENTENCES
+from troubleshoot.session.render import STATUS_SENTENCES, outside_words
 from troubleshoot.advice.policy import Status
 
 __all__ = ["STATUS_SENTENCES", "ending", "summary_markdown", "summary_path", "write_summary"]
@@ -166,15 +166,29 @@ class _Narrator:
                 words += f"; under a changed model: {action.get('model_path')}"
             return words, ""
         elif kind == "escalate":
-            what = action.get("text") or action.get("label") or action.get("target") or "beyond the model"
-            words = f"Escalated: {what}"
-            if action.get("cost") is not None:
-                cost = f"{_number(float(action['cost']))} {self.unit}"
+            words, cost = escalation_words(action, self.unit)
         else:
             detail = ", ".join(f"{k}={v}" for k, v in action.items() if k != "action")
             return f"{str(kind).capitalize()}" + (f": {detail}" if detail else ""), ""
         self.history.append((before, words))
         return words, cost
+
+
+def escalation_words(action: dict, unit: str) -> tuple[str, str]:
+    """(``Escalated: <what it means> — ...``, its price with unit or empty) for a logged ``escalate``."""
+    what = action.get("label") or "handed over beyond the model (the model names no escalation)"
+    words = f"Escalated: {what}"
+    advised = action.get("advised")
+    if advised is not None:
+        words += " — advised by the tool" if advised else " — the technician's choice (the tool advised otherwise)"
+    p = action.get("outside_model_p")
+    if p is not None:
+        words += f"; a cause this model does not list: {outside_words(p)} ({_percent(p)})"
+    if action.get("reason"):
+        words += f"; reason: {action['reason']}"
+    price = action.get("cost")
+    cost = f"{_number(float(price))} {action.get('cost_unit') or unit}" if price is not None else "no price in the model"
+    return words, cost
 
 
 def ending(model, state, records=()) -> tuple[str, str]:
@@ -185,12 +199,19 @@ def ending(model, state, records=()) -> tuple[str, str]:
     and the repairs were not finished), or ``abandoned`` (stopped before the
     end).
     """
-    kinds = [r.get("action", {}).get("action") for r in records]
     if state.status == Status.CONFIRMED:
         repaired = model.label_of(state.repairs[-1]) if state.repairs else "the repair"
         return "Confirmed", f"the unit works after the repair of {repaired}"
-    if kinds and kinds[-1] == "escalate":
-        return "Escalated", "handed over: the cause is beyond what this model covers"
+    if state.status == Status.ESCALATED:
+        escalations = [r.get("action") or {} for r in records if (r.get("action") or {}).get("action") == "escalate"]
+        if model.escalation is not None:
+            what = f"{model.escalation.label} ({_number(model.escalation.cost)} {model.cost_unit})"
+        else:
+            what = "beyond the model (it gives no escalation price)"
+        detail = f"handed over: {what}"
+        if escalations and escalations[-1].get("reason"):
+            detail += f"; reason: {escalations[-1]['reason']}"
+        return "Escalated", detail
     if state.status == Status.AMBIGUITY and state.ambiguity_group:
         group = "; ".join(f"{s.label} ({_percent(s.p)})" for s in state.ambiguity_group)
         return ("Stopped with an ambiguity group",
@@ -260,9 +281,17 @@ def summary_markdown(model, state, log_path: str | Path | None = None,
         event = model.event_by_id.get(r)
         if event is not None and event.repair is not None:
             repair_cost += event.repair.cost
+    escalation = ""
+    if state.status == Status.ESCALATED and model.escalation is not None:
+        escalation = f", escalation {_number(model.escalation.cost)} {unit}"
     lines.append(f"- **Cost of the steps, by the model's figures:** {_number(state.cost_spent)} {unit} "
                  f"(checks {_number(check_cost)} {unit}, repairs {_number(repair_cost)} {unit}, "
-                 f"verifications {_number(verify_cost)} {unit}; steps taken back are not counted)")
+                 f"verifications {_number(verify_cost)} {unit}{escalation}; steps taken back are not counted)")
+    if state.outside_model_by_gate:
+        gates = "; ".join(f"under {model.label_of(g)}: {outside_words(p)} ({_percent(p)})"
+                          for g, p in state.outside_model_by_gate)
+        lines.append(f"- **A cause this model does not list:** {outside_words(state.outside_model_p)} "
+                     f"({_percent(state.outside_model_p)}; {gates})")
     if started is not None and ended is not None:
         lines.append(f"- **Wall-clock time:** {_duration((ended - started).total_seconds())} "
                      f"(from {started:%Y-%m-%d %H:%M} to {ended:%Y-%m-%d %H:%M} UTC)")

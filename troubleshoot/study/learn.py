@@ -109,7 +109,7 @@ class SessionData:
     confirmed : str or None
         The last repair, when the unit was then verified working.
     escalated : bool
-        The session ended handed over (an escalation; no such action is logged yet).
+        The session ended handed over: an ``escalate`` action stands (not undone).
     time : str
         The session's start (header time, ISO 8601), or "".
     """
@@ -150,7 +150,7 @@ def fold_actions(model: Model, actions) -> SessionData:
     SessionError
         An action the session would have refused (the log was edited or is inconsistent).
     """
-    from troubleshoot.session.actions import (EVENTS, CorrectFinding, RecordFinding, RecordRepair,
+    from troubleshoot.session.actions import (EVENTS, CorrectFinding, Escalate, RecordFinding, RecordRepair,
                                               RecordVerification, RetractFinding, Undo, as_action)
     from troubleshoot.session.session import outcome_index
 
@@ -158,6 +158,7 @@ def fold_actions(model: Model, actions) -> SessionData:
     obs: list[tuple[Finding, str]] = [(Finding(top, 1, 0), "complaint")]
     repairs: list[str] = []
     history: list[tuple[tuple, tuple]] = []
+    escalated_at: int | None = None  # len(history) just after the escalation that stands
 
     def request():
         if not repairs:
@@ -183,6 +184,8 @@ def fold_actions(model: Model, actions) -> SessionData:
                 raise SessionError("undo with nothing to undo")
             o, r = history.pop()
             obs, repairs = list(o), list(r)
+            if escalated_at is not None and len(history) < escalated_at:
+                escalated_at = None  # the undo took the escalation back
             continue
         if isinstance(action, EVENTS):
             continue  # logged, never undone, no finding
@@ -218,12 +221,14 @@ def fold_actions(model: Model, actions) -> SessionData:
             if action.event not in model.event_by_id or action.event in repairs:
                 raise SessionError(f"repair of {action.event!r} is not possible here")
             repairs.append(action.event)
+        elif isinstance(action, Escalate):
+            escalated_at = len(history)
         # skip, unskip and note change no finding
     confirmed = None
     if repairs and any(k == "verification" and f.epoch == len(repairs) and f.target == top and f.outcome == 0
                        for f, k in obs):
         confirmed = repairs[-1]
-    return SessionData(tuple(f for f, _ in obs), tuple(repairs), confirmed)
+    return SessionData(tuple(f for f, _ in obs), tuple(repairs), confirmed, escalated=escalated_at is not None)
 
 
 def model_sha256(spec_path: str | Path) -> str:

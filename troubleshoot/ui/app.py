@@ -168,7 +168,9 @@ class TroubleshootApp(App[int]):
             self.say(done)
         if then is not None:
             self.call_after_refresh(then)  # after a dialog dismissed just before is gone
-        if self.state is not None and self.state.status == Status.CONFIRMED and before != Status.CONFIRMED:
+        # The diagnosis is finished (repair confirmed, or the unit handed over): the summary comes up.
+        finished = (Status.CONFIRMED, Status.ESCALATED)
+        if self.state is not None and self.state.status in finished and before not in finished:
             self.show_summary()
 
     def _show_busy(self) -> None:

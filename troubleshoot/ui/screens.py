@@ -26,9 +26,14 @@ from troubleshoot.ui.widgets import (
     FindingsPanel,
     StatusBar,
     SuspectsPanel,
+    OUTSIDE_NAME,
+    advises_escalation,
     bits_text,
     checks_title,
     cost_text,
+    escalation_price_text,
+    escalation_reason,
+    outside_text,
     outcome_odds_line,
     percent,
     truncate,
@@ -175,6 +180,7 @@ class MainScreen(Screen):
         Binding("r", "repair", "Repair"),
         Binding("v", "verify", "Verify"),
         Binding("m", "note", "Note"),
+        Binding("e", "escalate", "Escalate"),
         Binding("f", "figures", "Figures", show=False),
         Binding("question_mark", "help", "Help", key_display="?"),
         Binding("q", "app.quit_session", "Quit"),
@@ -203,7 +209,8 @@ class MainScreen(Screen):
             findings = FindingsPanel(id="findings")
             findings.border_title = "Findings and repairs"
             yield findings
-        yield Footer()
+        # Compact: every key of this screen fits in 80 columns, Verify and Escalate included.
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self.query_one("#checks-panel").border_title = "Checks"
@@ -217,10 +224,11 @@ class MainScreen(Screen):
         self.query_one("#status", StatusBar).show(app.complaint, state, app.busy, app.show_figures)
         if state is None:
             return
-        self.query_one("#diagnosis", DiagnosisPanel).show(state)
+        model = app.session.model
+        self.query_one("#diagnosis", DiagnosisPanel).show(state, model, app.show_figures)
         self.query_one("#checks-panel").border_title = checks_title(state)
         self.query_one("#checks", ChecksTable).show(state, app.session.model, app.show_figures, keep_cursor)
-        self.query_one("#suspects", SuspectsPanel).show(state.suspects)
+        self.query_one("#suspects", SuspectsPanel).show(state.suspects, state, model, app.show_figures)
         self.query_one("#findings", FindingsPanel).show(state, app.session.model)
         self._show_detail()
         self.refresh_bindings()
@@ -269,6 +277,9 @@ class MainScreen(Screen):
         # The verify key is shown only while a repair awaits its verification.
         if action == "verify":
             return state is not None and state.status == Status.AWAITING_VERIFICATION
+        # Escalating is open at any time until the diagnosis is finished.
+        if action == "escalate":
+            return state is None or state.status not in (Status.CONFIRMED, Status.ESCALATED)
         return True
 
     def _highlighted_row(self):
@@ -449,17 +460,20 @@ class MainScreen(Screen):
         self.tsapp.push_screen(PromptScreen("Note", "Your note for the log:"), noted)
 
     def action_escalate(self) -> None:
-        """Hand the unit over: the escalation, its price and the reason go to the log as a note."""
-        session = self.tsapp.session
-        model = session.model
-        state = session.state
-        what = model.escalation.label if model.escalation is not None else "hand the unit over beyond the model"
-        price = (f", {model.escalation.cost:g} {model.cost_unit}" if model.escalation is not None else "")
-        why = state.decision.reasons[0].text if state.decision is not None and state.decision.reasons else ""
-        text = (f"escalated: {what}{price}; cause outside the model with probability "
-                f"{state.outside_model_p:.2f}" + (f"; the tool said: {why}" if why else ""))
-        self.tsapp.perform("recording the escalation", lambda: session.add_note(text),
-                         done="Escalation recorded in the log; key q ends the session.")
+        """Hand the unit over, after a card that says what it means, its price and the tool's advice."""
+        state = self.tsapp.state
+        if state is None:
+            return
+        model = self.tsapp.session.model
+
+        def confirmed(yes: bool | None) -> None:
+            if yes:
+                self.tsapp.perform("handing the unit over", self.tsapp.session.escalate,
+                                   done=f"Escalated: {escalation_price_text(model)}. The summary is written.")
+
+        card = escalation_card_text(state, model, self.tsapp.show_figures)
+        self.tsapp.push_screen(ConfirmScreen("Escalate: hand the unit over?", card, "y escalates",
+                                             id="escalate-card"), confirmed)
 
     def action_help(self) -> None:
         self.tsapp.push_screen(HelpScreen(self.tsapp.session.engine.name))
@@ -588,6 +602,32 @@ def why_card_text(card: CheckCard) -> str:
     return "\n".join(lines)
 
 
+def escalation_card_text(state, model, figures: bool = False) -> str:
+    """The escalation card: what escalating means and costs (the model's words), the tool's advice, the end."""
+    lines = [f"What it means: {model.escalation.label}" if model.escalation is not None
+             else "What it means: hand the unit over beyond the model (the model names no escalation)."]
+    if model.escalation is not None:
+        lines.append(f"Price: {cost_text(model.escalation.cost, model.cost_unit)}, counted once "
+                     "(the model's figure).")
+        if model.escalation.instructions:
+            lines.append(f"Before handing over: {model.escalation.instructions}")
+    else:
+        lines.append("Price: the model gives no price for escalating.")
+    if advises_escalation(state):
+        lines.append(f"The tool advises it: {escalation_reason(state, figures)}.")
+    else:
+        d = state.decision
+        course = {"check": "the recommended check", "repair": "a repair", "verify": "verifying the repair"}.get(
+            str(d.action), str(d.action)) if d is not None else "going on"
+        finish = (f" (expected {cost_text(round(d.expected_cost), model.cost_unit)} to finish)"
+                  if d is not None and d.expected_cost is not None else "")
+        lines.append(f"The tool advises {course} instead{finish}; {OUTSIDE_NAME}: "
+                     f"{outside_text(state.outside_model_p, figures)}.")
+    lines.append("Escalating ends this diagnosis as escalated (the log and the summary say so); "
+                 "u on the main screen takes it back.")
+    return "\n".join(lines).replace(" %", "\u00a0%")
+
+
 class ConfirmScreen(ModalScreen):
     """A yes/no question; y confirms, n or Escape declines."""
 
@@ -597,16 +637,17 @@ class ConfirmScreen(ModalScreen):
         Binding("escape", "answer(False)", "No", show=False),
     ]
 
-    def __init__(self, title: str, question: str) -> None:
-        super().__init__(classes="prompt-screen")
+    def __init__(self, title: str, question: str, yes: str = "y records it", id: str | None = None) -> None:
+        super().__init__(classes="prompt-screen", id=id)
         self.title_text = title
         self.question = question
+        self.yes = yes
 
     def compose(self) -> ComposeResult:
         with Vertical(classes="card"):
             yield Static(Text(self.title_text, style="bold"))
             yield Static(Text(self.question), id="confirm-question")
-            yield Static("y records it; n or Escape goes back.")
+            yield Static(f"{self.yes}; n or Escape goes back.")
         yield Footer()
 
     def action_answer(self, yes: bool) -> None:
@@ -737,6 +778,7 @@ HELP_TEXT = """\
 | r | record a repair (the repair order comes first) |
 | v | verify the last repair (shown while a repair awaits it) |
 | m | add a note to the log |
+| e | escalate: hand the unit over; a card shows what it means, its price and the tool's advice; `y` confirms, `u` undoes |
 | f | show or hide the figures: information in bits, scores, uncertainty |
 | ? | this help |
 | q | quit: every action is already saved in the log |
@@ -756,11 +798,18 @@ light and a dark theme.
 - **Narrows**: how much the check is expected to narrow the suspects down
   (a lot, well, somewhat, a little, not at all), against what is still unknown.
 - **Abnormal**: the chance that the check reads abnormal.
+- **⚑ ESCALATE**: the tool advises handing the unit over; the line says why
+  (how likely a cause this model does not list is, in words: remote,
+  unlikely, possible, likely, near certain) and what it costs.
+- **outside the model** (under the suspects): how likely the cause is one the
+  model does not list, all such causes together, in those words; each gate's
+  share is listed among the suspects as **not listed (…): <gate>**.
 - **Suspects**: the chance that each part has failed, given the findings;
   a repaired part leaves the list and is shown under the findings.
 - With the figures shown (`f`): **Info**, the information the check is
   expected to give in bits; **Score**, bits per cost unit (a free
-  informative check reads ∞); **uncertainty**, what is still unknown, in bits.
+  informative check reads ∞); **uncertainty**, what is still unknown, in bits;
+  the chance of a cause outside the model as a percentage.
 
 ⚠ The suggestions do not replace the equipment maker's procedures,
 lockout/tagout, local codes or licensed practice.

@@ -19,6 +19,7 @@ from textual.coordinate import Coordinate
 from textual.widgets import DataTable, Static
 
 from troubleshoot.session import Status
+from troubleshoot.session.render import outside_words
 
 #: Eighths of a cell, for probability bars finer than one character.
 _BAR_EIGHTHS = " ▏▎▍▌▋▊▉"
@@ -32,7 +33,12 @@ STATUS_WORDS = {
     Status.AMBIGUITY: "◇ AMBIGUITY GROUP",
     Status.AWAITING_VERIFICATION: "▲ VERIFY THE REPAIR",
     Status.CONFIRMED: "✔ REPAIR CONFIRMED",
+    Status.ESCALATED: "⚑ HANDED OVER",
 }
+#: The status word while the tool advises escalating (before the technician does).
+ESCALATE_WORD = "⚑ ESCALATE"
+#: What the probability that the cause lies outside the model is called on screen.
+OUTSIDE_NAME = "a cause this model does not list"
 
 
 def percent(p: float) -> str:
@@ -166,6 +172,48 @@ def repair_order_lines(state, limit: int | None = None) -> list[str]:
     return lines
 
 
+def advises_escalation(state) -> bool:
+    """The tool's decision is to hand the unit over (and the technician has not yet)."""
+    d = state.decision
+    return d is not None and d.action == "escalate" and state.status != Status.ESCALATED
+
+
+def status_word(state) -> str:
+    """The status in a word and a symbol; ``⚑ ESCALATE`` while the tool advises escalating."""
+    if advises_escalation(state):
+        return ESCALATE_WORD
+    return STATUS_WORDS.get(state.status, state.status)
+
+
+def outside_text(p: float, figures: bool = False) -> str:
+    """P(the cause lies outside the model) in words (``likely``), or as a percentage with the figures shown."""
+    return percent(p) if figures else outside_words(p)
+
+
+def escalation_price_text(model) -> str:
+    """What escalating means and costs, the model's words: ``Call the … engineer — 720 min``."""
+    if model.escalation is None:
+        return "Hand the unit over (no price in the model)"
+    return f"{model.escalation.label} — {cost_text(model.escalation.cost, model.cost_unit)}"
+
+
+def escalation_reason(state, figures: bool = False) -> str:
+    """Why the tool advises escalating, in words: the cause outside the model, or the cheaper course."""
+    d = state.decision
+    reason = d.reasons[0] if d is not None and d.reasons else None
+    outside = f"{OUTSIDE_NAME}: {outside_text(state.outside_model_p, figures)}"
+    if reason is None or reason.kind == "outside-model":
+        return f"{outside}; no listed repair is expected to help"
+    if reason.kind == "escalation-cheaper":
+        repair = dict(reason.costs).get("repair")
+        against = (f"repairing in order (expected {cost_text(round(repair), state.cost_unit)})"
+                   if repair is not None else "anything left to repair")
+        return f"handing over is expected to cost less than {against}; {outside}"
+    if reason.kind == "nothing-left":
+        return f"no repairable suspect is left; {outside}"
+    return reason.text
+
+
 def why_line(state) -> str:
     """One line saying what to do next and why, in the technician's words, from the policy's decision."""
     unit = state.cost_unit
@@ -180,12 +228,10 @@ def why_line(state) -> str:
         return f"check that the repair worked: {v.label} ({cost_text(v.cost, unit)})"
     if state.status == Status.CONFIRMED:
         return "the unit works: the repair is confirmed"
+    if state.status == Status.ESCALATED:
+        return "the unit was handed over"
     if decision is not None and decision.action == "escalate":
-        reason = decision.reasons[0] if decision.reasons else None
-        if reason is None or reason.kind == "outside-model":
-            return (f"the cause is probably outside this model ({percent(state.outside_model_p)}): "
-                    "no listed repair is expected to help; hand the unit over")
-        return reason.text
+        return escalation_reason(state)
     target = decision.target if decision is not None and decision.action == "repair" else None
     step = next((r for r in state.repair_order if r.id == target), None) if target else None
     if step is None:
@@ -201,9 +247,23 @@ def why_line(state) -> str:
     return f"no check is worth its time now: repair {step.label} ({percent(step.p)}) first — {job}{finish}"
 
 
-def diagnosis_text(state) -> str:
-    """What the diagnosis says now, in words: the status, what to do next and why."""
-    word = STATUS_WORDS.get(state.status, state.status)
+def diagnosis_text(state, model=None, figures: bool = False) -> str:
+    """What the diagnosis says now, in words: the status, what to do next and why.
+
+    When the tool advises escalating, that comes first: why (the cause
+    outside the model in words), what escalating means and its price with
+    its unit (the model's), and the key.
+    """
+    word = status_word(state)
+    if state.status == Status.ESCALATED:
+        what = f": {escalation_price_text(model)}" if model is not None else ""
+        return (f"{word}{what}. The diagnosis is finished; key q quits (the summary is written beside "
+                "the log), u takes the escalation back.")
+    if advises_escalation(state):
+        lines = [f"{word} — {escalation_reason(state, figures)}.".replace(" %", "\u00a0%")]
+        if model is not None:
+            lines.append(f"{escalation_price_text(model)}. Key e escalates.")
+        return "\n".join(lines)
     if state.status == Status.DIAGNOSING:
         nxt = state.next_check
         if nxt is None:
@@ -231,7 +291,7 @@ class StatusBar(Static):
         if busy:
             text.append("⏳ working… ", style="bold reverse")
         if state is not None:
-            text.append(STATUS_WORDS.get(state.status, state.status), style="bold")
+            text.append(status_word(state), style="bold")
             top = next((s for s in state.suspects if not s.repaired), None)
             if figures:
                 text.append(f" │ uncertainty {bits_text(state.entropy_bits)}")
@@ -250,10 +310,11 @@ class DiagnosisPanel(VerticalScroll):
     def compose(self):
         yield Static(id="diagnosis-text")
 
-    def show(self, state) -> None:
-        self.query_one("#diagnosis-text", Static).update(Text(diagnosis_text(state)))
+    def show(self, state, model=None, figures: bool = False) -> None:
+        self.query_one("#diagnosis-text", Static).update(Text(diagnosis_text(state, model, figures)))
         for status in STATUS_WORDS:
             self.set_class(state.status == status, f"-{status}")
+        self.set_class(advises_escalation(state), "-escalate")
 
 
 def check_rows(state):
@@ -360,16 +421,34 @@ class SuspectsPanel(VerticalScroll):
     def compose(self):
         yield Static(id="suspects-text")
 
-    def show(self, suspects: Iterable) -> None:
-        """Every suspect not repaired (a repaired part is listed under the findings instead)."""
+    def show(self, suspects: Iterable, state=None, model=None, figures: bool = False) -> None:
+        """Every suspect not repaired (a repaired part is listed under the findings instead).
+
+        A cause outside the model (one per gate with unlisted causes) is said
+        in words (``not listed (unlikely): <gate>``), its number with the
+        figures shown; the bottom border says the same for every such cause
+        together (``outside the model: unlikely``).
+        """
         text = Text(no_wrap=True, overflow="ellipsis")
         for s in suspects:
             if s.repaired:
+                continue
+            if s.unlisted:
+                gate = s.id.rsplit("~", 1)[0]  # "<gate>~unlisted"; an id never holds "~"
+                under = model.label_of(gate) if model is not None else gate
+                text.append(f"{percent(s.p) if figures else '':>7} ")
+                text.append(bar(s.p, 5), style="bold")
+                words = "" if figures else f" ({outside_words(s.p)})"
+                text.append(f" not listed{words}: {under}\n")
                 continue
             text.append(f"{percent(s.p):>7} ")
             text.append(bar(s.p, 5), style="bold")
             text.append(f" {s.label}\n")
         self.query_one("#suspects-text", Static).update(text)
+        if state is not None and state.outside_model_by_gate:
+            self.border_subtitle = f"outside the model: {outside_text(state.outside_model_p, figures)}"
+        else:
+            self.border_subtitle = ""
 
 
 class FindingsPanel(VerticalScroll):
