@@ -17,6 +17,7 @@ import bruteforce as bf
 from troubleshoot.errors import ImpossibleFindings, SessionError, TroubleshootError
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair, Verification
+from troubleshoot.session.actions import AddNote, RecordFinding, RecordRepair, SkipCheck
 from troubleshoot.session import (
     AMBIGUITY,
     AWAITING_VERIFICATION,
@@ -192,6 +193,40 @@ def test_one_propagation_per_action():
     s.add_note("note")
     s.state
     assert engine.propagations == before  # a note does not change the posterior
+
+
+def test_apply_all_equals_one_by_one_and_decides_once():
+    # apply_all must reach the state apply reaches action by action, with the
+    # same log of actions, while the policy decides only for the last state.
+    model = pump_model()
+    actions = [RecordFinding("lamp", "off"), SkipCheck("sensor_cal", "no calibrator"),
+               RecordFinding("valve_look", "open"), AddNote("pump hums"), RecordRepair("impeller")]
+    one_by_one = Session(model)
+    for action in actions:
+        one_by_one.apply(action)
+    engine = Engine(model)
+    batch = Session(model, engine=engine)
+    start = engine.propagations
+    batch.apply_all(actions)
+    assert snapshot(batch) == snapshot(one_by_one)
+    # One propagation per action that changes the findings or repairs, plus
+    # the final state's weighing; applying one by one weighs after each.
+    weighed_once = engine.propagations - start
+    counted = Engine(model)
+    again = Session(model, engine=counted)
+    first = counted.propagations
+    for action in actions:
+        again.apply(action)
+    assert weighed_once < counted.propagations - first
+
+
+def test_apply_all_stops_at_a_refused_action_keeping_the_earlier_ones():
+    s = Session(pump_model())
+    with pytest.raises(SessionError, match="already done"):
+        s.apply_all([RecordFinding("lamp", "off"), RecordFinding("lamp", "on")])
+    expected = Session(pump_model())
+    expected.record_finding("lamp", "off")
+    assert snapshot(s) == snapshot(expected)
 
 
 BAD_ACTIONS = [

@@ -102,8 +102,7 @@ def step_actions(model, steps) -> list[RecordFinding | RecordRepair | RecordVeri
 
 def apply_steps(session: Session, steps) -> None:
     """Apply ('finding', 'CHECK=OUTCOME') and ('repaired', 'EVENT') steps in order."""
-    for action in step_actions(session.model, steps):
-        session.apply(action)
+    session.apply_all(step_actions(session.model, steps))
 
 
 def _example(model) -> str:

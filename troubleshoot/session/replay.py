@@ -282,8 +282,7 @@ def _switch_model(contents: LogContents, line: int, resume: Resume, settings: Se
         return None
     model, _ = load_any_model(resume.model_path)
     session = Session(model, settings.validated(), model_path=resume.model_path)
-    for action in done:
-        session.apply(action)
+    session.apply_all(done)
     report.warnings.append(f"{where}: the session was resumed under another model file, {resume.model_path}; "
                            "the re-run goes on with it")
     return session

@@ -49,6 +49,7 @@ from __future__ import annotations
 import math
 from dataclasses import asdict, dataclass, replace
 from functools import cached_property
+from collections.abc import Iterable
 from typing import Any, Protocol
 
 from troubleshoot.advice.diagnosis import (
@@ -612,12 +613,100 @@ class Session:
 
     def record_finding(self, check_id: str, outcome: str | int) -> SessionState:
         """Record the outcome of a check or symptom done now (after every repair so far)."""
+        self._record_finding(check_id, outcome)
+        return self.state
+
+    def retract_finding(self, check_id: str, epoch: int | None = None) -> SessionState:
+        """Withdraw a finding as if never made (default: the latest finding on that check)."""
+        self._retract_finding(check_id, epoch)
+        return self.state
+
+    def correct_finding(self, check_id: str, outcome: str | int, epoch: int | None = None) -> SessionState:
+        """Change the outcome of a finding already recorded (default: the latest on that check)."""
+        self._correct_finding(check_id, outcome, epoch)
+        return self.state
+
+    def skip_check(self, check_id: str, reason: str) -> SessionState:
+        """Leave a check out of this session's ranking because it cannot be done now."""
+        self._skip_check(check_id, reason)
+        return self.state
+
+    def unskip_check(self, check_id: str) -> SessionState:
+        """Bring a skipped check back into the ranking."""
+        self._unskip_check(check_id)
+        return self.state
+
+    def record_repair(self, event_id: str) -> SessionState:
+        """Record that a root event was repaired; a verification is asked for next."""
+        self._record_repair(event_id)
+        return self.state
+
+    def record_verification(self, outcome: str | int) -> SessionState:
+        """Record the check after the last repair: outcome 0 (works) confirms, 1 (still fails) goes on."""
+        self._record_verification(outcome)
+        return self.state
+
+    def escalate(self, reason: str | None = None) -> SessionState:
+        """Hand the unit over (the model's escalation, at its price): the session ends escalated.
+
+        Allowed at any time before a confirmed repair, whatever the tool
+        advises; the log keeps what escalating means and costs by the model,
+        P(the cause lies outside the model) and whether the tool advised it.
+        Afterwards only a note or undo is accepted (undo takes it back).
+
+        Parameters
+        ----------
+        reason : str, optional
+            Why, in the technician's words.
+        """
+        self._escalate(reason)
+        return self.state
+
+    def add_note(self, text: str) -> SessionState:
+        """Add a free-text note to the session (and its log)."""
+        self._add_note(text)
+        return self.state
+
+    def undo(self) -> SessionState:
+        """Take back the last action (the undo itself is logged)."""
+        self._undo()
+        return self.state
+
+    def acknowledge_caution(self, check_id: str) -> SessionState:
+        """Record that the technician read and acknowledged the safety caution of a check.
+
+        The check is one of the model's checks or symptoms, or the check the
+        last repair asks to verify (the top event included). Logged, shown in
+        the summary, not taken back by undo; the findings do not change.
+        """
+        self._acknowledge_caution(check_id)
+        return self.state
+
+    def record_job(self, job: dict) -> SessionState:
+        """Record who, which unit, where and which work order, given after the log's header was written.
+
+        ``job`` holds any of ``technician``, ``unit``, ``site``, ``work_order``
+        (empty ones are left out); :attr:`job` is updated. Logged, shown in the
+        summary, not taken back by undo.
+        """
+        self._record_job(job)
+        return self.state
+
+    def record_resume(self, resume: Resume) -> SessionState:
+        """Record that the session was continued from its log (see :func:`~troubleshoot.session.logfile.resume_session`)."""
+        self._record_resume(resume)
+        return self.state
+
+    # ------------------------------------------------------------------ the changes behind the actions
+
+    def _record_finding(self, check_id: str, outcome: str | int) -> None:
         check = self._check(check_id)
         self._refuse_if_confirmed("record a finding")
         request = self._view.verification_request
         if request is not None and request.target == check_id:
             # The check that verifies the last repair: its outcome is the verification.
-            return self.record_verification(outcome)
+            self._record_verification(outcome)
+            return
         index = outcome_index(check.outcomes, outcome, f"check {check_id!r}")
         rec = self._view.record
         for o in rec.observations:
@@ -628,18 +717,16 @@ class Session:
                                    "correct or retract that finding instead")
         new = replace(rec, observations=rec.observations + (Observation(Finding(check_id, index, rec.epoch),
                                                                          OBSERVATION),))
-        return self._commit(RecordFinding(check_id, check.outcomes[index]), new)
+        self._commit(RecordFinding(check_id, check.outcomes[index]), new)
 
-    def retract_finding(self, check_id: str, epoch: int | None = None) -> SessionState:
-        """Withdraw a finding as if never made (default: the latest finding on that check)."""
+    def _retract_finding(self, check_id: str, epoch: int | None = None) -> None:
         rec = self._view.record
         position = self._find(check_id, epoch)
         observations = rec.observations[:position] + rec.observations[position + 1 :]
         found = rec.observations[position].finding
-        return self._commit(RetractFinding(check_id, found.epoch), replace(rec, observations=observations))
+        self._commit(RetractFinding(check_id, found.epoch), replace(rec, observations=observations))
 
-    def correct_finding(self, check_id: str, outcome: str | int, epoch: int | None = None) -> SessionState:
-        """Change the outcome of a finding already recorded (default: the latest on that check)."""
+    def _correct_finding(self, check_id: str, outcome: str | int, epoch: int | None = None) -> None:
         rec = self._view.record
         position = self._find(check_id, epoch)
         old = rec.observations[position]
@@ -649,11 +736,10 @@ class Session:
             raise SessionError(f"the finding on {check_id!r} already reads {outcomes[index]!r}; nothing to correct")
         fixed = Observation(replace(old.finding, outcome=index), old.kind)
         observations = rec.observations[:position] + (fixed,) + rec.observations[position + 1 :]
-        return self._commit(CorrectFinding(check_id, outcomes[index], old.finding.epoch),
-                            replace(rec, observations=observations))
+        self._commit(CorrectFinding(check_id, outcomes[index], old.finding.epoch),
+                     replace(rec, observations=observations))
 
-    def skip_check(self, check_id: str, reason: str) -> SessionState:
-        """Leave a check out of this session's ranking because it cannot be done now."""
+    def _skip_check(self, check_id: str, reason: str) -> None:
         self._check(check_id)
         reason = (reason or "").strip()
         if not reason:
@@ -661,19 +747,17 @@ class Session:
         rec = self._view.record
         if any(c == check_id for c, _ in rec.skipped):
             raise SessionError(f"check {check_id!r} is already skipped")
-        return self._commit(SkipCheck(check_id, reason),
-                            replace(rec, skipped=rec.skipped + ((check_id, reason),)))
+        self._commit(SkipCheck(check_id, reason),
+                     replace(rec, skipped=rec.skipped + ((check_id, reason),)))
 
-    def unskip_check(self, check_id: str) -> SessionState:
-        """Bring a skipped check back into the ranking."""
+    def _unskip_check(self, check_id: str) -> None:
         rec = self._view.record
         if not any(c == check_id for c, _ in rec.skipped):
             raise SessionError(f"check {check_id!r} is not skipped")
-        return self._commit(UnskipCheck(check_id),
-                            replace(rec, skipped=tuple(s for s in rec.skipped if s[0] != check_id)))
+        self._commit(UnskipCheck(check_id),
+                     replace(rec, skipped=tuple(s for s in rec.skipped if s[0] != check_id)))
 
-    def record_repair(self, event_id: str) -> SessionState:
-        """Record that a root event was repaired; a verification is asked for next."""
+    def _record_repair(self, event_id: str) -> None:
         model = self.model
         self._refuse_if_confirmed("record a repair")
         if event_id not in model.event_by_id:
@@ -689,11 +773,10 @@ class Session:
         rec = self._view.record
         if event_id in rec.repairs:
             raise SessionError(f"{event_id!r} was already repaired in this session")
-        return self._commit(RecordRepair(event_id),
-                            replace(rec, repairs=rec.repairs + (event_id,)))
+        self._commit(RecordRepair(event_id),
+                     replace(rec, repairs=rec.repairs + (event_id,)))
 
-    def record_verification(self, outcome: str | int) -> SessionState:
-        """Record the check after the last repair: outcome 0 (works) confirms, 1 (still fails) goes on."""
+    def _record_verification(self, outcome: str | int) -> None:
         request = self._view.verification_request
         rec = self._view.record
         if not rec.repairs:
@@ -708,21 +791,9 @@ class Session:
         index = outcome_index(request.outcomes, outcome, f"the verification ({request.label})")
         new = replace(rec, observations=rec.observations + (Observation(Finding(request.target, index, rec.epoch),
                                                                          VERIFICATION),))
-        return self._commit(RecordVerification(request.outcomes[index]), new)
+        self._commit(RecordVerification(request.outcomes[index]), new)
 
-    def escalate(self, reason: str | None = None) -> SessionState:
-        """Hand the unit over (the model's escalation, at its price): the session ends escalated.
-
-        Allowed at any time before a confirmed repair, whatever the tool
-        advises; the log keeps what escalating means and costs by the model,
-        P(the cause lies outside the model) and whether the tool advised it.
-        Afterwards only a note or undo is accepted (undo takes it back).
-
-        Parameters
-        ----------
-        reason : str, optional
-            Why, in the technician's words.
-        """
+    def _escalate(self, reason: str | None = None) -> None:
         view = self._view
         if view.record.escalated:
             raise SessionError("the unit was already handed over (escalated) in this session; undo to take it back")
@@ -732,19 +803,17 @@ class Session:
                           model.escalation.label if model.escalation is not None else None,
                           escalation_price(model), model.cost_unit, view.outside_model.p,
                           view.decision.action == Course.ESCALATE)
-        return self._commit(action, replace(view.record, escalated=True), same_posterior=True)
+        self._commit(action, replace(view.record, escalated=True), same_posterior=True)
 
-    def add_note(self, text: str) -> SessionState:
-        """Add a free-text note to the session (and its log)."""
+    def _add_note(self, text: str) -> None:
         text = (text or "").strip()
         if not text:
             raise SessionError("a note needs some text")
         rec = self._view.record
-        return self._commit(AddNote(text), replace(rec, notes=rec.notes + (text,)),
-                            same_posterior=True)
+        self._commit(AddNote(text), replace(rec, notes=rec.notes + (text,)),
+                     same_posterior=True)
 
-    def undo(self) -> SessionState:
-        """Take back the last action (the undo itself is logged)."""
+    def _undo(self) -> None:
         if not self._history:
             raise SessionError("nothing to undo")
         previous = self._history[-1]
@@ -752,15 +821,8 @@ class Session:
         self._history.pop()
         self._view = previous
         self.actions.append(Undo())
-        return self.state
 
-    def acknowledge_caution(self, check_id: str) -> SessionState:
-        """Record that the technician read and acknowledged the safety caution of a check.
-
-        The check is one of the model's checks or symptoms, or the check the
-        last repair asks to verify (the top event included). Logged, shown in
-        the summary, not taken back by undo; the findings do not change.
-        """
+    def _acknowledge_caution(self, check_id: str) -> None:
         caution = None
         request = self._view.verification_request
         if request is not None and request.target == check_id:
@@ -769,15 +831,9 @@ class Session:
             caution = self._check(check_id).caution
         if not caution:
             raise SessionError(f"check {check_id!r} has no safety caution to acknowledge")
-        return self._event(AcknowledgeCaution(check_id, caution))
+        self._event(AcknowledgeCaution(check_id, caution))
 
-    def record_job(self, job: dict) -> SessionState:
-        """Record who, which unit, where and which work order, given after the log's header was written.
-
-        ``job`` holds any of ``technician``, ``unit``, ``site``, ``work_order``
-        (empty ones are left out); :attr:`job` is updated. Logged, shown in the
-        summary, not taken back by undo.
-        """
+    def _record_job(self, job: dict) -> None:
         details = {k: str(v).strip() for k, v in (job or {}).items()
                    if k in JobDetails.FIELDS and v is not None and str(v).strip()}
         unknown = sorted(set(job or {}) - set(JobDetails.FIELDS))
@@ -785,13 +841,11 @@ class Session:
             raise SessionError(f"unknown job field(s) {', '.join(unknown)}; known: {', '.join(JobDetails.FIELDS)}")
         if not details:
             raise SessionError("give at least one of the technician, the unit, the site or the work order")
-        state = self._event(JobDetails(**details))
+        self._event(JobDetails(**details))
         self.job = {**self.job, **details}
-        return state
 
-    def record_resume(self, resume: Resume) -> SessionState:
-        """Record that the session was continued from its log (see :func:`~troubleshoot.session.logfile.resume_session`)."""
-        return self._event(resume)
+    def _record_resume(self, resume: Resume) -> None:
+        self._event(resume)
 
     def apply(self, action: Action | dict) -> SessionState:
         """Perform a typed action (a dict in the form the log stores is read as one first).
@@ -802,34 +856,63 @@ class Session:
             The action is malformed (:class:`~troubleshoot.session.actions.ActionError`)
             or refused; the session is unchanged.
         """
+        self._perform(action)
+        return self.state
+
+    def apply_all(self, actions: Iterable[Action | dict]) -> SessionState:
+        """Perform actions in order, as :meth:`apply` does one by one, and return the state after the last.
+
+        The state (ranking, the policy's decision) is worked out for the end
+        only: a one-shot query given many findings pays for one decision,
+        not one per finding. An action refused stops the run there, with
+        every earlier action kept, as with :meth:`apply`.
+        """
+        for action in actions:
+            self._perform(action)
+        return self.state
+
+    def _perform(self, action: Action | dict) -> None:
         action = as_action(action)
         match action:
             case RecordFinding(check, outcome):
-                return self.record_finding(check, outcome)
+                self._record_finding(check, outcome)
+                return
             case RetractFinding(check, epoch):
-                return self.retract_finding(check, epoch)
+                self._retract_finding(check, epoch)
+                return
             case CorrectFinding(check, outcome, epoch):
-                return self.correct_finding(check, outcome, epoch)
+                self._correct_finding(check, outcome, epoch)
+                return
             case SkipCheck(check, reason):
-                return self.skip_check(check, reason)
+                self._skip_check(check, reason)
+                return
             case UnskipCheck(check):
-                return self.unskip_check(check)
+                self._unskip_check(check)
+                return
             case RecordRepair(event):
-                return self.record_repair(event)
+                self._record_repair(event)
+                return
             case RecordVerification(outcome):
-                return self.record_verification(outcome)
+                self._record_verification(outcome)
+                return
             case AddNote(text):
-                return self.add_note(text)
+                self._add_note(text)
+                return
             case AcknowledgeCaution(check, _):
-                return self.acknowledge_caution(check)
+                self._acknowledge_caution(check)
+                return
             case Escalate():
-                return self.escalate(action.reason)
+                self._escalate(action.reason)
+                return
             case Undo():
-                return self.undo()
+                self._undo()
+                return
             case Resume():
-                return self.record_resume(action)
+                self._record_resume(action)
+                return
             case JobDetails():
-                return self.record_job({k: v for k, v in action.to_record().items() if k != "action"})
+                self._record_job({k: v for k, v in action.to_record().items() if k != "action"})
+                return
         raise SessionError(f"not an action this session knows: {action!r}")
 
     def close(self) -> None:
@@ -843,14 +926,13 @@ class Session:
         posterior = self.engine.propagate(record.findings, record.repairs)
         return SessionView(self.model, self.engine, self.settings, record, posterior)
 
-    def _event(self, action: Action) -> SessionState:
+    def _event(self, action: Action) -> None:
         """Log an action that changes nothing in the record (and is not undone by undo)."""
         assert isinstance(action, EVENTS)
         self._write(action, self._view)
         self.actions.append(action)
-        return self.state
 
-    def _commit(self, action: Action, record: Record, same_posterior: bool = False) -> SessionState:
+    def _commit(self, action: Action, record: Record, same_posterior: bool = False) -> None:
         if self._view.record.escalated and not isinstance(action, AddNote):
             raise SessionError(f"refused ({describe(action)}): the unit was handed over (escalated) and the "
                                "diagnosis is finished; undo to take the escalation back")
@@ -862,7 +944,6 @@ class Session:
         self._history.append(self._view)
         self._view = view
         self.actions.append(action)
-        return self.state
 
     def _write(self, action: Action, view: SessionView) -> None:
         if self.log is not None:
