@@ -65,7 +65,7 @@ def test_why_p_if_is_suggest_run_again_with_the_finding(path):
     suggest = Suggest(doc["model"], model, settings)
     steps: list[tuple[str, str]] = []
     verifications = list(doc.get("verifications", []))
-    explained = 0
+    explained = runs = 0
     for _ in range(200):
         state = session.state
         if state.status == DIAGNOSING:
@@ -95,6 +95,11 @@ def test_why_p_if_is_suggest_run_again_with_the_finding(path):
                 p_out[o] * finish(
                     session.engine.propagate(session.findings + (_finding(session, check, o),), session.repairs))
                 for o in after)
+            if now["decision"]["reasons"][0]["kind"] == "run-pays":
+                # Chosen for a run of checks: no single check pays, and the run's cost is its definition.
+                assert first >= why["cost_repair_now"] - 1e-9 * max(1.0, first)
+                first = _run_cost(suggest, steps, model, settings, finish)
+                runs += 1
             assert abs(why["cost_check_first"] - first) <= 1e-9 * max(1.0, first)
             explained += 1
             outcome = doc["answers"][session.epoch][check.id]
@@ -113,6 +118,42 @@ def test_why_p_if_is_suggest_run_again_with_the_finding(path):
         else:
             break
     assert session.status == "confirmed" and explained > 0
+
+
+def _run_cost(suggest, steps, model, settings, finish) -> float:
+    """Least expected cost over the prefixes of the run, from its definition, with suggest run again.
+
+    The run: the first check of suggest's ranking giving at least min_bits
+    bits; while a check reads normal, the next one ranked on the findings
+    so far; at an abnormal reading or after the last check, finish (F).
+    Cost of a prefix of k checks: sum_j r_j (c_j + sum_(o abnormal) P(o) F(e + normal... + o))
+    + r_(k+1) F(e + k normals), r_j = P(the first j - 1 read normal).
+    """
+    engine = Engine(model)
+
+    def finish_after(chain):
+        session = Session(model, settings, engine=engine)
+        apply_steps(session, chain)
+        return finish(session.posterior)
+
+    best, spent, reach, chain = finish_after(steps), 0.0, 1.0, list(steps)
+    for _ in range(settings.value_run):
+        rows = [r for r in suggest(chain)["ranking"] if r["bits"] >= settings.min_bits]
+        if not rows:
+            break
+        row = rows[0]
+        names = list(row["outcomes"])
+        spent += reach * row["cost"]
+        for name in names[1:]:
+            if row["outcomes"][name] > 0:
+                spent += reach * row["outcomes"][name] * finish_after(chain + [("finding", f"{row['id']}={name}")])
+        p_normal = row["outcomes"][names[0]]
+        chain = chain + [("finding", f"{row['id']}={names[0]}")]
+        best = min(best, spent + (reach * p_normal * finish_after(chain) if p_normal > 0 else 0.0))
+        if p_normal <= 0:
+            break
+        reach *= p_normal
+    return best
 
 
 def _finding(session, check, outcome):

@@ -46,6 +46,7 @@ COMMANDS = {
     "resume": "resume",
     "analyze": "analyze",
     "simulate": "simulate",
+    "optimum-study": "optimum_study",
     "learn": "learn",
     "bench": "bench",
 }

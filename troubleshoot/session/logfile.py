@@ -143,6 +143,7 @@ def header_record(session: Session, version: int = LOG_FORMAT_VERSION) -> dict:
             "group_min_p": session.settings.group_min_p,
             "value_lookahead": session.settings.value_lookahead,
             "value_depth": session.settings.value_depth,
+            "value_run": session.settings.value_run,
         },
         "time": utc_now(),
         "job": dict(getattr(session, "job", None) or {}),
@@ -492,7 +493,7 @@ def _header_problem(header: dict) -> str | None:
     for key in ("isolation_threshold", "min_bits", "group_min_p"):
         if key in settings and not _is_number(settings[key]):
             return f"header setting {key!r} must be a number, not {settings[key]!r}"
-    for key in ("value_lookahead", "value_depth"):
+    for key in ("value_lookahead", "value_depth", "value_run"):
         if key in settings and not _is_count(settings[key]):
             return f"header setting {key!r} must be a whole number, not {settings[key]!r}"
     return _snapshot_problem(header)

@@ -67,6 +67,8 @@ from troubleshoot.model.gates import gate_values
 MAX_ROOTS = 16
 #: Largest number of distinct states the recursion visits.
 MAX_STATES = 200_000
+#: Up to this many repairable roots the lower bound of the recursion tries every subset of repairs.
+MAX_BOUND_REPAIRS = 10
 #: Posteriors equal to this many decimals are one state of the recursion.
 STATE_DECIMALS = 12
 
@@ -207,6 +209,10 @@ class Protocol:
         self.cost_of = {c.id: float(c.cost) for c in model.checks + model.symptoms}
         self.repairable = tuple(e.id for e in model.basic_events if e.repair is not None)
         self.index = {r: i for i, r in enumerate(model.hypotheses)}
+        self.full_cost = {r: repair_cost(model, r) + verification_for(model, r).cost for r in self.repairable}
+        self._works: list[np.ndarray] | None = None
+        self._mask_cost = np.zeros(1)
+        self._floors: dict[frozenset, np.ndarray] = {}
 
     def start(self) -> list[tuple[float, State, np.ndarray]]:
         """The states after the complaint and every symptom, with their probabilities and weights."""
@@ -301,15 +307,71 @@ class Protocol:
         return cost, branches
 
     def lower_bound(self, state: State, w: np.ndarray) -> float:
-        """No case ends without a verified repair or an escalation: the cheapest of them."""
+        """A lower bound of the cost still to come: the expected cost with the faults known.
+
+        In each joint state the case ends with an escalation or with repairs
+        that make the unit work, each repair followed by at least its first
+        verification; knowing the joint state, the cheapest of these is
+        :meth:`floor_costs`. Its expectation under ``w`` bounds every policy
+        from below (the value of perfect information is never negative).
+        """
+        return float(w @ self.floor_costs(frozenset(state.repairs)))
+
+    def floor_costs(self, repaired: frozenset) -> np.ndarray:
+        """Per joint state, the least cost of ending the case once its faults are known.
+
+        min(E, min over sets R of unrepaired repairable roots that make the
+        unit work with ``repaired`` and R repaired, of sum_(r in R) (c_r + v_r)),
+        v_r the repair's first verification. Computed once per set of repairs
+        made, by trying every subset of the repairable roots (2^m, m at most
+        :data:`MAX_ROOTS`).
+        """
+        if repaired in self._floors:
+            return self._floors[repaired]
+        if len(self.repairable) > MAX_BOUND_REPAIRS:
+            # Too many subsets to try: the cheapest single verified repair, or escalation.
+            cheapest = min([self.escalation] + [repair_cost(self.model, r) + verification_for(self.model, r).cost
+                                                for r in self.repairable if r not in repaired])
+            self._floors[repaired] = np.full(len(self.enum.states), cheapest)
+            return self._floors[repaired]
+        if self._works is None:
+            self._works, self._mask_cost = self._subset_table()
+        bits = {r: 1 << i for i, r in enumerate(self.repairable)}
+        done = sum(bits[r] for r in repaired if r in bits)
+        floor = np.full(len(self.enum.states), self.escalation)
+        for mask, works in enumerate(self._works):
+            if (mask & done) != done:
+                continue
+            spend = self._mask_cost[mask] - self._mask_cost[done]
+            if spend < self.escalation:
+                np.minimum(floor, np.where(works, spend, np.inf), out=floor)
+        self._floors[repaired] = floor
+        return floor
+
+    def _subset_table(self) -> tuple[list[np.ndarray], np.ndarray]:
+        """Whether the unit works in each joint state with each subset of the repairable roots repaired."""
         model = self.model
-        cheapest = self.escalation
-        for r in self.repairs_open(state, w):
-            cheapest = min(cheapest, repair_cost(model, r) + verification_for(model, r).cost)
-        return cheapest
+        m = len(self.repairable)
+        unit = np.array([repair_cost(model, r) + verification_for(model, r).cost for r in self.repairable])
+        masks = np.arange(2**m)
+        cost = ((masks[:, None] >> np.arange(m)) & 1) @ unit if m else np.zeros(1)
+        works = [self.enum.top_fails(tuple(r for i, r in enumerate(self.repairable) if mask >> i & 1)) == 0.0
+                 for mask in range(2**m)]
+        return works, np.asarray(cost, float)
 
     def key(self, state: State, w: np.ndarray) -> tuple:
-        """States with the same repairs, the same checks open and the same posterior share their future."""
+        """States with the same repairs, the same checks open and the same posterior share their future.
+
+        The posterior is that of the roots not repaired: a repaired root
+        works from then on, so whether it had failed no longer changes any
+        outcome, repair or bound to come (histories that differ only in it
+        are one state).
+        """
+        n = len(self.enum.roots)
+        repaired = sorted({self.index[r] for r in state.repairs})
+        if repaired:
+            # Bit i of a joint state's code is root i: axis n - 1 - i of the (2,) * n view.
+            w = w.reshape((2,) * n).sum(axis=tuple(n - 1 - i for i in repaired)).ravel()
         digest = hashlib.blake2b(np.round(w, STATE_DECIMALS).tobytes(), digest_size=16).digest()
         return frozenset(state.repairs), state.done_now(), digest
 
@@ -364,13 +426,14 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
     Notes
     -----
     Memoised recursion of the Bellman equation in the module notes, with
-    branch and bound: every case still ends with a verified repair or an
-    escalation, so the cheapest of them bounds a state's value from below
-    (:meth:`Protocol.lower_bound`); a course whose cost so far plus the
-    bounds of its remaining branches reaches the best found is cut, and a
-    state is solved only as far as its budget requires (a state cut by its
-    budget keeps the bound it was cut at). Ties go to the first found:
-    escalation, then checks in model order, then repairs in model order.
+    branch and bound: the expected cost of ending the case with the faults
+    known bounds a state's value from below (:meth:`Protocol.lower_bound`);
+    a course whose cost so far plus the bounds of its remaining branches
+    reaches the best found is cut, and a state is solved only as far as its
+    budget requires (a state cut by its budget keeps the bound it was cut
+    at). Ties go to the first found: escalation, then checks in model order,
+    then repairs in decreasing P / (repair + first verification cost), by
+    model order within a tie.
 
     References
     ----------
@@ -385,7 +448,11 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
     def courses(state: State, w: np.ndarray):
         for t in protocol.checks_open(state, w):
             yield ("check", t), protocol.cost_of[t], protocol.after_check(state, w, t)
-        for r in protocol.repairs_open(state, w):
+        # The likeliest repair per cost first (Kadane & Simon 1977): a good course found early
+        # tightens the bound for the rest.
+        p = protocol.enum.p_failed(w)
+        repairs = protocol.repairs_open(state, w)
+        for r in sorted(repairs, key=lambda r: -p[protocol.index[r]] / max(protocol.full_cost[r], 1e-300)):
             cost, branches = protocol.after_repair(state, w, r)
             yield ("repair", r), cost, branches
 
