@@ -266,3 +266,19 @@ def test_learning_reads_an_escalated_session(tmp_path):
     undone = fold_actions(model, actions + [action_from_record({"action": "undo"})])
     assert not undone.escalated
     assert not fold_actions(model, actions[:-1]).escalated
+
+
+def test_learn_counts_escalated_sessions(tmp_path, capsys):
+    from troubleshoot.cli import main
+
+    logs = tmp_path / "logs"
+    logs.mkdir()
+    model = model_file(tmp_path)
+    for name, escalate in (("a.jsonl", True), ("b.jsonl", False)):
+        session = new_session(str(model), log_path=logs / name)
+        session.record_finding("fan_turns", "free")
+        if escalate:
+            session.escalate()
+        session.close()
+    assert main(["learn", str(model), str(logs), "-o", str(tmp_path / "learned.xml"), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["escalated_sessions"] == 1
