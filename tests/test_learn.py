@@ -26,6 +26,7 @@ from troubleshoot.errors import ImpossibleFindings
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair
 from troubleshoot.model.source import load_any_model
 from troubleshoot.model.xmlfile import load_model, save_model
+from troubleshoot.session.actions import Escalate
 from troubleshoot.session.logfile import LOG_FORMAT_VERSION, new_session, read_log
 from troubleshoot.study.execution import InProcess, LocalProcesses
 from troubleshoot.study.learn import (
@@ -402,6 +403,22 @@ def test_simulated_logs_are_real_session_logs(tmp_path, capsys):
         assert data.repairs == report.session.repairs
     assert main(["simulate", "rooftop", "--cases", "6", "--seed", "4", "--logs", str(folder)]) == 2
     assert "already exists" in capsys.readouterr().err
+
+
+def test_simulated_hand_overs_are_logged_as_escalations_and_learned_as_such(tmp_path, capsys):
+    # A simulated unit that is handed over ends its log with an escalate action, as a technician's
+    # would; the learner counts exactly those sessions, and the simulated costs do not change.
+    folder = tmp_path / "fleet"
+    assert main(["simulate", "rooftop", "--cases", "40", "--seed", "3", "--strategy", "info-per-cost",
+                 "--workers", "1", "--logs", str(folder), "--json"]) == 0
+    outcomes = json.loads(capsys.readouterr().out)["strategies"]["info-per-cost"]["outcomes"]
+    handed_over = outcomes["escalated"] + outcomes["capped"] + outcomes["engine-refused"]
+    assert handed_over > 0, "seed 3 has hand-overs among its 40 units"
+    ends = [read_log(path).actions[-1].action for path in sorted(folder.glob("case-*.jsonl"))]
+    assert sum(1 for a in ends if isinstance(a, Escalate)) == handed_over
+    out = tmp_path / "learned.xml"
+    assert main(["learn", "rooftop", str(folder), "-o", str(out), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["escalated_sessions"] == handed_over
 
 
 def test_bad_logs_are_counted_and_named(tmp_path, capsys):

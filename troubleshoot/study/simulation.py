@@ -81,6 +81,12 @@ STREAM_TRUE_STATE, STREAM_OUTCOMES, STREAM_STRATEGY = 0, 1, 2
 
 #: How a case can end (see :class:`CaseResult`).
 OUTCOMES = ("confirmed", "escalated", "capped", "left-failed", "engine-refused")
+# What a simulated unit's log says when it is handed over.
+HAND_OVER_REASONS = {
+    "escalated": "simulated unit: the strategy hands it over",
+    "capped": "simulated unit: the step cap was reached",
+    "engine-refused": "simulated unit: a repair's gate logic would not fit the memory budget",
+}
 
 #: Session views a worker process remembers (see :class:`ViewMemo`).
 VIEWS_PER_WORKER = 20000
@@ -367,6 +373,9 @@ def run_case(engine: Engine, strategy, equipment: Equipment, rng: np.random.Gene
     if outcome in ("escalated", "capped", "engine-refused"):
         # The unit is handed over: escalating is paid for, never left out.
         cost += escalation_charge(model)
+        # Recorded as a technician's hand-over is, so a simulated fleet's logs
+        # show it and learning counts it; its price is already in ``cost``.
+        session.escalate(HAND_OVER_REASONS[outcome])
     unlisted_failed = any(is_unlisted(model, r) for r in equipment.failed)
     return CaseResult(
         cost=cost,
