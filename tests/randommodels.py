@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import random
 
+from troubleshoot.engine.inference import Finding
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair
 
 
@@ -79,3 +80,14 @@ def _graded_check(rng: random.Random, c: int, targets: list[str], k: int) -> Che
                    for t in rng.sample(targets, rng.randint(1, 3)))
     leak = _split(rng, outcomes[1:], rng.choice([0.01, 0.1])) if rng.random() < 0.7 else ()
     return Check(f"c{c}", f"check {c}", rng.randint(1, 20), outcomes, causes, leak=leak)
+
+
+def random_findings(model: Model, rng: random.Random, repairs: tuple[str, ...]) -> list[Finding]:
+    """The complaint, then two random check outcomes per epoch and, after each repair, the unit's verification."""
+    findings = [Finding(model.top, 1, 0)]
+    for epoch in range(len(repairs) + 1):
+        for check in rng.sample(list(model.checks), min(2, len(model.checks))):
+            findings.append(Finding(check.id, rng.randrange(len(check.outcomes)), epoch))
+        if epoch:
+            findings.append(Finding(model.top, rng.randint(0, 1), epoch))
+    return findings

@@ -11,7 +11,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import bruteforce as bf
-from randommodels import random_model
+from randommodels import random_findings, random_model
 from troubleshoot.advice.diagnosis import entropy_bits, most_probable_explanation
 from troubleshoot.advice.ranking import outcome_information
 from troubleshoot.engine.compiled import ENGINE_NAME
@@ -21,15 +21,6 @@ from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model
 
 TOL = 1e-9
 
-
-def _findings(model: Model, rng: random.Random, repairs: tuple[str, ...]) -> list[Finding]:
-    findings = [Finding(model.top, 1, 0)]
-    for epoch in range(len(repairs) + 1):
-        for check in rng.sample(list(model.checks), min(2, len(model.checks))):
-            findings.append(Finding(check.id, rng.randrange(len(check.outcomes)), epoch))
-        if epoch:
-            findings.append(Finding(model.top, rng.randint(0, 1), epoch))
-    return findings
 
 
 @settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -42,7 +33,7 @@ def test_both_paths_equal_brute_force(seed, n_events, n_gates, n_repairs):
     model = random_model(seed, n_events=n_events, n_gates=n_gates, n_checks=4, max_outcomes=4)
     rng = random.Random(seed)
     repairs = tuple(rng.sample([e.id for e in model.basic_events], min(n_repairs, n_events)))
-    findings = _findings(model, rng, repairs)
+    findings = random_findings(model, rng, repairs)
     ref = bf.posterior(model, findings, repairs)
     for kind in (JOIN_TREE, ENGINE_NAME):
         engine = Engine(model, kind=kind)

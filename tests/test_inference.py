@@ -15,7 +15,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from bruteforce import posterior as brute_posterior
-from randommodels import random_model
+from randommodels import random_findings, random_model
 from troubleshoot.errors import ImpossibleFindings, NetworkTooLarge, SessionError
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model
@@ -23,15 +23,6 @@ from troubleshoot.engine.network import build_network
 
 TOL = 1e-9
 
-
-def _random_findings(model: Model, rng: random.Random, repairs: tuple[str, ...]) -> list[Finding]:
-    findings = [Finding(model.top, 1, 0)]
-    for epoch in range(len(repairs) + 1):
-        for check in rng.sample(list(model.checks), min(2, len(model.checks))):
-            findings.append(Finding(check.id, rng.randrange(len(check.outcomes)), epoch))
-        if epoch:
-            findings.append(Finding(model.top, rng.randint(0, 1), epoch))
-    return findings
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
@@ -42,7 +33,7 @@ def test_marginals_and_log_p_equal_brute_force(seed, n_events, n_gates, n_repair
     model = random_model(seed, n_events=n_events, n_gates=n_gates, n_checks=4)
     rng = random.Random(seed)
     repairs = tuple(rng.sample([e.id for e in model.basic_events], min(n_repairs, n_events)))
-    findings = _random_findings(model, rng, repairs)
+    findings = random_findings(model, rng, repairs)
     ref = brute_posterior(model, findings, repairs)
     engine = Engine(model)
     if ref["log_p"] == -math.inf:
