@@ -259,6 +259,8 @@ class DiagramStore:
             a0, a1 = self._cofactors(a, level)
             b0, b1 = self._cofactors(b, level)
             result = self.node(level, self.difference(a0, b0), self.difference(a1, b1))
+        if len(self._mul) >= CACHE_ENTRIES:
+            self._mul.clear()
         self._mul[key] = result
         return result
 
