@@ -12,8 +12,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import bruteforce as bf
-from randommodels import random_model
-from test_inference import _random_findings
+from randommodels import random_findings, random_model
+
 from troubleshoot.advice.ranking import rank
 from troubleshoot.engine.compiled import ENGINE_NAME
 from troubleshoot.engine.inference import JOIN_TREE, Engine, Finding
@@ -34,7 +34,7 @@ def test_k_outcome_posteriors_log_p_and_bits_equal_brute_force(seed, n_events, n
     model = random_model(seed, n_events=n_events, n_gates=n_gates, n_checks=4, max_outcomes=4)
     rng = random.Random(seed)
     repairs = tuple(rng.sample([e.id for e in model.basic_events], min(n_repairs, n_events)))
-    findings = _random_findings(model, rng, repairs)
+    findings = random_findings(model, rng, repairs)
     ref = bf.posterior(model, findings, repairs)
     for kind in (JOIN_TREE, ENGINE_NAME):  # the join tree and the compiled decision diagrams
         engine = Engine(model, kind=kind)
