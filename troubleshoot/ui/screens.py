@@ -803,7 +803,8 @@ light and a dark theme.
   unlikely, possible, likely, near certain) and what it costs.
 - **outside the model** (under the suspects): how likely the cause is one the
   model does not list, all such causes together, in those words; each gate's
-  share is listed among the suspects as **not listed (…): <gate>**.
+  share is listed among the suspects as **not listed (…):**, the
+  gate on the line below.
 - **Suspects**: the chance that each part has failed, given the findings;
   a repaired part leaves the list and is shown under the findings.
 - With the figures shown (`f`): **Info**, the information the check is

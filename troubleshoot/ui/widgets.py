@@ -425,7 +425,7 @@ class SuspectsPanel(VerticalScroll):
         """Every suspect not repaired (a repaired part is listed under the findings instead).
 
         A cause outside the model (one per gate with unlisted causes) is said
-        in words (``not listed (unlikely): <gate>``), its number with the
+        in words (``not listed (unlikely):``, the gate on the next line), its number with the
         figures shown; the bottom border says the same for every such cause
         together (``outside the model: unlikely``).
         """
@@ -439,7 +439,10 @@ class SuspectsPanel(VerticalScroll):
                 text.append(f"{percent(s.p) if figures else '':>7} ")
                 text.append(bar(s.p, 5), style="bold")
                 words = "" if figures else f" ({outside_words(s.p)})"
-                text.append(f" not listed{words}: {under}\n")
+                # The gate on a line of its own: after "not listed (near certain): " too
+                # little of an 80-column panel is left to say which part of the unit it is.
+                text.append(f" not listed{words}:\n")
+                text.append(f"{'':>14}{under}\n")
                 continue
             text.append(f"{percent(s.p):>7} ")
             text.append(bar(s.p, 5), style="bold")
