@@ -212,6 +212,11 @@ def test_many_sessions_at_once_equal_one_at_a_time():
             alone.check_made += weight * single.check_made
             for mine, theirs in zip(alone.leaks + alone.causes, single.leaks + single.causes):
                 mine += weight * theirs
+    # Checks made after different repairs, or at different epochs, share their hidden counts' key when
+    # their causes are present in the same states: fewer keys to settle than checks made apart.
+    apart = {(d.repairs[:f.epoch], f.target, f.epoch, f.outcome) for rows in by_repairs.values() for d, _ in rows
+             for f in d.findings if f.target in model.check_by_id}
+    assert len(together.pending) < len(apart)
     together.settle(params)
     assert together.sessions == alone.sessions == sum(w for rows in by_repairs.values() for _, w in rows)
     assert together.log_p == pytest.approx(alone.log_p, rel=1e-12)

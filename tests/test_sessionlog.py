@@ -233,6 +233,77 @@ def test_wrong_field_types_are_refused_with_the_line(tmp_path, capsys, field, va
         assert status == 2 and f"{log}:4:" in err and "Traceback" not in err
 
 
+def _snapshot_types_ok(record: dict) -> bool:
+    """The snapshot fields' types as the module notes and ``snapshot`` define them, written out here:
+    numbers are finite JSON numbers (not true/false), probabilities lie in [0, 1], a ranking row's
+    score may be null, a decision's target and expected cost may be null; a missing key is no type
+    error (replay reports it as a difference)."""
+    import math
+
+    def number(v):
+        return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+    def probability(v):
+        return number(v) and 0 <= v <= 1
+
+    checks = {
+        "status": lambda v: v in ("diagnosing", "isolated", "ambiguity", "awaiting-verification", "confirmed",
+                                  "escalated"),
+        "entropy_bits": number,
+        "log_p_findings": number,
+        "outside_model_p": probability,
+        "outside_model_by_gate": lambda v: isinstance(v, dict) and all(isinstance(g, str) and probability(p)
+                                                                       for g, p in v.items()),
+        "decision": lambda v: isinstance(v, dict) and {"action", "target", "expected_cost"} <= set(v)
+        and isinstance(v["action"], str) and (v["target"] is None or isinstance(v["target"], str))
+        and (v["expected_cost"] is None or number(v["expected_cost"])),
+        "ranking": lambda v: isinstance(v, list) and all(
+            isinstance(r, dict) and isinstance(r.get("id"), str)
+            and all(k not in r or number(r[k]) for k in ("bits", "cost"))
+            and (r.get("score") is None or number(r["score"])) for r in v),
+        "suspects": lambda v: isinstance(v, list) and all(
+            isinstance(r, dict) and isinstance(r.get("id"), str) and ("p" not in r or number(r["p"])) for r in v),
+    }
+    return all(key not in record or ok(record[key]) for key, ok in checks.items())
+
+
+def test_the_snapshot_type_check_agrees_with_the_documented_types(model_file, tmp_path):
+    """Logs are read by the thousand (``learn``), so the type check has a fast path; whatever it
+    accepts or refuses must be what the documented types say (_snapshot_types_ok, written above)."""
+    import copy
+    import random
+
+    from troubleshoot.session.logfile import _snapshot_problem
+
+    records = lines_of(write_log(model_file, tmp_path / "s.jsonl"))
+    odd = [None, True, False, 0, 3, -2, 10**30, 1e308, float("inf"), float("-inf"), float("nan"), -0.0, 0.5,
+           1.0, 1.0000001, -1e-9, 2.5, "0.5", "diagnosing", [], {}, [1.0], {"id": "x"}, {"id": "x", "p": "1"}]
+    rng = random.Random(11)
+    seen = {True: 0, False: 0}
+    for _ in range(4000):
+        record = copy.deepcopy(rng.choice(records))
+        for _ in range(rng.randint(1, 2)):
+            key = rng.choice(["status", "entropy_bits", "log_p_findings", "outside_model_p", "outside_model_by_gate",
+                              "decision", "ranking", "suspects"])
+            if key not in record or rng.random() < 0.2:
+                record[key] = rng.choice(odd)
+            elif isinstance(record[key], list) and record[key]:
+                row = rng.choice(record[key])
+                if isinstance(row, dict):
+                    field = rng.choice(["id", "bits", "cost", "score", "p"])
+                    row[field] = rng.choice(odd) if rng.random() < 0.8 else row.pop(field, None)
+                    row.pop(None, None)
+            elif isinstance(record[key], dict) and record[key]:
+                field = rng.choice(sorted(record[key]))
+                record[key][field] = rng.choice(odd)
+            else:
+                record[key] = rng.choice(odd)
+        expected = _snapshot_types_ok(record)
+        assert (_snapshot_problem(record) is None) == expected, record
+        seen[expected] += 1
+    assert min(seen.values()) > 200  # both answers were exercised
+
+
 def test_an_action_field_of_the_wrong_type_is_refused(tmp_path, capsys):
     log, _ = v1_copy(tmp_path)
     records = lines_of(log)

@@ -415,8 +415,9 @@ class Counts:
     root_informed: np.ndarray = field(default_factory=lambda: np.zeros(0))
     check_made: np.ndarray = field(default_factory=lambda: np.zeros(0))
     refused: list = field(default_factory=list)
-    #: (repairs before, check index, epoch, outcome) -> [cause presence, summed P(cause states | findings)]:
-    #: the hidden counts are linear in those weights, so they are worked out once per key (:meth:`settle`).
+    #: (check index, outcome, presence pattern) -> [cause presence (S, I), summed P(cause states | findings)]:
+    #: the hidden counts are linear in those weights, so they are worked out once per key (:meth:`settle`),
+    #: and every check made with the same causes present in the same states of its family shares a key.
     pending: dict = field(default_factory=dict)
 
     @classmethod
@@ -445,7 +446,7 @@ class Counts:
 
     def settle(self, params: Parameters) -> Counts:
         """Turn the summed cause-state weights into expected outcome counts of every leak and cause."""
-        for (_repairs, j, _epoch, outcome), (present, weights) in self.pending.items():
+        for (j, outcome, _pattern), (present, weights) in self.pending.items():
             leak_c, cause_c = hidden_outcome_counts(present, weights, params.leaks[j], params.causes[j], outcome)
             self.leaks[j] += leak_c
             self.causes[j] += cause_c
@@ -523,9 +524,13 @@ def hidden_outcome_counts(present: np.ndarray, weights: np.ndarray, leak: np.nda
     return counts[0], counts[1:].reshape(n_causes, K)
 
 
-def _cause_presence(engine, net, repairs, check, epoch: int) -> np.ndarray:
-    """(S, I) bool: for each joint state of the check's family nodes at ``epoch``, which causes are present."""
+def _cause_presence(engine, net, repairs, check, epoch: int) -> tuple[np.ndarray, tuple]:
+    """(S, I) bool: for each joint state of the check's family nodes at ``epoch``, which causes are present.
+
+    With it a hashable form of the same table (its shape and bytes), under which equal tables meet.
+    """
     cache = getattr(engine, "presence", None)
+    # What the check read then depends on the repairs made before it, not after.
     key = (tuple(repairs[:epoch]), check.id, epoch)
     if cache is not None and key in cache:
         return cache[key]
@@ -540,7 +545,8 @@ def _cause_presence(engine, net, repairs, check, epoch: int) -> np.ndarray:
             cols.append(np.full(len(states), node))
         else:
             cols.append(bits[:, fam.nodes.index(node)])
-    out = np.stack(cols, axis=1) if cols else np.zeros((len(states), 0), bool)
+    table = np.stack(cols, axis=1) if cols else np.zeros((len(states), 0), bool)
+    out = (table, (table.shape, table.tobytes()))
     if cache is not None:
         cache[key] = out
     return out
@@ -826,11 +832,13 @@ def rows_counts(engine: Engine, params: Parameters, rows, into: Counts,
             joint = (np.transpose(summed, perm) if perm is not None else summed).ravel()
         else:
             joint = np.array([float(w.sum())])
-        # What the check read then depends on the repairs made before it, not after.
-        key = (repairs[:epoch], j, epoch, _levels(check).index(outcome))
+        # The hidden counts depend on the joint only through which causes each of its states has
+        # present: every (check, outcome, presence pattern) is one key, whatever the repairs and epoch.
+        present, pattern = _cause_presence(engine, net, repairs, check, epoch)
+        key = (j, _levels(check).index(outcome), pattern)
         slot = into.pending.get(key)
         if slot is None:
-            into.pending[key] = [_cause_presence(engine, net, repairs, check, epoch), joint]
+            into.pending[key] = [present, joint]
         else:
             slot[1] = slot[1] + joint
     return sorted(refused)
