@@ -10,6 +10,7 @@ sum written plainly.
 from __future__ import annotations
 
 import itertools
+import math
 import random
 
 import numpy as np
@@ -17,10 +18,18 @@ import pytest
 
 from randommodels import random_model
 from troubleshoot.advice.diagnosis import Suspect, suspects
-from troubleshoot.advice.repair import kadane_simon_order, repair_order, repair_plan
+from troubleshoot.advice.repair import (
+    _kadane_simon_ranked,
+    kadane_simon_order,
+    repair_cost,
+    repair_order,
+    repair_plan,
+    repair_plan_of,
+    verification_cost,
+)
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.errors import ImpossibleFindings
-from troubleshoot.model import BasicEvent, Gate, Model, Repair, Verification
+from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair, Verification
 
 
 def sequence_cost(p, cost, order) -> float:
@@ -151,3 +160,122 @@ def test_repair_plan_matches_the_plain_formula(seed):
             assert plan.cost_of_stopping_after[-1] == pytest.approx(plain[-1], rel=1e-9, abs=1e-9)
         else:
             assert plan.cost_of_stopping_after == pytest.approx(plain, rel=1e-9, abs=1e-9)
+
+
+# ---------------------------------------------------------------- the array paths against plain Python
+#
+# The repair order and the suspect list are computed in whole arrays (the
+# policy asks for them on every outcome it weighs). Source for each check: the
+# rule as the module documents it, written out below in plain Python (sort by
+# the figure, group values tied to their group's first, ids inside a group),
+# and the figures must agree exactly, not approximately.
+
+
+def plain_kadane_simon(ids, p, cost, tolerance=1e-9):
+    """Decreasing p / cost (infinite when free); a ratio within ``tolerance`` (relative) of its group's
+    first joins the group; each group by id."""
+    ratio = [p[i] / cost[i] if cost[i] > 0 else math.inf for i in range(len(ids))]
+
+    def tied(a, b):
+        if math.isinf(a) or math.isinf(b):
+            return a == b
+        return abs(a - b) <= tolerance * max(abs(a), abs(b))
+
+    out, group = [], []
+    for i in sorted(range(len(ids)), key=lambda i: (-ratio[i], ids[i])):
+        if group and not tied(ratio[group[0]], ratio[i]):
+            out += sorted(group, key=lambda j: ids[j])
+            group = []
+        group.append(i)
+    return out + sorted(group, key=lambda j: ids[j])
+
+
+@pytest.mark.parametrize("seed", range(60))
+def test_array_order_is_the_plain_kadane_simon_order(seed):
+    # Many exact ties, ties up to rounding, ratios just inside and just outside
+    # the tolerance (chains of them) and free repairs.
+    rng = random.Random(seed)
+    n = rng.randint(0, 40)
+    base = [rng.choice([0.1, 0.2, 0.3, 0.05]) for _ in range(n)]
+    nudge = [rng.choice([0.0, 0.0, 1e-13, 4e-10, 9e-10, 1.1e-9, 1.9e-9, 2.1e-9, 5e-9]) for _ in range(n)]
+    p = np.array([b * (1 + d) for b, d in zip(base, nudge)])
+    cost = np.array([rng.choice([0.0, 1.0, 2.0, 2.0, 3.0]) for _ in range(n)])
+    ids = [f"{rng.choice('abcxyz')}{i}" for i in range(n)]
+    id_rank = np.empty(n, dtype=np.int64)
+    id_rank[sorted(range(n), key=ids.__getitem__)] = np.arange(n)
+    want = plain_kadane_simon(ids, p.tolist(), cost.tolist())
+    assert _kadane_simon_ranked(id_rank, p, cost).tolist() == want
+    assert kadane_simon_order(ids, p, cost) == want
+
+
+def plain_suspects(posterior):
+    """Every hypothesis as a Suspect, sorted by P (values within 1e-12 relative or 1e-15 of their neighbour
+    in a chain share a place) and then by id."""
+    model = posterior.model
+    listed = [Suspect(r, model.label_of(r), float(p), r in posterior.repairs,
+                      r not in model.event_by_id and r.endswith("unlisted"))
+              for r, p in zip(model.hypotheses, posterior.root_marginals())]
+    by_p = sorted(listed, key=lambda s: -s.p)
+    place, places = 0, {}
+    for k, s in enumerate(by_p):
+        if k and not (by_p[k - 1].p == s.p or abs(by_p[k - 1].p - s.p)
+                      <= max(1e-12 * max(abs(by_p[k - 1].p), abs(s.p)), 1e-15)):
+            place += 1
+        places[s.id] = place
+    return tuple(sorted(listed, key=lambda s: (places[s.id], s.id)))
+
+
+def tied_model(seed: int) -> Model:
+    """An OR gate over parts drawn from two priors and two costs (exact ties everywhere), with unlisted
+    causes, a verify check on some repairs and parts without a repair."""
+    rng = random.Random(seed)
+    n = rng.randint(3, 12)
+    checks = (Check("look", "look", 2.0, ("normal", "abnormal"), (Cause("e0", 1.0),)),)
+    events = tuple(BasicEvent(f"e{i}", f"part {i}", rng.choice([0.01, 0.02]),
+                              repair=None if rng.random() < 0.15 else
+                              Repair(f"fix {i}", rng.choice([5.0, 10.0]),
+                                     verify="look" if rng.random() < 0.3 else None))
+                   for i in rng.sample(range(n), n))  # the model's order is not the id order
+    half = len(events) // 2
+    gates = (Gate("left", "left", "or", tuple(e.id for e in events[:half]) or (events[0].id,), unlisted=0.01),
+             Gate("top", "unit", "or", ("left",) + tuple(e.id for e in events[half:]), unlisted=0.02))
+    return Model("tied", "top", gates, events, checks=checks, verification=Verification("run it", 20.0))
+
+
+@pytest.mark.parametrize("seed", range(30))
+def test_array_suspects_and_plan_are_the_plain_ones(seed):
+    rng = random.Random(seed)
+    model = tied_model(seed) if seed % 2 else random_model(seed, n_events=8, n_gates=5, n_checks=4)
+    engine = Engine(model)
+    repairs = tuple(rng.sample([e.id for e in model.basic_events], rng.randint(0, 2)))
+    findings = [Finding(model.top, 1, 0)]
+    for check in model.checks:
+        trial = findings + [Finding(check.id, rng.randint(0, 1), 0)]
+        try:
+            engine.propagate(trial, repairs)
+        except ImpossibleFindings:
+            continue
+        findings = trial
+    try:
+        posterior = engine.propagate(findings, repairs)
+    except ImpossibleFindings:
+        pytest.skip("the drawn tree can never fail (the complaint is impossible)")
+    ranked = suspects(posterior)
+    assert ranked == plain_suspects(posterior)
+    for group_min_p in (0.0, 0.05, 0.3):
+        live = [s for s in ranked if not s.repaired and s.p > 1e-12]
+        repairable = [s for s in live if s.id in model.event_by_id and model.event_by_id[s.id].repair]
+        want = []
+        for part in ([s for s in repairable if s.p >= group_min_p], [s for s in repairable if s.p < group_min_p]):
+            ids = [s.id for s in part]
+            full = [repair_cost(model, s.id) + verification_cost(model, s.id) for s in part]
+            want += [ids[i] for i in plain_kadane_simon(ids, [s.p for s in part], full)]
+        for escalation in (None, 250.0):
+            plan = repair_plan(model, ranked, group_min_p, escalation)
+            assert plan.sequence == tuple(want)
+            assert repair_plan_of(posterior, group_min_p, escalation) == plan
+            plain = plain_plan_cost(model, ranked, group_min_p, escalation)
+            if escalation is None:
+                assert plan.cost_of_stopping_after[-1] == pytest.approx(plain[-1], rel=1e-9, abs=1e-9)
+            else:
+                assert plan.cost_of_stopping_after == pytest.approx(plain, rel=1e-9, abs=1e-9)

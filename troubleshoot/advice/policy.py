@@ -62,6 +62,7 @@ from troubleshoot.advice.repair import (
     VerificationRequest,
     repair_cost,
     repair_plan,
+    repair_plan_of,
     top_verification,
     verification_cost,
 )
@@ -238,6 +239,15 @@ def finish_plan(model: Model, ranked: tuple[Suspect, ...], settings: Settings) -
     return repair_plan(model, ranked, settings.group_min_p, escalation_price(model))
 
 
+def finish_plan_of(posterior: AnyPosterior, settings: Settings) -> RepairPlan:
+    """``finish_plan(model, suspects(posterior), settings)``: the same plan, without listing the suspects.
+
+    The lookahead needs only the plan's figures for each outcome it weighs,
+    never the suspects themselves (:func:`~troubleshoot.advice.repair.repair_plan_of`).
+    """
+    return repair_plan_of(posterior, settings.group_min_p, escalation_price(posterior.model))
+
+
 def finish_value(plan: RepairPlan) -> float:
     """What a check (or a run of checks) is weighed against: finishing by repairs first.
 
@@ -265,7 +275,7 @@ def cost_to_finish(engine: Engine, posterior: AnyPosterior, candidates: tuple[st
     Heckerman, Breese & Rommelse 1995 (observation versus repair; the
     myopic rule is depth 1).
     """
-    best = finish_value(finish_plan(posterior.model, suspects(posterior), settings))
+    best = finish_value(finish_plan_of(posterior, settings))
     if depth <= 0:
         return best
     for row in rank(posterior, candidates).worth_doing(settings.min_bits)[: settings.value_lookahead]:
@@ -335,8 +345,7 @@ def sequence_value(engine: Engine, posterior: AnyPosterior, candidates: tuple[st
     Two propagations per check of the run (its normal outcome and each
     abnormal one).
     """
-    model = posterior.model
-    best = finish_value(finish_plan(model, suspects(posterior), settings))
+    best = finish_value(finish_plan_of(posterior, settings))
     best_k = 0
     post, rest, reach, spent = posterior, tuple(candidates), 1.0, 0.0
     limit = min(best, bound)
@@ -360,9 +369,9 @@ def sequence_value(engine: Engine, posterior: AnyPosterior, candidates: tuple[st
             if outcome == 0:
                 normal = later
             else:
-                spent += reach * p * finish_value(finish_plan(model, suspects(later), settings))
+                spent += reach * p * finish_value(finish_plan_of(later, settings))
         p_normal = row.p_outcomes[0]
-        total = spent + (reach * p_normal * finish_value(finish_plan(model, suspects(normal), settings))
+        total = spent + (reach * p_normal * finish_value(finish_plan_of(normal, settings))
                          if normal is not None and p_normal > 0.0 else 0.0)
         if total < best * (1.0 - 1e-12):
             best, best_k = total, step + 1

@@ -22,7 +22,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from troubleshoot.advice.diagnosis import hypotheses_of, ranked_marginals
 from troubleshoot.advice.ties import ordered_by
+from troubleshoot.engine.inference import AnyPosterior
 from troubleshoot.model import Model
 
 #: A suspect below this posterior is treated as cleared (rounding of an exact zero).
@@ -176,6 +178,75 @@ def _tied(a: float, b: float) -> bool:
     return abs(a - b) <= RATIO_TOLERANCE * max(abs(a), abs(b))
 
 
+def _kadane_simon_ranked(id_rank: np.ndarray, p: np.ndarray, cost: np.ndarray) -> np.ndarray:
+    """:func:`kadane_simon_order` in whole arrays, ids given by their rank in id order.
+
+    The same order, item for item: the first sort by (-ratio, id) is one
+    numpy sort; the grouping of ties (each ratio against the first of its
+    group, :func:`_tied`) is done in Python only over runs of neighbours
+    whose ratios lie within twice the tolerance and are not all equal.
+    Outside such runs every item starts a group of its own: with positive
+    ratios in decreasing order, r_(i-1) - r_i > 2 tol r_(i-1) gives
+    r_h - r_i > tol (r_h + r_(i-1)) for any earlier r_h, far beyond
+    rounding, so no earlier group takes it. A run of equal ratios is one
+    group, already in id order.
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(cost > 0, p / np.where(cost > 0, cost, 1.0), np.inf)
+    first = np.lexsort((id_rank, -ratio))
+    if len(first) < 2:
+        return first
+    r = ratio[first]
+    a, b = r[:-1], r[1:]
+    with np.errstate(invalid="ignore"):
+        near = (a == b) | (np.abs(a - b) <= 2.0 * RATIO_TOLERANCE * np.maximum(np.abs(a), np.abs(b)))
+    unequal = near & (a != b)
+    if not unequal.any():
+        return first
+    out = first.copy()
+    # Runs of near neighbours: [start, stop) in positions of ``first``; only
+    # those with two unequal ratios need the grouping (large models have
+    # long runs of parts with the same prior and cost).
+    edges = np.flatnonzero(np.diff(np.concatenate(([0], near.astype(np.int8), [0]))))
+    starts, stops = edges[0::2], edges[1::2] + 1
+    seen = np.concatenate(([0], np.cumsum(unequal)))  # unequal neighbour pairs before each position
+    mixed = seen[stops - 1] > seen[starts]
+    for start, stop in zip(starts[mixed].tolist(), stops[mixed].tolist()):
+        run, run_ratio = first[start:stop], r[start:stop]
+        pos = 0
+        while pos < len(run):
+            length = _group_length(run_ratio[pos:])
+            group = run[pos:pos + length]
+            out[start + pos:start + pos + length] = group[np.argsort(id_rank[group])]
+            pos += length
+    return out
+
+
+def _group_length(r: np.ndarray) -> int:
+    """How many of ``r`` form the group ``r[0]`` heads: it and the ratios after it tied to it (:func:`_tied`),
+    up to the first that is not.
+
+    Looked for in windows growing fourfold, so a group costs about its
+    length, not the run's.
+    """
+    head = float(r[0])
+    width = 64
+    while True:
+        window = r[1:1 + width]
+        if math.isinf(head):
+            tied = window == head
+        else:
+            with np.errstate(invalid="ignore"):
+                # _tied's operations, in whole arrays.
+                tied = ~np.isinf(window) & (np.abs(head - window)
+                                            <= RATIO_TOLERANCE * np.maximum(abs(head), np.abs(window)))
+        if not tied.all():
+            return 1 + int(np.argmin(tied))
+        if 1 + width >= len(r):
+            return len(r)
+        width *= 4
+
+
 def repair_order(model: Model, group) -> tuple[RepairStep, ...]:
     """Repairs of the given suspects in order of P / (repair + verification cost); the rest last.
 
@@ -217,6 +288,64 @@ def repair_order(model: Model, group) -> tuple[RepairStep, ...]:
     return tuple([repairable[i] for i in order] + other)
 
 
+@dataclass(frozen=True)
+class _Repairs:
+    """The full cost (repair and verification) of every hypothesis, in ``model.hypotheses`` order.
+
+    Derived once per model: the policy orders every live suspect for every
+    outcome it weighs, and these figures do not depend on the findings.
+    """
+
+    repairable: np.ndarray  # bool: the model lists a repair
+    full: np.ndarray  # repair_cost + verification_cost (0 where there is no repair)
+
+
+def _repairs_of(model: Model) -> _Repairs:
+    table = model.__dict__.get("_advice_repairs")
+    if table is None:
+        ids = hypotheses_of(model).ids
+        repairable = np.array([r in model.event_by_id and model.event_by_id[r].repair is not None for r in ids],
+                              dtype=bool)
+        full = np.array([repair_cost(model, r) + verification_cost(model, r) if ok else 0.0
+                         for r, ok in zip(ids, repairable.tolist())], dtype=float)
+        table = _Repairs(repairable, full)
+        model.__dict__["_advice_repairs"] = table
+    return table
+
+
+def _live(model: Model, ranked) -> tuple[np.ndarray, np.ndarray]:
+    """The suspects not repaired with P > CLEARED_P, in ranked order: hypothesis positions (-1 for an id
+    the model does not list) and probabilities."""
+    index = hypotheses_of(model).index
+    live = [s for s in ranked if not s.repaired and s.p > CLEARED_P]
+    idx = np.fromiter((index.get(s.id, -1) for s in live), dtype=np.int64, count=len(live))
+    p = np.fromiter((s.p for s in live), dtype=float, count=len(live))
+    return idx, p
+
+
+def _sequence(model: Model, idx: np.ndarray, p: np.ndarray, group_min_p: float) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`repair_sequence` of the live suspects ``idx`` (probabilities ``p``), as hypothesis positions and
+    their probabilities.
+
+    The same order as :func:`repair_order` over the group, then over the
+    rest, keeping the repairable steps: the unrepairable ones only ever
+    come last there, and are dropped.
+    """
+    repairs = _repairs_of(model)
+    id_rank = hypotheses_of(model).id_rank
+    known = idx >= 0
+    keep = known.copy()
+    keep[known] = repairs.repairable[idx[known]]
+    idx, p = idx[keep], p[keep]
+    parts_idx, parts_p = [], []
+    for part in (p >= group_min_p, p < group_min_p):
+        i, q = idx[part], p[part]
+        order = _kadane_simon_ranked(id_rank[i], q, repairs.full[i])
+        parts_idx.append(i[order])
+        parts_p.append(q[order])
+    return np.concatenate(parts_idx), np.concatenate(parts_p)
+
+
 def repair_sequence(model: Model, ranked, group_min_p: float) -> tuple[str, ...]:
     """Every repairable unrepaired suspect, in the order they would be repaired.
 
@@ -225,12 +354,9 @@ def repair_sequence(model: Model, ranked, group_min_p: float) -> tuple[str, ...]
     The first entry is the next repair; the expected cost of repair sums
     over the whole sequence.
     """
-    first = [s for s in ranked if not s.repaired and s.p >= group_min_p and s.p > CLEARED_P]
-    rest = [s for s in ranked if not s.repaired and CLEARED_P < s.p < group_min_p]
-    out = []
-    for part in (first, rest):
-        out += [step.id for step in repair_order(model, tuple(part)) if step.cost is not None]
-    return tuple(out)
+    ids = hypotheses_of(model).ids
+    seq, _ = _sequence(model, *_live(model, ranked), group_min_p)
+    return tuple(ids[i] for i in seq.tolist())
 
 
 def next_repair(model: Model, ranked, group_min_p: float) -> str | None:
@@ -333,14 +459,35 @@ def repair_plan(model: Model, ranked, group_min_p: float, escalation_cost: float
     ----------
     Kadane & Simon 1977; Heckerman, Breese & Rommelse 1995 (expected cost of repair).
     """
-    live = [s for s in ranked if not s.repaired and s.p > CLEARED_P]
-    total = sum(s.p for s in live)
-    sequence = repair_sequence(model, ranked, group_min_p)
+    return _plan(model, *_live(model, ranked), group_min_p, escalation_cost)
+
+
+def repair_plan_of(posterior: AnyPosterior, group_min_p: float, escalation_cost: float | None) -> RepairPlan:
+    """``repair_plan(model, suspects(posterior), ...)``, the same figures, without a Suspect per hypothesis.
+
+    The policy weighs a plan for every outcome of every check it looks
+    ahead at; on a large model building the suspect list cost most of a
+    decision.
+    """
+    order, p, repaired = ranked_marginals(posterior)
+    live = ~repaired & (p > CLEARED_P)
+    return _plan(posterior.model, order[live], p[live], group_min_p, escalation_cost)
+
+
+def _plan(model: Model, idx: np.ndarray, p: np.ndarray, group_min_p: float,
+          escalation_cost: float | None) -> RepairPlan:
+    """:func:`repair_plan` of the live suspects: hypothesis positions ``idx`` (-1: not in the model) and
+    probabilities ``p``, in ranked order."""
+    # Python's sum over the ranked order, as the suspects were always added up:
+    # the same float, bit for bit, on every Python version.
+    total = sum(p.tolist())
+    seq_idx, seq_p = _sequence(model, idx, p, group_min_p)
+    ids = hypotheses_of(model).ids
+    sequence = tuple(ids[i] for i in seq_idx.tolist())
     if total <= 0.0:
         return RepairPlan(sequence, (0.0,) * (len(sequence) + 1), 0.0)
-    p_of = {s.id: s.p for s in ranked}
-    q = np.array([p_of[r] / total for r in sequence], float)
-    full = np.array([repair_cost(model, r) + verification_cost(model, r) for r in sequence], float)
+    q = seq_p / total
+    full = _repairs_of(model).full[seq_idx]
     reached = 1.0 - np.concatenate(([0.0], np.cumsum(q)))  # P(repair j+1 is reached); last: after all
     reached = np.clip(reached, 0.0, 1.0)
     reached[reached <= CLEARED_P] = 0.0
@@ -351,4 +498,4 @@ def repair_plan(model: Model, ranked, group_min_p: float, escalation_cost: float
         stops[-1] = spent[-1]
     else:
         stops = spent + escalation_cost * reached
-    return RepairPlan(tuple(sequence), tuple(float(x) for x in stops), outside)
+    return RepairPlan(sequence, tuple(stops.tolist()), outside)
