@@ -907,7 +907,8 @@ def _root_columns(tree, model: Model) -> tuple[np.ndarray, np.ndarray]:
     plans = getattr(tree, "placements", None)
     found = plans.get("root columns") if plans is not None else None
     if found is None:
-        columns, starts = [], []
+        columns: list[np.ndarray] = []
+        starts: list[int] = []
         for root in model.hypotheses:
             i = tree.index[root]
             c = int(tree.var_host[i])
