@@ -309,6 +309,8 @@ def _repairs_of(model: Model) -> _Repairs:
         full = np.array([repair_cost(model, r) + verification_cost(model, r) if ok else 0.0
                          for r, ok in zip(ids, repairable.tolist())], dtype=float)
         table = _Repairs(repairable, full)
+        for shared in (repairable, full):
+            shared.flags.writeable = False  # every posterior of the model reads them
         model.__dict__["_advice_repairs"] = table
     return table
 
