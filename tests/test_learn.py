@@ -521,3 +521,22 @@ def test_same_numbers_in_process_and_in_local_processes(tmp_path, monkeypatch):
     assert np.array_equal(one.params_after.flat(), two.params_after.flat())
     assert one.log_likelihood == two.log_likelihood
     assert [f.id for f in one.figures] == [f.id for f in two.figures]
+
+
+def test_packed_values_are_decoded_once_per_process_and_old_tables_let_go(monkeypatch):
+    # What EM sends to every piece is pickled once where it is made; each process decodes a key once.
+    import pickle
+
+    from troubleshoot.study import learn as learn_module
+    from troubleshoot.study.learn import Packed, unpacked
+
+    monkeypatch.setattr(learn_module, "_UNPACKED", {})
+    rows = Packed("rows", "table-1", [1.5, ("x", 2)])
+    first = unpacked(rows)
+    assert first == [1.5, ("x", 2)]  # the pickle module's round trip
+    assert unpacked(pickle.loads(pickle.dumps(rows))) is first  # sent again: not decoded again
+    assert unpacked(Packed("rows", "table-1", [1.5, ("x", 3)])) == [1.5, ("x", 3)]  # other bytes, other key
+    unpacked(Packed("rows", "table-2", 1))
+    unpacked(Packed("rows", "table-3", 2))
+    again = unpacked(rows)
+    assert again == first and again is not first  # only the latest tables are kept

@@ -581,16 +581,32 @@ class FleetEngine(Engine):
         #: Check families under these figures, by (check, epoch, the nodes its causes stand on): most
         #: trees fold a check onto the same nodes, so one family (and its likelihood) serves them all.
         self.families: dict = {}
+        #: Likelihood factors under these figures, by (family, outcome, axis order, shape): shared by trees.
+        self.factors: dict = {}
+        #: repairs -> the key of their tree (what it carries depends only on how many repairs there are).
+        self._keys = self._structures.setdefault("keys", {})
+        #: findings -> those left once the implied ones are dropped (the structure decides, not the figures).
+        self._kept = self._structures.setdefault("kept", {})
         super().__init__(model)
+
+    def kept_findings(self, findings: tuple) -> tuple:
+        """``tuple(self.implied_dropped(findings))``, worked out once per distinct findings."""
+        kept = self._kept.get(findings)
+        if kept is None:
+            kept = self._kept[findings] = tuple(self.implied_dropped(findings))
+        return kept
 
     def compiled(self, repairs, past_targets=frozenset()):
         repairs = tuple(repairs)
-        now = len(repairs)
-        everything = frozenset((c.id, e) for c in self.model.checks + self.model.symptoms for e in range(now)) \
-            | frozenset((self.model.top, e) for e in range(now))
-        key = (repairs, everything)
+        key = self._keys.get(repairs)
+        if key is None:
+            now = len(repairs)
+            everything = frozenset((c.id, e) for c in self.model.checks + self.model.symptoms for e in range(now)) \
+                | frozenset((self.model.top, e) for e in range(now))
+            key = self._keys[repairs] = (repairs, everything)
         if key in self._trees:
             return self._trees[key]
+        everything = key[1]
         known = self._structures.get(key)
         if known is None:
             canonical = self._structures.get("canonical")
@@ -609,8 +625,41 @@ class FleetEngine(Engine):
             return super()._evidence(net, tree, finding)
         found = memo.get(finding)
         if found is None:
-            found = memo[finding] = super()._evidence(net, tree, finding)
+            found = memo[finding] = self._placed(net, tree, finding)
         return found
+
+    def _placed(self, net, tree, finding):
+        """:meth:`Engine._evidence` for a check's finding, its clique and axis order kept with the structure.
+
+        The trees of a fleet put one check family (same nodes) in cliques of the same shape: the
+        factor, the likelihood transposed and reshaped there, is made once per figures and shared.
+        """
+        check = self.model.check_by_id.get(finding.target)
+        placements = getattr(tree, "placements", None)
+        if check is None or placements is None:
+            return super()._evidence(net, tree, finding)
+        self._validate(finding, net.epochs)
+        fam = net.families[(finding.target, finding.epoch)]
+        if not fam.nodes:
+            return super()._evidence(net, tree, finding)
+        where = placements.get(fam.nodes)
+        if where is None:
+            idx = [tree.index[v] for v in fam.nodes]
+            c = tree._host_of_group(idx)
+            local = {x: i for i, x in enumerate(tree.cliques[c])}
+            order = tuple(sorted(range(len(idx)), key=lambda i: local[idx[i]]))
+            shape = [1] * len(tree.cliques[c])
+            for i in idx:
+                shape[local[i]] = 2
+            where = placements[fam.nodes] = (c, order, tuple(shape))
+        c, order, shape = where
+        key = (fam.check, fam.epoch, fam.nodes, finding.outcome, order, shape)
+        factor = self.factors.get(key)
+        if factor is None:
+            lik = fam.p_outcome(finding.outcome)
+            factor = np.ascontiguousarray(np.transpose(lik, order) if len(order) > 1 else lik).reshape(shape)
+            self.factors[key] = factor
+        return Evidence(c, factor)
 
 
 class _CanonicalEngine(Engine):
@@ -630,12 +679,13 @@ class _CanonicalEngine(Engine):
 class _Families(dict):
     """A network's check families, each built when first asked for (EM reads only the checks made)."""
 
-    def __init__(self, net, model: Model, keys, shared: dict | None = None):
+    def __init__(self, net, model: Model, keys, shared: dict | None = None, folded: dict | None = None):
         super().__init__()
         self._net = net
         self._model = model
         self._keys = tuple(keys)
         self._shared = {} if shared is None else shared
+        self._folded = {} if folded is None else folded
 
     def items(self):
         for key in self._keys:  # a reader of every family (the batch ranking) gets every one
@@ -645,13 +695,17 @@ class _Families(dict):
     def __missing__(self, key):
         from troubleshoot.engine.observation import check_family
 
-        check, epoch = self._model.check_by_id[key[0]], key[1]
-        nodes = tuple(self._net.node_for(c.target, epoch) for c in check.causes)
-        folded = (check.id, epoch, nodes)
+        # Where the causes stand is the structure's (kept in ``folded`` across figures); the family is the figures'.
+        folded = self._folded.get(key)
+        if folded is None:
+            check = self._model.check_by_id[key[0]]
+            folded = self._folded[key] = (check.id, key[1], tuple(self._net.node_for(c.target, key[1])
+                                                                   for c in check.causes))
         family = self._shared.get(folded)
         if family is None:
-            family = self._shared[folded] = check_family(check, epoch, dict(zip((c.target for c in check.causes),
-                                                                                 nodes)).__getitem__)
+            check = self._model.check_by_id[key[0]]
+            family = self._shared[folded] = check_family(check, key[1], dict(zip((c.target for c in check.causes),
+                                                                                  folded[2])).__getitem__)
         self[key] = family
         return family
 
@@ -662,6 +716,10 @@ class _Structure:
     def __init__(self, net, tree):
         self.net, self.tree = net, tree
         tree.separator_sum_plans()  # built once here, shared by every refitted copy
+        #: (check, epoch) -> (check, epoch, the nodes its causes stand on): the families' keys, per structure.
+        self.folded: dict = {}
+        #: family nodes -> (clique, axis order, shape) of its likelihood in this tree.
+        self.placements: dict = {}
         self.slots = []
         for r in net.model.hypotheses:
             if r not in tree.index:
@@ -683,10 +741,11 @@ class _Structure:
 
         net = copy.copy(self.net)
         net.model = model
-        net.families = _Families(net, model, self.net.families, families)
+        net.families = _Families(net, model, self.net.families, families, self.folded)
         tree = copy.copy(self.tree)
         tree.network = net
-        tree.families = _Families(net, model, self.tree.families, families)
+        tree.families = _Families(net, model, self.tree.families, families, self.folded)
+        tree.placements = self.placements
         tree._batch_plans = {}  # they hold the check tables of the figures compiled with
         tree.evidence_memo = {}  # FleetEngine's: each finding's likelihood in this tree
         base = self.tree.base.copy()
@@ -765,7 +824,8 @@ def rows_counts(engine: Engine, params: Parameters, rows, into: Counts,
     model = engine.model
     repairs = tuple(rows[0][0].repairs)
     now = len(repairs)
-    findings = [tuple(engine.implied_dropped(d.findings)) for d, _ in rows]
+    kept = getattr(engine, "kept_findings", None)
+    findings = [kept(d.findings) if kept is not None else tuple(engine.implied_dropped(d.findings)) for d, _ in rows]
     net, tree = engine.compiled(repairs, frozenset((f.target, f.epoch) for fs in findings for f in fs
                                                    if f.epoch < now))
     count = len(rows)
@@ -791,15 +851,10 @@ def rows_counts(engine: Engine, params: Parameters, rows, into: Counts,
     refused |= {r for r in range(count) if not possible[r]}
     keep = np.array([r not in refused for r in range(count)])
     weights = np.array([float(w) for _, w in rows]) * keep
-    # Root marginals of every row, from each root's clique (its table is the posterior joint).
-    marg = np.empty((count, len(model.hypotheses)))
-    for k, root in enumerate(model.hypotheses):
-        i = tree.index[root]
-        c = int(tree.var_host[i])
-        axis = tree.cliques[c].index(i)
-        size = len(tree.cliques[c])
-        block = work[:, int(tree.offsets[c]):int(tree.offsets[c + 1])]
-        marg[:, k] = block.reshape(count, 1 << axis, 2, 1 << (size - 1 - axis))[:, :, 1, :].sum(axis=(1, 2))
+    # Root marginals of every row, from each root's clique (its table is the posterior joint): the
+    # entries where the root is failed, gathered and summed root by root in one call.
+    columns, starts = _root_columns(tree, model)
+    marg = np.add.reduceat(work[:, columns], starts, axis=1) if len(starts) else np.zeros((count, 0))
     marg = np.clip(marg, 0.0, 1.0)
     marg[~keep] = 0.0
     into.roots += (weights[:, None] * marg).sum(axis=0)
@@ -835,13 +890,37 @@ def rows_counts(engine: Engine, params: Parameters, rows, into: Counts,
         # The hidden counts depend on the joint only through which causes each of its states has
         # present: every (check, outcome, presence pattern) is one key, whatever the repairs and epoch.
         present, pattern = _cause_presence(engine, net, repairs, check, epoch)
-        key = (j, _levels(check).index(outcome), pattern)
+        key = (j, fam.order.index(outcome), pattern)
         slot = into.pending.get(key)
         if slot is None:
             into.pending[key] = [present, joint]
         else:
             slot[1] = slot[1] + joint
     return sorted(refused)
+
+
+def _root_columns(tree, model: Model) -> tuple[np.ndarray, np.ndarray]:
+    """Columns of a tree's tables where each root (``model.hypotheses`` order) is failed, and where each begins.
+
+    Kept with the tree's structure when it has one (a fleet tree's ``placements``).
+    """
+    plans = getattr(tree, "placements", None)
+    found = plans.get("root columns") if plans is not None else None
+    if found is None:
+        columns: list[np.ndarray] = []
+        starts: list[int] = []
+        for root in model.hypotheses:
+            i = tree.index[root]
+            c = int(tree.var_host[i])
+            axis = tree.cliques[c].index(i)
+            size = len(tree.cliques[c])
+            entries = np.arange(1 << size).reshape(1 << axis, 2, 1 << (size - 1 - axis))[:, 1, :].ravel()
+            starts.append(sum(len(x) for x in columns))
+            columns.append(int(tree.offsets[c]) + entries)
+        found = (np.concatenate(columns) if columns else np.zeros(0, np.int64), np.array(starts, dtype=np.int64))
+        if plans is not None:
+            plans["root columns"] = found
+    return found
 
 
 def _levels(check) -> tuple[int, ...]:
@@ -854,9 +933,65 @@ def _check_index(model: Model) -> dict[str, int]:
     return {c.id: j for j, c in enumerate(_all_checks(model))}
 
 
+class Packed:
+    """Something sent to every piece of work, pickled once where it is made and unpickled once per process.
+
+    EM sends the same rows in every iteration, and the same figures with every piece of an
+    iteration: as bytes they cost the sender a copy, and each process decodes a key only the first
+    time it meets it (:func:`unpacked`). Nothing depends on which process decoded what.
+    """
+
+    __slots__ = ("key", "data")
+
+    def __init__(self, kind: str, group: str, value):
+        import pickle
+
+        self.data = pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
+        # Known by its own bytes: equal keys are equal values, whoever made them and however cut.
+        self.key = (kind, group, hashlib.sha256(self.data).hexdigest())
+
+    def __getstate__(self):
+        return (self.key, self.data)
+
+    def __setstate__(self, state):
+        self.key, self.data = state
+
+
+#: This process's decoded Packed values: kind -> group -> key -> value (see :func:`unpacked`).
+_UNPACKED: dict = {}
+_UNPACKED_LOCK = threading.Lock()
+#: Groups of each kind kept (the figures of the last iterations, the rows of the last tables).
+UNPACKED_GROUPS = 2
+
+
+def unpacked(packed: Packed):
+    """The value of ``packed``, decoded once in this process.
+
+    A key is (kind, group, digest of the bytes): only the latest :data:`UNPACKED_GROUPS` groups of
+    each kind are kept (a new table or new figures let the old ones go).
+    """
+    import pickle
+
+    kind, group = packed.key[0], packed.key[1]
+    groups = _UNPACKED.get(kind)
+    found = groups.get(group) if groups is not None else None
+    value = found.get(packed.key) if found is not None else None
+    if value is None:
+        value = pickle.loads(packed.data)
+        with _UNPACKED_LOCK:
+            groups = _UNPACKED.setdefault(kind, {})
+            if group not in groups:
+                while len(groups) >= UNPACKED_GROUPS:
+                    groups.pop(next(iter(groups)))
+                groups[group] = {}
+            groups[group][packed.key] = value
+    return value
+
+
 def _estep_piece(piece, shared) -> Counts:
-    """One piece of the E-step: rows (index, SessionData, count) under the shared figures."""
-    token, model, params, prior_marginals = shared
+    """One piece of the E-step: rows (index, SessionData, count) under the shared figures (both Packed)."""
+    token, model, params, prior_marginals = unpacked(shared)
+    piece = unpacked(piece)
     engine = _engine_for(token, model)
     counts = Counts.zeros(params)
     start = 0
@@ -896,6 +1031,14 @@ def _unflat(template: Parameters, flat: np.ndarray) -> Parameters:
 
 def _token(params: Parameters) -> str:
     return hashlib.sha256(params.flat().tobytes()).hexdigest()
+
+
+def _digest(table) -> str:
+    """SHA-256 of an E-step table's rows (what a process's decoded copy is known by)."""
+    import pickle
+
+    return hashlib.sha256(pickle.dumps([(i, d.findings, d.repairs, w) for i, d, w in table],
+                                       protocol=pickle.HIGHEST_PROTOCOL)).hexdigest()
 
 
 # ---------------------------------------------------------------- M-step
@@ -1163,9 +1306,13 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
             current = model_with(model, params)
             engine = FleetEngine(current, structures)
             prior_marg = engine.propagate([Finding(model.top, 1, 0)]).root_marginals()
-            table = [(i, SessionData(k[0], k[1]), rows[k]) for i, k in enumerate(state["keys"])]
-            results = executor.map(_estep_piece, chunks(table, ROWS_PER_PIECE),
-                                   (_token(params), current, params, prior_marg))
+            if state.get("pieces") is None:  # the rows change only when some are left out
+                table = [(i, SessionData(k[0], k[1]), rows[k]) for i, k in enumerate(state["keys"])]
+                version = _digest(table)
+                state["pieces"] = [Packed("rows", version, piece) for piece in chunks(table, ROWS_PER_PIECE)]
+            token = _token(params)
+            results = executor.map(_estep_piece, state["pieces"],
+                                   Packed("figures", token, (token, current, params, prior_marg)))
             counts = Counts.zeros(params)
             for piece_counts in results:
                 counts.add(piece_counts)
@@ -1180,6 +1327,7 @@ def learn_sessions(model: Model, sessions: list[tuple[str, SessionData]], *, mod
                                                                 "model (a zero figure contradicts them)"))
             refused = {state["keys"][i] for i in counts.refused}
             state["keys"] = [k for k in state["keys"] if k not in refused]
+            state["pieces"] = None
             if not state["keys"]:
                 raise LearnError("every session's findings are impossible under the model")
         p_top = engine.propagate().p_failed(model.top)
