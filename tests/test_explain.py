@@ -160,3 +160,56 @@ def _finding(session, check, outcome):
     from troubleshoot.engine.inference import Finding
 
     return Finding(check.id, check.outcomes.index(outcome), session.epoch)
+
+
+def plain_shifts(engine, posterior, row):
+    """Every unrepaired suspect, p now and p after each outcome (one propagation each, written out), sorted by
+    the spread of p_if (largest first), then p now (largest first), then id."""
+    from troubleshoot.engine.inference import Finding
+    from troubleshoot.errors import ImpossibleFindings
+
+    model = posterior.model
+    after = []
+    for outcome in range(len(row.outcomes)):
+        try:
+            post = engine.propagate(tuple(posterior.findings) + (Finding(row.check, outcome, posterior.epoch),),
+                                    posterior.repairs)
+            after.append(dict(zip(model.hypotheses, post.root_marginals().tolist())))
+        except ImpossibleFindings:
+            after.append(None)
+    rows = []
+    for r, p in zip(model.hypotheses, posterior.root_marginals().tolist()):
+        if r in posterior.repairs:
+            continue
+        p_if = tuple((name, None if a is None else a[r]) for name, a in zip(row.outcomes, after))
+        values = [v for _, v in p_if if v is not None]
+        spread = max(values) - min(values) if values else 0.0
+        rows.append((-spread, -p, r, model.label_of(r), p, p_if))
+    return [(r, label, p, p_if) for _, _, r, label, p, p_if in sorted(rows)]
+
+
+@pytest.mark.parametrize("demo", ["booster", "rooftop"])
+def test_suspect_shifts_are_the_plain_ones(demo):
+    # Source: the definition above (p_if by one propagation per outcome; the
+    # order by spread, p now, id), written out; the figures must agree exactly.
+    # Three steps: the complaint, an abnormal reading, and a repair.
+    from test_scenarios import load_demo
+    from troubleshoot.advice.explain import suspect_shifts
+
+    model = load_demo(demo)
+    engine = Engine(model)
+    session = Session(model, settings_for(model), engine=engine)
+    for step in range(3):
+        row = session.ranking.best
+        assert row is not None
+        want = plain_shifts(engine, session.posterior, row)
+        got = [(s.id, s.label, s.p_now, s.p_if) for s in suspect_shifts(engine, session.posterior, row)]
+        assert got == want
+        assert [(s.id, s.p_if) for s in suspect_shifts(engine, session.posterior, row, limit=4)] == \
+            [(r, p_if) for r, _, _, p_if in want[:4]]
+        assert [(s.id, s.p_if) for s in suspect_shifts(engine, session.posterior, row, now=session.suspects)] == \
+            [(r, p_if) for r, _, _, p_if in want]
+        if step == 0:
+            session.record_finding(row.check, 1)
+        else:
+            session.record_repair(next(s.id for s in session.suspects if not s.repaired and s.id in model.event_by_id))

@@ -195,7 +195,7 @@ def test_array_order_is_the_plain_kadane_simon_order(seed):
     # Many exact ties, ties up to rounding, ratios just inside and just outside
     # the tolerance (chains of them) and free repairs.
     rng = random.Random(seed)
-    n = rng.randint(0, 40)
+    n = rng.choice([rng.randint(0, 40), rng.randint(40, 400)])  # item by item, and in whole arrays
     base = [rng.choice([0.1, 0.2, 0.3, 0.05]) for _ in range(n)]
     nudge = [rng.choice([0.0, 0.0, 1e-13, 4e-10, 9e-10, 1.1e-9, 1.9e-9, 2.1e-9, 5e-9]) for _ in range(n)]
     p = np.array([b * (1 + d) for b, d in zip(base, nudge)])

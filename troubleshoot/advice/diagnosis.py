@@ -60,6 +60,8 @@ class Hypotheses:
         (figure, id).
     unlisted : tuple of bool
         The roots standing for causes outside the model (:func:`is_unlisted`).
+    priors : numpy.ndarray
+        The prior failure probability of each (``model.prior_of``).
     """
 
     ids: tuple[str, ...]
@@ -67,6 +69,7 @@ class Hypotheses:
     index: dict[str, int]
     id_rank: np.ndarray
     unlisted: tuple[bool, ...]
+    priors: np.ndarray
 
 
 def hypotheses_of(model: Model) -> Hypotheses:
@@ -82,7 +85,10 @@ def hypotheses_of(model: Model) -> Hypotheses:
         id_rank = np.empty(len(ids), dtype=np.int64)
         id_rank[sorted(range(len(ids)), key=ids.__getitem__)] = np.arange(len(ids))
         table = Hypotheses(ids, tuple(model.label_of(r) for r in ids), {r: i for i, r in enumerate(ids)},
-                           id_rank, tuple(is_unlisted(model, r) for r in ids))
+                           id_rank, tuple(is_unlisted(model, r) for r in ids),
+                           np.array([model.prior_of(r) for r in ids]))
+        for shared in (table.id_rank, table.priors):
+            shared.flags.writeable = False  # every posterior of the model reads them
         model.__dict__["_advice_hypotheses"] = table
     return table
 
@@ -170,7 +176,7 @@ def entropy_bits(posterior: AnyPosterior) -> float:
     """
     model = posterior.model
     q = posterior.root_marginals()
-    prior = np.array([model.prior_of(r) for r in model.hypotheses])
+    prior = hypotheses_of(model).priors
     e_log_prior = _expected_log(q, prior) + _expected_log(1.0 - q, 1.0 - prior)
     e_log_lik = 0.0
     for f in posterior.findings:

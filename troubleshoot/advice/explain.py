@@ -26,7 +26,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from collections.abc import Sequence
 
-from troubleshoot.advice.diagnosis import Suspect, suspects
+import numpy as np
+
+from troubleshoot.advice.diagnosis import Suspect, hypotheses_of, ranked_marginals
 from troubleshoot.advice.ranking import RankRow
 from troubleshoot.engine.inference import AnyPosterior, Engine, Finding
 from troubleshoot.errors import ImpossibleFindings
@@ -111,24 +113,33 @@ def outcome_posteriors(engine: Engine, posterior: AnyPosterior, check_id: str,
 
 
 def suspect_shifts(engine: Engine, posterior: AnyPosterior, row: RankRow,
-                   now: Sequence[Suspect] | None = None) -> tuple[SuspectShift, ...]:
+                   now: Sequence[Suspect] | None = None, limit: int | None = None) -> tuple[SuspectShift, ...]:
     """Every unrepaired suspect with its probability now and after each outcome of ``row``'s check.
 
     Sorted by how far the outcomes pull it apart (descending), then by
-    probability now (descending), then id.
+    probability now (descending), then id; only the first ``limit`` when
+    given (the explanation shows a few of possibly 50,000, so only those
+    are built).
     """
-    now = suspects(posterior) if now is None else now
+    table = hypotheses_of(posterior.model)
     after = outcome_posteriors(engine, posterior, row.check, len(row.outcomes))
-    index = {h: i for i, h in enumerate(posterior.model.hypotheses)}
     marginals = [None if post is None else post.root_marginals() for post in after]
+    if now is None:
+        order, p_all, repaired = ranked_marginals(posterior)
+        idx, p_now = order[~repaired], p_all[~repaired]
+    else:
+        live = [s for s in now if not s.repaired]
+        idx = np.array([table.index[s.id] for s in live], dtype=np.int64)
+        p_now = np.array([s.p for s in live], dtype=float)
+    known = [m[idx] for m in marginals if m is not None]
+    # SuspectShift.shift in whole arrays: the largest minus the smallest p_if.
+    shift = np.max(known, axis=0) - np.min(known, axis=0) if known else np.zeros(len(idx))
+    ranked = np.lexsort((table.id_rank[idx], -p_now, -shift))
     out = []
-    for s in now:
-        if s.repaired:
-            continue
-        p_if = tuple((name, None if m is None else float(m[index[s.id]]))
-                     for name, m in zip(row.outcomes, marginals))
-        out.append(SuspectShift(s.id, s.label, s.p, p_if))
-    out.sort(key=lambda x: (-x.shift, -x.p_now, x.id))
+    for k in ranked[:limit].tolist():
+        i = int(idx[k])
+        p_if = tuple((name, None if m is None else float(m[i])) for name, m in zip(row.outcomes, marginals))
+        out.append(SuspectShift(table.ids[i], table.labels[i], float(p_now[k]), p_if))
     return tuple(out)
 
 
@@ -194,6 +205,6 @@ def explain_check(engine: Engine, posterior: AnyPosterior, row: RankRow, cost_ch
     -------
     Why
     """
-    shifts = pick_suspects(suspect_shifts(engine, posterior, row))
+    shifts = pick_suspects(suspect_shifts(engine, posterior, row, limit=MAX_SUSPECTS))
     text = check_reason(row, shifts, cost_check_first, cost_repair_now, posterior.model.cost_unit)
     return Why(row.check, text, shifts, float(cost_check_first), float(cost_repair_now))

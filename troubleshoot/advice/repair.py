@@ -193,9 +193,12 @@ def _kadane_simon_ranked(id_rank: np.ndarray, p: np.ndarray, cost: np.ndarray) -
     """
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = np.where(cost > 0, p / np.where(cost > 0, cost, 1.0), np.inf)
+    if len(ratio) <= _FEW:
+        # A few suspects (the demos, the simulator): the loop costs less than the array calls.
+        keys = id_rank.tolist()
+        return np.array(_grouped(sorted(range(len(keys)), key=lambda i: (-ratio[i], keys[i])), ratio, keys),
+                        dtype=np.int64)
     first = np.lexsort((id_rank, -ratio))
-    if len(first) < 2:
-        return first
     r = ratio[first]
     a, b = r[:-1], r[1:]
     with np.errstate(invalid="ignore"):
@@ -211,8 +214,12 @@ def _kadane_simon_ranked(id_rank: np.ndarray, p: np.ndarray, cost: np.ndarray) -
     starts, stops = edges[0::2], edges[1::2] + 1
     seen = np.concatenate(([0], np.cumsum(unequal)))  # unequal neighbour pairs before each position
     mixed = seen[stops - 1] > seen[starts]
+    keys = id_rank.tolist()
     for start, stop in zip(starts[mixed].tolist(), stops[mixed].tolist()):
         run, run_ratio = first[start:stop], r[start:stop]
+        if stop - start <= _FEW:
+            out[start:stop] = _grouped(run.tolist(), ratio, keys)
+            continue
         pos = 0
         while pos < len(run):
             length = _group_length(run_ratio[pos:])
@@ -220,6 +227,22 @@ def _kadane_simon_ranked(id_rank: np.ndarray, p: np.ndarray, cost: np.ndarray) -
             out[start + pos:start + pos + length] = group[np.argsort(id_rank[group])]
             pos += length
     return out
+
+
+#: Up to this many items (or a run of this many) are grouped item by item, beyond it in whole arrays.
+_FEW = 48
+
+
+def _grouped(first: list[int], ratio: np.ndarray, keys: list[int]) -> list[int]:
+    """``first`` (in decreasing ratio) with each group of ratios tied to its first (:func:`_tied`) by ``keys``."""
+    out: list[int] = []
+    group: list[int] = []
+    for i in first:
+        if group and not _tied(ratio[group[0]], ratio[i]):
+            out += sorted(group, key=keys.__getitem__)
+            group = []
+        group.append(i)
+    return out + sorted(group, key=keys.__getitem__)
 
 
 def _group_length(r: np.ndarray) -> int:
@@ -309,6 +332,8 @@ def _repairs_of(model: Model) -> _Repairs:
         full = np.array([repair_cost(model, r) + verification_cost(model, r) if ok else 0.0
                          for r, ok in zip(ids, repairable.tolist())], dtype=float)
         table = _Repairs(repairable, full)
+        for shared in (repairable, full):
+            shared.flags.writeable = False  # every posterior of the model reads them
         model.__dict__["_advice_repairs"] = table
     return table
 
