@@ -18,6 +18,7 @@ expected cost of repair).
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -156,20 +157,14 @@ def kadane_simon_order(ids: list[str], p: np.ndarray, cost: np.ndarray) -> list[
     ----------
     Kadane & Simon 1977.
     """
-    p = np.asarray(p, float)
-    cost = np.asarray(cost, float)
+    ratio = _ratios(np.asarray(p, float), np.asarray(cost, float))
+    return _grouped(sorted(range(len(ids)), key=lambda i: (-ratio[i], ids[i])), ratio, ids)
+
+
+def _ratios(p: np.ndarray, cost: np.ndarray) -> np.ndarray:
+    """p / cost per item, infinite where trying it is free."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = np.where(cost > 0, p / np.where(cost > 0, cost, 1.0), np.inf)
-    first = sorted(range(len(ids)), key=lambda i: (-ratio[i], ids[i]))
-    out: list[int] = []
-    group: list[int] = []
-    for i in first:
-        if group and not _tied(ratio[group[0]], ratio[i]):
-            out += sorted(group, key=lambda j: ids[j])
-            group = []
-        group.append(i)
-    out += sorted(group, key=lambda j: ids[j])
-    return out
+        return np.where(cost > 0, p / np.where(cost > 0, cost, 1.0), np.inf)
 
 
 def _tied(a: float, b: float) -> bool:
@@ -191,8 +186,7 @@ def _kadane_simon_ranked(id_rank: np.ndarray, p: np.ndarray, cost: np.ndarray) -
     rounding, so no earlier group takes it. A run of equal ratios is one
     group, already in id order.
     """
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = np.where(cost > 0, p / np.where(cost > 0, cost, 1.0), np.inf)
+    ratio = _ratios(p, cost)
     if len(ratio) <= _FEW:
         # A few suspects (the demos, the simulator): the loop costs less than the array calls.
         keys = id_rank.tolist()
@@ -233,7 +227,7 @@ def _kadane_simon_ranked(id_rank: np.ndarray, p: np.ndarray, cost: np.ndarray) -
 _FEW = 48
 
 
-def _grouped(first: list[int], ratio: np.ndarray, keys: list[int]) -> list[int]:
+def _grouped(first: list[int], ratio: np.ndarray, keys: Sequence) -> list[int]:
     """``first`` (in decreasing ratio) with each group of ratios tied to its first (:func:`_tied`) by ``keys``."""
     out: list[int] = []
     group: list[int] = []
