@@ -880,6 +880,7 @@ class JoinTree:
         self._marginal_plan = marginal_plan(lay, self._sep_offsets, n)
         self.touched_entries = self._count_touched()
         self._joint_plans: dict = {}
+        self._evidence_plans: dict = {}
         self._batch_plans: dict = {}
         self._containing: list[list[int]] | None = None
 
@@ -922,15 +923,27 @@ class JoinTree:
 
     def evidence_on_variables(self, variables: tuple[str, ...], likelihood: np.ndarray) -> Evidence:
         """A likelihood over some variables (axes in the given order), placed in a clique holding them all."""
-        idx = [self.index[v] for v in variables]
-        c = self._host_of_group(idx)
-        local = {x: i for i, x in enumerate(self.cliques[c])}
-        order = sorted(range(len(idx)), key=lambda i: local[idx[i]])
-        factor = np.transpose(likelihood, order) if len(idx) > 1 else likelihood
-        shape = [1] * len(self.cliques[c])
-        for i in idx:
-            shape[local[i]] = 2
+        c, order, shape = self.evidence_placement(tuple(variables))
+        factor = np.transpose(likelihood, order) if len(order) > 1 else likelihood
         return Evidence(c, np.ascontiguousarray(factor).reshape(shape))
+
+    def evidence_placement(self, variables: tuple[str, ...]) -> tuple[int, tuple[int, ...], tuple[int, ...]]:
+        """(clique, axis order, shape) of a likelihood over ``variables`` in this tree; cached.
+
+        The structure alone decides it, so every finding on the same
+        variables (and every refitted copy of the tree) reuses it.
+        """
+        plan = self._evidence_plans.get(variables)
+        if plan is None:
+            idx = [self.index[v] for v in variables]
+            c = self._host_of_group(idx)
+            local = {x: i for i, x in enumerate(self.cliques[c])}
+            shape = [1] * len(self.cliques[c])
+            for i in idx:
+                shape[local[i]] = 2
+            plan = (c, tuple(sorted(range(len(idx)), key=lambda i: local[idx[i]])), tuple(shape))
+            self._evidence_plans[variables] = plan
+        return plan
 
     def joint_plan(self, variables: tuple[str, ...]):
         """(clique, axes to sum out, transpose or None) for a joint of variables; cached."""

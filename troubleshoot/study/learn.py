@@ -629,30 +629,18 @@ class FleetEngine(Engine):
         return found
 
     def _placed(self, net, tree, finding):
-        """:meth:`Engine._evidence` for a check's finding, its clique and axis order kept with the structure.
+        """:meth:`Engine._evidence` for a check's finding, its factor shared by the trees of these figures.
 
         The trees of a fleet put one check family (same nodes) in cliques of the same shape: the
         factor, the likelihood transposed and reshaped there, is made once per figures and shared.
         """
-        check = self.model.check_by_id.get(finding.target)
-        placements = getattr(tree, "placements", None)
-        if check is None or placements is None:
+        if finding.target not in self.model.check_by_id:
             return super()._evidence(net, tree, finding)
         self._validate(finding, net.epochs)
         fam = net.families[(finding.target, finding.epoch)]
         if not fam.nodes:
             return super()._evidence(net, tree, finding)
-        where = placements.get(fam.nodes)
-        if where is None:
-            idx = [tree.index[v] for v in fam.nodes]
-            c = tree._host_of_group(idx)
-            local = {x: i for i, x in enumerate(tree.cliques[c])}
-            order = tuple(sorted(range(len(idx)), key=lambda i: local[idx[i]]))
-            shape = [1] * len(tree.cliques[c])
-            for i in idx:
-                shape[local[i]] = 2
-            where = placements[fam.nodes] = (c, order, tuple(shape))
-        c, order, shape = where
+        c, order, shape = tree.evidence_placement(fam.nodes)
         key = (fam.check, fam.epoch, fam.nodes, finding.outcome, order, shape)
         factor = self.factors.get(key)
         if factor is None:
@@ -718,7 +706,7 @@ class _Structure:
         tree.separator_sum_plans()  # built once here, shared by every refitted copy
         #: (check, epoch) -> (check, epoch, the nodes its causes stand on): the families' keys, per structure.
         self.folded: dict = {}
-        #: family nodes -> (clique, axis order, shape) of its likelihood in this tree.
+        #: Plans of this structure kept across figures (the root columns, :func:`_root_columns`).
         self.placements: dict = {}
         self.slots = []
         for r in net.model.hypotheses:
