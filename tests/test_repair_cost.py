@@ -134,6 +134,18 @@ def plain_plan_cost(model, ranked, group_min_p, escalation):
     return out
 
 
+def allowed_findings(engine, checks, findings, repairs, rng) -> list:
+    """``findings`` and a drawn outcome of each check, each kept only if the model allows it."""
+    for check in checks:
+        trial = findings + [Finding(check.id, rng.randint(0, 1), 0)]
+        try:
+            engine.propagate(trial, repairs)
+        except ImpossibleFindings:
+            continue
+        findings = trial
+    return findings
+
+
 @pytest.mark.parametrize("seed", range(25))
 def test_repair_plan_matches_the_plain_formula(seed):
     model = random_model(seed, n_events=7, n_gates=5, n_checks=4)
@@ -145,13 +157,7 @@ def test_repair_plan_matches_the_plain_formula(seed):
         engine.propagate(findings, repairs)
     except ImpossibleFindings:
         pytest.skip("the drawn tree can never fail (the complaint is impossible)")
-    for check in model.checks[:3]:  # keep each drawn outcome the model allows
-        trial = findings + [Finding(check.id, rng.randint(0, 1), 0)]
-        try:
-            engine.propagate(trial, repairs)
-        except ImpossibleFindings:
-            continue
-        findings = trial
+    findings = allowed_findings(engine, model.checks[:3], findings, repairs, rng)
     ranked = suspects(engine.propagate(findings, repairs))
     for escalation in (None, 250.0):
         plan = repair_plan(model, ranked, 0.05, escalation)
@@ -248,14 +254,7 @@ def test_array_suspects_and_plan_are_the_plain_ones(seed):
     model = tied_model(seed) if seed % 2 else random_model(seed, n_events=8, n_gates=5, n_checks=4)
     engine = Engine(model)
     repairs = tuple(rng.sample([e.id for e in model.basic_events], rng.randint(0, 2)))
-    findings = [Finding(model.top, 1, 0)]
-    for check in model.checks:
-        trial = findings + [Finding(check.id, rng.randint(0, 1), 0)]
-        try:
-            engine.propagate(trial, repairs)
-        except ImpossibleFindings:
-            continue
-        findings = trial
+    findings = allowed_findings(engine, model.checks, [Finding(model.top, 1, 0)], repairs, rng)
     try:
         posterior = engine.propagate(findings, repairs)
     except ImpossibleFindings:
