@@ -200,3 +200,57 @@ def test_remembered_views_and_draws_change_no_result():
             assert a == b
             assert logs[0].lines == logs[1].lines
     assert views.hits > 0 and views.misses > 0
+
+
+def test_faults_known_is_each_units_cheapest_putting_right_and_no_strategy_costs_less():
+    # The figure written out here from the fault tree alone (tests/bruteforce.evaluate): for each
+    # unit, every subset of its failed repairable parts that puts the top event right, each repair
+    # with its verification, or the escalation when cheaper or when a cause outside the model failed.
+    from itertools import combinations
+
+    from troubleshoot.advice.policy import escalation_charge
+    from troubleshoot.model.demos import demo_path
+    from troubleshoot.model.xmlfile import load_model
+
+    model = load_model(demo_path("rooftop"))
+    results = simulate(model, 30, 4, [("info-per-cost", None), ("checklist", None), ("likeliest", None)])
+    engine = Engine(model)
+    roots = list(model.hypotheses)
+    charge = escalation_charge(model)
+    for case in range(30):
+        failed = draw_case(engine, 4, case).failed
+        expected = charge
+        if not any(r not in model.event_by_id for r in failed):
+            parts = sorted(failed)
+            states = np.array([[r in failed for r in roots]])
+            for k in range(1, len(parts) + 1):
+                for subset in combinations(parts, k):
+                    if not bruteforce.evaluate(model, states, roots, set(subset))[model.top][0]:
+                        cost = 0.0
+                        for r in subset:
+                            event = model.event_by_id[r]
+                            verify = model.check_by_id[event.repair.verify].cost if event.repair.verify else 0.0
+                            cost += event.repair.cost + verify + model.verification.cost
+                        expected = min(expected, cost)
+        for name, rows in results.items():
+            assert rows[case].faults_known == pytest.approx(expected, abs=1e-9), (name, case)
+            if rows[case].outcome != "left-failed":
+                assert rows[case].cost >= expected - 1e-9, (name, case)
+    summary = summarise("info-per-cost", results["info-per-cost"])
+    assert summary.faults_known == tuple(r.faults_known for r in results["info-per-cost"])
+
+
+def test_simulate_json_and_table_give_the_faults_known_mean(capsys):
+    from troubleshoot.model.demos import demo_path
+    from troubleshoot.model.xmlfile import load_model
+
+    code, out, _ = _run_cli(capsys, ["simulate", "rooftop", "--cases", "12", "--seed", "5", "--strategy",
+                                     "info-per-cost", "--workers", "1", "--json"])
+    assert code == 0
+    doc = json.loads(out)
+    rows = simulate(load_model(demo_path("rooftop")), 12, 5, [("info-per-cost", None)])["info-per-cost"]
+    assert doc["faults_known_mean_cost"] == pytest.approx(sum(r.faults_known for r in rows) / 12, rel=1e-12)
+    assert doc["faults_known_mean_cost"] <= doc["strategies"]["info-per-cost"]["mean_cost"]
+    code, out, _ = _run_cli(capsys, ["simulate", "rooftop", "--cases", "12", "--seed", "5", "--strategy",
+                                     "info-per-cost", "--workers", "1"])
+    assert f"faults known: {doc['faults_known_mean_cost']:.1f} min per unit, a lower bound" in out

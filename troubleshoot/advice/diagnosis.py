@@ -38,11 +38,42 @@ class Suspect:
     p: float
     repaired: bool = False
     unlisted: bool = False
+    #: A condition of an inhibit gate with no repair (:func:`is_condition`): not a fault.
+    condition: bool = False
 
 
 def is_unlisted(model: Model, root_id: str) -> bool:
     """True for the root standing for a gate's causes outside the model."""
     return root_id not in model.event_by_id and root_id.endswith(DERIVED + "unlisted")
+
+
+def condition_events(model: Model) -> frozenset[str]:
+    """The basic events that are only conditions of inhibit gates and have no repair.
+
+    Such an event (a demand peak, a season, an operating mode) makes its
+    gate's input matter; it is not a failure and nothing repairs it, so it
+    is no suspect to isolate, to put in a repair order or to count as fault
+    left unrepaired: the fault is the gate's input, which has the repair.
+    Found once per model.
+
+    References
+    ----------
+    W. E. Vesely et al., *Fault Tree Handbook*, NUREG-0492, 1981, chapter
+    IV (the inhibit gate and its conditioning event).
+    """
+    found = model.__dict__.get("_advice_conditions")
+    if found is None:
+        as_input = {i for g in model.gates for i in g.inputs}
+        found = frozenset(g.condition for g in model.gates
+                          if g.condition and g.condition not in as_input and g.condition in model.event_by_id
+                          and model.event_by_id[g.condition].repair is None)
+        model.__dict__["_advice_conditions"] = found
+    return found
+
+
+def is_condition(model: Model, root_id: str) -> bool:
+    """True for a basic event that is only an inhibit gate's condition, with no repair (:func:`condition_events`)."""
+    return root_id in condition_events(model)
 
 
 @dataclass(frozen=True)
@@ -60,6 +91,8 @@ class Hypotheses:
         (figure, id).
     unlisted : tuple of bool
         The roots standing for causes outside the model (:func:`is_unlisted`).
+    condition : numpy.ndarray of bool
+        The inhibit gates' conditions with no repair (:func:`is_condition`).
     priors : numpy.ndarray
         The prior failure probability of each (``model.prior_of``).
     """
@@ -69,6 +102,7 @@ class Hypotheses:
     index: dict[str, int]
     id_rank: np.ndarray
     unlisted: tuple[bool, ...]
+    condition: np.ndarray
     priors: np.ndarray
 
 
@@ -86,8 +120,9 @@ def hypotheses_of(model: Model) -> Hypotheses:
         id_rank[sorted(range(len(ids)), key=ids.__getitem__)] = np.arange(len(ids))
         table = Hypotheses(ids, tuple(model.label_of(r) for r in ids), {r: i for i, r in enumerate(ids)},
                            id_rank, tuple(is_unlisted(model, r) for r in ids),
+                           np.array([is_condition(model, r) for r in ids], dtype=bool),
                            np.array([model.prior_of(r) for r in ids]))
-        for shared in (table.id_rank, table.priors):
+        for shared in (table.id_rank, table.condition, table.priors):
             shared.flags.writeable = False  # every posterior of the model reads them
         model.__dict__["_advice_hypotheses"] = table
     return table
@@ -118,7 +153,7 @@ def ranked_marginals(posterior: AnyPosterior) -> tuple[np.ndarray, np.ndarray, n
     return order, ps[order], repaired[order]
 
 
-_SUSPECT_FIELDS = ("id", "label", "p", "repaired", "unlisted")
+_SUSPECT_FIELDS = ("id", "label", "p", "repaired", "unlisted", "condition")
 
 
 def suspects(posterior: AnyPosterior) -> tuple[Suspect, ...]:
@@ -133,7 +168,7 @@ def suspects(posterior: AnyPosterior) -> tuple[Suspect, ...]:
     """
     table = hypotheses_of(posterior.model)
     order, ps, repaired = ranked_marginals(posterior)
-    ids, labels, unlisted = table.ids, table.labels, table.unlisted
+    ids, labels, unlisted, condition = table.ids, table.labels, table.unlisted, table.condition.tolist()
     out = []
     # One Suspect per hypothesis (50,000 on the largest benchmark tree): filling
     # the instance dictionary skips the frozen dataclass's per-field
@@ -141,7 +176,7 @@ def suspects(posterior: AnyPosterior) -> tuple[Suspect, ...]:
     new = object.__new__
     for i, p, done in zip(order.tolist(), ps.tolist(), repaired.tolist()):
         s = new(Suspect)
-        s.__dict__.update(zip(_SUSPECT_FIELDS, (ids[i], labels[i], p, done, unlisted[i])))
+        s.__dict__.update(zip(_SUSPECT_FIELDS, (ids[i], labels[i], p, done, unlisted[i], condition[i])))
         out.append(s)
     return tuple(out)
 
@@ -245,13 +280,13 @@ def most_probable_explanation(engine: Engine, posterior: AnyPosterior) -> Explan
 
 
 def isolated_suspect(ranked: tuple[Suspect, ...], threshold: float) -> Suspect | None:
-    """The suspect (not yet repaired) whose posterior reaches the isolation threshold, if any."""
+    """The suspect (not yet repaired, not a condition) whose posterior reaches the isolation threshold, if any."""
     for s in ranked:
-        if not s.repaired and s.p >= threshold:
+        if not s.repaired and not s.condition and s.p >= threshold:
             return s
     return None
 
 
 def ambiguity_group(ranked: tuple[Suspect, ...], min_p: float) -> tuple[Suspect, ...]:
-    """Suspects not yet repaired with P(failed | findings) >= min_p, most probable first."""
-    return tuple(s for s in ranked if not s.repaired and s.p >= min_p)
+    """Suspects not yet repaired (conditions left out) with P(failed | findings) >= min_p, most probable first."""
+    return tuple(s for s in ranked if not s.repaired and not s.condition and s.p >= min_p)

@@ -35,7 +35,13 @@ Status, in this order of precedence:
 
 Escalation. A model of format 1.1 may price escalation (``<escalation>``
 under the top event); it is then one more alternative, weighed by cost like
-the others. Without a price, escalation is never chosen by cost. With or
+the others. While informative checks lie beyond the lookahead, a check is
+weighed against repairing first (escalating later if cheaper), not against
+escalating at once: one step ahead undervalues the checks after it. When
+every informative check left is within the horizon (at most
+:data:`FULL_HORIZON`), every order of them is weighed to the end and
+escalating at once is weighed like any other course (:func:`complete_cost`).
+Without a price, escalation is never chosen by cost. With or
 without a price, when the probability that the cause lies outside the model
 (every unlisted cause together) reaches the isolation threshold, the
 decision is to escalate: no listed repair is expected to put the unit right.
@@ -253,10 +259,11 @@ def finish_value(plan: RepairPlan) -> float:
 
     Repairing in order, escalating after k >= 1 repairs when that is
     cheaper (:attr:`RepairPlan.going_on`); escalating at once is weighed
-    only when no check and no run of checks pays. Measured: capping every
-    leaf at the escalation price (``RepairPlan.best``) escalates listed
-    faults early (rooftop, 80 units of seed 2: 246.8 min against 232.3;
-    booster, 60 units of seed 1: 301.4 against 293.6).
+    only when no check and no run of checks pays, or when every informative
+    check left is within the horizon (:func:`complete_cost`). Measured:
+    capping every leaf at the escalation price (``RepairPlan.best``)
+    escalates listed faults early (rooftop, 80 units of seed 2: 246.8 min
+    against 232.3; booster, 60 units of seed 1: 301.4 against 293.6).
     """
     return plan.going_on
 
@@ -284,12 +291,15 @@ def cost_to_finish(engine: Engine, posterior: AnyPosterior, candidates: tuple[st
 
 
 def cost_of_check_then(engine: Engine, posterior: AnyPosterior, row: RankRow, candidates: tuple[str, ...],
-                       depth: int, settings: Settings, bound: float = math.inf) -> float:
+                       depth: int, settings: Settings, bound: float = math.inf, then=None) -> float:
     """Expected cost of doing a check now and then the best of ``depth - 1`` more checks or finishing.
 
     Stops adding once the sum reaches ``bound`` (the caller only needs to
     know it is not below it). One propagation per outcome at each level.
+    ``then`` values each outcome's posterior (default :func:`cost_to_finish`;
+    :func:`complete_cost` for the complete horizon).
     """
+    then = cost_to_finish if then is None else then
     total = row.cost
     rest = tuple(c for c in candidates if c != row.check)
     findings = tuple(posterior.findings)
@@ -300,7 +310,7 @@ def cost_of_check_then(engine: Engine, posterior: AnyPosterior, row: RankRow, ca
             later = engine.propagate(findings + (Finding(row.check, outcome, posterior.epoch),), posterior.repairs)
         except ImpossibleFindings:
             continue
-        total += p * cost_to_finish(engine, later, rest, depth - 1, settings)
+        total += p * then(engine, later, rest, depth - 1, settings)
         if total >= bound:
             return total
     return total
@@ -509,11 +519,14 @@ def decide(engine: Engine, posterior: AnyPosterior, settings: Settings, candidat
     -----
     The comparison: F(e), the least expected cost of finishing without
     checks (repairs in the order of P / (repair + verification cost), and
-    escalation after k of them when it has a price, k = 0 being "escalate
-    now"), against, for each of the ``value_lookahead`` best checks by bits
-    per cost, cost(t) + sum_o P(o | e) F(e + o) (and one or two checks
-    deeper when no single check pays, ``value_depth``). The least wins;
-    ties go to finishing.
+    escalation after k >= 1 of them when it has a price), against, for each
+    of the ``value_lookahead`` best checks by bits per cost,
+    cost(t) + sum_o P(o | e) F(e + o) (and one or two checks deeper when no
+    single check pays, ``value_depth``; then a run of checks). The least
+    wins; ties go to finishing. When at most :data:`FULL_HORIZON`
+    informative checks are left and escalation has a price, every order of
+    them is weighed to the end against B(e), which also counts escalating
+    at once (:func:`complete_cost`).
 
     References
     ----------
@@ -562,9 +575,14 @@ def decide(engine: Engine, posterior: AnyPosterior, settings: Settings, candidat
 
     finish = finish_value(plan)
     check_row, check_cost, bits_only, run = None, math.inf, False, 1
-    if isolated is None:
+    worth = ranking.worth_doing(settings.min_bits) if isolated is None else ()
+    if worth and len(worth) <= FULL_HORIZON and settings.value_lookahead > 0 and price is not None:
+        # Every informative check left lies within the horizon: nothing beyond it
+        # is undervalued, so escalating at once is weighed as any other course.
+        finish = plan.best
+        check_row, check_cost = _best_check_complete(engine, posterior, worth, candidates, settings, finish)
+    elif isolated is None:
         check_row, check_cost, bits_only = _best_check(engine, posterior, ranking, candidates, settings, finish)
-        worth = ranking.worth_doing(settings.min_bits)
         if check_row is None and worth and settings.value_lookahead > 0 and settings.value_run > 1:
             # One check ahead undervalues a run of checks (each covering a
             # small share of the suspects): weigh the run too.
@@ -617,6 +635,48 @@ def decide(engine: Engine, posterior: AnyPosterior, settings: Settings, candidat
     costs = (("repair", plan.repair_cost),) + ((("escalate", plan.escalate_cost),) if price is not None else ())
     reason = Reason(kind, text, costs=costs, probabilities=((first, p_first),), suspects=group_ids or (first,))
     return Decision(Action.REPAIR, first, plan.repair_cost, tuple(alts), (reason,), status, None, outside, unit)
+
+
+#: When this many informative checks or fewer are left, every order of them is weighed to the end.
+FULL_HORIZON = 3
+
+
+def complete_cost(engine: Engine, posterior: AnyPosterior, candidates: tuple[str, ...], depth: int,
+                  settings: Settings) -> float:
+    """Least expected cost to finish looking ``depth`` checks ahead, escalating at once weighed too.
+
+    min(B(e), min over the (at most :data:`FULL_HORIZON`) informative checks t of
+    cost(t) + sum_o P(o | e) complete_cost(e + o, depth - 1)), B(e) the best of repairing in order and
+    escalating, now or after some repairs (:attr:`RepairPlan.best`).
+
+    Notes
+    -----
+    Used when every informative check left is within the horizon
+    (:data:`FULL_HORIZON`): then no check beyond it is left out of the
+    comparison, and the reason to keep escalating at once out of it (one
+    step ahead undervalues the checks after it, :func:`finish_value`)
+    does not hold.
+    """
+    best = finish_plan_of(posterior, settings).best
+    if depth <= 0:
+        return best
+    for row in rank(posterior, candidates).worth_doing(settings.min_bits)[:FULL_HORIZON]:
+        best = min(best, cost_of_check_then(engine, posterior, row, candidates, depth, settings, best,
+                                            then=complete_cost))
+    return best
+
+
+def _best_check_complete(engine: Engine, posterior: AnyPosterior, worth: tuple[RankRow, ...],
+                         candidates: tuple[str, ...], settings: Settings,
+                         finish: float) -> tuple[RankRow | None, float]:
+    """The informative check whose complete lookahead (:func:`complete_cost`) is cheapest, if below ``finish``."""
+    best, best_cost = None, finish
+    for row in worth:
+        ahead = cost_of_check_then(engine, posterior, row, candidates, len(worth), settings, best_cost,
+                                   then=complete_cost)
+        if ahead < best_cost:
+            best, best_cost = row, ahead
+    return best, (best_cost if best is not None else math.inf)
 
 
 def _sorted(alts: list[Alternative]) -> list[Alternative]:

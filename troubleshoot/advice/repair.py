@@ -290,6 +290,8 @@ def repair_order(model: Model, group) -> tuple[RepairStep, ...]:
         if repair is None:
             if s.unlisted:
                 note = "the cause lies outside the model: inspect beyond the listed components"
+            elif s.condition:
+                note = "a condition, not a fault: nothing to repair"
             else:
                 note = "the model lists no repair for this event"
             other.append(RepairStep(s.id, s.label, s.p, None, None, None, note))

@@ -236,7 +236,19 @@ def _as_json(model, args, summaries, exact, best) -> dict:
         "strategies": strategies,
         "optimal_expected_cost": best,
         "after_repair": args.protocol,
+        "faults_known_mean_cost": _finite_or_none(_faults_known_mean(summaries)),
     }
+
+
+def _faults_known_mean(summaries) -> float:
+    """Mean over the units of their cost with the faults known (the same units for every strategy)."""
+    first = next(iter(summaries.values()))
+    known = [k for k in first.faults_known if math.isfinite(k)]
+    return sum(known) / len(known) if known else math.nan
+
+
+def _finite_or_none(x: float) -> float | None:
+    return x if math.isfinite(x) else None
 
 
 def _print_table(model, args, summaries, exact, best, optimal) -> None:
@@ -277,6 +289,11 @@ def _print_table(model, args, summaries, exact, best, optimal) -> None:
             line += f" {ratio:>10.3f}x" if ratio is not None else ""
         print(line)
     print()
+    known = _faults_known_mean(summaries)
+    if math.isfinite(known):
+        print(f"faults known: {known:.1f} {unit} per unit, a lower bound for every strategy on these units (each "
+              "unit's cheapest set of verified repairs that puts it right, or its escalation when that is cheaper "
+              "or nothing listed does).")
     if optimal is not None:
         print(f"optimal: exact expected cost {best:.2f} {unit} (dynamic programming over {optimal.states} states "
               "of the protocol: checks and repairs interleaved, escalation an action); 'vs optimal' is the exact "

@@ -127,7 +127,8 @@ def suggestion_json(session: Session, model_spec: str) -> dict:
         "status": state.status,
         "log_p_findings": state.log_p_findings,
         "entropy_bits": state.entropy_bits,
-        "suspects": [{"id": s.id, "label": s.label, "p": s.p, "repaired": s.repaired} for s in state.suspects],
+        "suspects": [{"id": s.id, "label": s.label, "p": s.p, "repaired": s.repaired, "condition": s.condition}
+                     for s in state.suspects],
         "ranking": [
             {"id": r.check, "label": r.label, "cost": r.cost, "bits": r.bits, "score": _finite(r.score),
              "score_infinite": math.isinf(r.score), "outcomes": r.outcome_probabilities(),

@@ -55,7 +55,7 @@ from __future__ import annotations
 import math
 import os
 from collections import OrderedDict
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -243,6 +243,9 @@ class CaseResult:
         verified by a noisy check) or ``engine-refused`` (the engine could
         not compile the network after a repair within its memory budget;
         charged as an escalation).
+    faults_known : float
+        The unit's cost with its faults known (:func:`faults_known_cost`),
+        the same for every strategy; NaN when not worked out.
     """
 
     cost: float
@@ -251,6 +254,44 @@ class CaseResult:
     first_repair_right: bool
     wrong_repairs: int
     outcome: str
+    faults_known: float = math.nan
+
+
+#: Units with more failed repairable roots than this get no faults-known figure (2^n subsets).
+FAULTS_KNOWN_MAX_ROOTS = 12
+
+
+def faults_known_cost(model: Model, equipment: Equipment) -> float:
+    """What the unit would cost with its faults known: a lower bound for any strategy on it.
+
+    The cheapest set of the failed roots whose repairs (each with its
+    verification, as the protocol asks) put the unit right, or the
+    escalation when that is cheaper or no such set exists (a cause outside
+    the model, a failed root with no repair), in the model's cost unit.
+    Any strategy ends a unit by escalating or by repairs that include such a
+    set, each verified, so it costs at least this much; only a unit left
+    failed by a noisy verifying check can cost less. NaN when more than
+    :data:`FAULTS_KNOWN_MAX_ROOTS` repairable roots failed.
+    """
+    from itertools import combinations
+
+    from troubleshoot.advice.repair import verification_cost
+
+    charge = escalation_charge(model)
+    if any(is_unlisted(model, r) for r in equipment.failed):
+        return charge
+    repairable = sorted(r for r in equipment.failed
+                        if r in model.event_by_id and model.event_by_id[r].repair is not None)
+    if len(repairable) > FAULTS_KNOWN_MAX_ROOTS:
+        return math.nan
+    full = {r: repair_cost(model, r) + verification_cost(model, r) for r in repairable}
+    best = charge
+    for k in range(1, len(repairable) + 1):
+        for subset in combinations(repairable, k):
+            cost = sum(full[r] for r in subset)
+            if cost < best and not equipment.top_fails(subset):
+                best = cost
+    return best
 
 
 class ViewMemo:
@@ -453,6 +494,8 @@ class StrategySummary:
         Count of cases by outcome (:data:`OUTCOMES`).
     costs : tuple of float
         Every case's cost, in case order (for the plot).
+    faults_known : tuple of float
+        Every case's cost with its faults known (:func:`faults_known_cost`), in case order.
     """
 
     name: str
@@ -465,6 +508,7 @@ class StrategySummary:
     wrong_repairs: float
     outcomes: dict
     costs: tuple[float, ...]
+    faults_known: tuple[float, ...] = ()
 
 
 def summarise(name: str, results: list[CaseResult]) -> StrategySummary:
@@ -483,6 +527,7 @@ def summarise(name: str, results: list[CaseResult]) -> StrategySummary:
         accuracy=float(np.mean([r.first_repair_right for r in results])) if n else math.nan,
         wrong_repairs=float(np.mean([r.wrong_repairs for r in results])) if n else math.nan,
         outcomes=outcomes, costs=tuple(float(c) for c in costs),
+        faults_known=tuple(float(r.faults_known) for r in results),
     )
 
 
@@ -537,6 +582,7 @@ def _run_one_case(case: int, job: SimulationJob) -> tuple[list[CaseResult], byte
     engine = state["engine"]
     # The unit obeys the truth (its faults and its checks' answers); the sessions reason with the model.
     equipment = draw_case(state["truth"], job.seed, case, state["draws"])
+    known = faults_known_cost(job.model, equipment)  # priced as the sessions price it
     out, log_bytes = [], None
     for index, strategy in enumerate(state["strategies"]):
         # Each strategy gets its own copy of the case's strategy stream, so
@@ -555,9 +601,9 @@ def _run_one_case(case: int, job: SimulationJob) -> tuple[list[CaseResult], byte
                 writer.write_header(session)
                 return writer
         try:
-            out.append(run_case(engine, strategy, equipment, rng, job.settings,
-                                checks_after_repair=job.checks_after_repair, log=factory,
-                                views=state["views"]))
+            out.append(replace(run_case(engine, strategy, equipment, rng, job.settings,
+                                        checks_after_repair=job.checks_after_repair, log=factory,
+                                        views=state["views"]), faults_known=known))
         finally:
             if writer is not None:
                 writer.close()

@@ -446,7 +446,9 @@ class SuspectsPanel(VerticalScroll):
                 continue
             text.append(f"{percent(s.p):>7} ")
             text.append(bar(s.p, 5), style="bold")
-            text.append(f" {s.label}\n")
+            # An inhibit gate's condition (a demand peak, a season) is shown, as the
+            # findings speak of it, but it is no fault to repair: say so before its name.
+            text.append(f" {'condition: ' if s.condition else ''}{s.label}\n")
         self.query_one("#suspects-text", Static).update(text)
         if state is not None and state.outside_model_by_gate:
             self.border_subtitle = f"outside the model: {outside_text(state.outside_model_p, figures)}"
