@@ -102,3 +102,49 @@ def test_the_suspects_panel_says_condition_before_its_name():
     import asyncio
 
     asyncio.run(scenario())
+
+
+def _state_with_the_condition_first():
+    model = tank_model()
+    session = Session(model, settings_for(model))
+    session.record_finding("element_current", 1)
+    session.record_finding("thermostat_click", 0)
+    session.record_finding("night_log", 1)
+    state = session.state
+    assert state.suspects[0].condition
+    return state
+
+
+def test_the_line_mode_marks_the_condition():
+    from troubleshoot.session.render import render_brief
+
+    line = next(x for x in render_brief(_state_with_the_condition_first()).splitlines() if x.startswith("suspects:"))
+    assert line.startswith("suspects: cold_night 1.000 (condition), element_weak 0.999,")
+
+
+def test_the_status_bar_top_suspect_is_a_fault_not_the_condition():
+    from textual.app import App
+
+    from troubleshoot.ui.widgets import StatusBar, percent
+
+    state = _state_with_the_condition_first()
+    element = next(s for s in state.suspects if s.id == "element_weak")
+    night = next(s for s in state.suspects if s.id == "cold_night")
+    assert percent(element.p) != percent(night.p)
+
+    class Bar(App):
+        def compose(self):
+            yield StatusBar(id="bar")
+
+    app = Bar()
+
+    async def scenario():
+        async with app.run_test(size=(80, 24)) as pilot:
+            app.query_one(StatusBar).show("tank water cold", state, busy=False)
+            await pilot.pause()
+            text = str(app.query_one(StatusBar).render())
+            assert f"top suspect {percent(element.p)}" in text
+
+    import asyncio
+
+    asyncio.run(scenario())

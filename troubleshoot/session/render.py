@@ -195,7 +195,8 @@ def render_brief(state) -> str:
         lines.append(f"isolated: {state.isolated.id} ({state.isolated.label}), P = {state.isolated.p:.3f}")
     if state.status in (ISOLATED, AMBIGUITY) and state.repair_order:
         lines.append("repair order: " + ", ".join(s.id for s in state.repair_order))
-    lines.append("suspects: " + ", ".join(f"{s.id} {s.p:.3f}" for s in state.suspects[:5]))
+    lines.append("suspects: " + ", ".join(f"{s.id} {s.p:.3f}" + (" (condition)" if s.condition else "")
+                                          for s in state.suspects[:5]))
     lines += escalation_lines(state)
     for c in state.cautions:
         lines.append(f"CAUTION: {c}")
