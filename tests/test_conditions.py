@@ -148,3 +148,17 @@ def test_the_status_bar_top_suspect_is_a_fault_not_the_condition():
     import asyncio
 
     asyncio.run(scenario())
+
+
+def test_the_summary_never_calls_the_condition_the_most_probable_fault():
+    from troubleshoot.session.summary import summary_markdown
+
+    model = tank_model()
+    session = Session(model, settings_for(model))
+    session.record_finding("night_log", 1)
+    state = session.state
+    assert state.suspects[0].id == "cold_night" and state.isolated is None and not state.ambiguity_group
+    text = summary_markdown(model, state)
+    line = next(x for x in text.splitlines() if "Most probable fault when it stopped" in x)
+    fault = next(s for s in state.suspects if not s.condition)
+    assert fault.label in line and "cold night" not in line
