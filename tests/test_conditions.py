@@ -48,13 +48,19 @@ def test_a_condition_with_no_repair_is_known_as_such():
     assert is_condition(model, "cold_night") and not is_condition(model, "element_weak")
 
 
-def test_a_near_certain_condition_is_not_isolated_grouped_or_repaired():
+def _state_with_the_condition_first():
+    """The tank with the element measured low, the thermostat clicking and the night log cold."""
     model = tank_model()
     session = Session(model, settings_for(model))
     session.record_finding("element_current", 1)
     session.record_finding("thermostat_click", 0)
     session.record_finding("night_log", 1)
-    state = session.state
+    return session.state
+
+
+def test_a_near_certain_condition_is_not_isolated_grouped_or_repaired():
+    model = tank_model()
+    state = _state_with_the_condition_first()
     night = next(s for s in state.suspects if s.id == "cold_night")
     element = next(s for s in state.suspects if s.id == "element_weak")
     # The findings make both the fault and its condition near certain (the inhibit gate needs
@@ -78,41 +84,38 @@ def test_suggest_json_marks_the_condition(tmp_path, capsys):
     assert flags == {"element_weak": False, "cold_night": True, "thermostat_stuck": False}
 
 
-def test_the_suspects_panel_says_condition_before_its_name():
-    from troubleshoot.advice.diagnosis import Suspect
-    from troubleshoot.ui.widgets import SuspectsPanel
+def _rendered(widget, show, selector: str) -> str:
+    """Mount ``widget`` alone in an 80 x 24 app, call ``show(widget)``, return what ``selector`` renders."""
+    import asyncio
+
     from textual.app import App
 
-    class Panel(App):
+    class One(App):
         def compose(self):
-            yield SuspectsPanel(id="suspects")
+            yield widget
 
-    app = Panel()
+    app = One()
+    out: list[str] = []
 
     async def scenario():
         async with app.run_test(size=(80, 24)) as pilot:
-            panel = app.query_one(SuspectsPanel)
-            panel.show([Suspect("cold_night", "cold night (below -10 C)", 0.97, condition=True),
-                        Suspect("element_weak", "heater element weak", 0.96)])
+            show(widget)
             await pilot.pause()
-            text = str(app.query_one("#suspects-text").render())
-            assert "condition: cold night (below -10 C)" in text
-            assert "condition: heater element weak" not in text and "heater element weak" in text
-
-    import asyncio
+            out.append(str(app.query_one(selector).render()))
 
     asyncio.run(scenario())
+    return out[0]
 
 
-def _state_with_the_condition_first():
-    model = tank_model()
-    session = Session(model, settings_for(model))
-    session.record_finding("element_current", 1)
-    session.record_finding("thermostat_click", 0)
-    session.record_finding("night_log", 1)
-    state = session.state
-    assert state.suspects[0].condition
-    return state
+def test_the_suspects_panel_says_condition_before_its_name():
+    from troubleshoot.advice.diagnosis import Suspect
+    from troubleshoot.ui.widgets import SuspectsPanel
+
+    suspects = [Suspect("cold_night", "cold night (below -10 C)", 0.97, condition=True),
+                Suspect("element_weak", "heater element weak", 0.96)]
+    text = _rendered(SuspectsPanel(id="suspects"), lambda panel: panel.show(suspects), "#suspects-text")
+    assert "condition: cold night (below -10 C)" in text
+    assert "condition: heater element weak" not in text and "heater element weak" in text
 
 
 def test_the_line_mode_marks_the_condition():
@@ -123,8 +126,6 @@ def test_the_line_mode_marks_the_condition():
 
 
 def test_the_status_bar_top_suspect_is_a_fault_not_the_condition():
-    from textual.app import App
-
     from troubleshoot.ui.widgets import StatusBar, percent
 
     state = _state_with_the_condition_first()
@@ -132,22 +133,8 @@ def test_the_status_bar_top_suspect_is_a_fault_not_the_condition():
     night = next(s for s in state.suspects if s.id == "cold_night")
     assert percent(element.p) != percent(night.p)
 
-    class Bar(App):
-        def compose(self):
-            yield StatusBar(id="bar")
-
-    app = Bar()
-
-    async def scenario():
-        async with app.run_test(size=(80, 24)) as pilot:
-            app.query_one(StatusBar).show("tank water cold", state, busy=False)
-            await pilot.pause()
-            text = str(app.query_one(StatusBar).render())
-            assert f"top suspect {percent(element.p)}" in text
-
-    import asyncio
-
-    asyncio.run(scenario())
+    text = _rendered(StatusBar(id="bar"), lambda bar: bar.show("tank water cold", state, busy=False), "#bar")
+    assert f"top suspect {percent(element.p)}" in text
 
 
 def test_the_summary_never_calls_the_condition_the_most_probable_fault():
