@@ -580,7 +580,8 @@ def decide(engine: Engine, posterior: AnyPosterior, settings: Settings, candidat
         # Every informative check left lies within the horizon: nothing beyond it
         # is undervalued, so escalating at once is weighed as any other course.
         finish = plan.best
-        check_row, check_cost = _best_check_complete(engine, posterior, worth, candidates, settings, finish)
+        check_row, check_cost = _cheapest_check(engine, posterior, worth, candidates, len(worth), settings, finish,
+                                                then=complete_cost)
     elif isolated is None:
         check_row, check_cost, bits_only = _best_check(engine, posterior, ranking, candidates, settings, finish)
         if check_row is None and worth and settings.value_lookahead > 0 and settings.value_run > 1:
@@ -666,19 +667,6 @@ def complete_cost(engine: Engine, posterior: AnyPosterior, candidates: tuple[str
     return best
 
 
-def _best_check_complete(engine: Engine, posterior: AnyPosterior, worth: tuple[RankRow, ...],
-                         candidates: tuple[str, ...], settings: Settings,
-                         finish: float) -> tuple[RankRow | None, float]:
-    """The informative check whose complete lookahead (:func:`complete_cost`) is cheapest, if below ``finish``."""
-    best, best_cost = None, finish
-    for row in worth:
-        ahead = cost_of_check_then(engine, posterior, row, candidates, len(worth), settings, best_cost,
-                                   then=complete_cost)
-        if ahead < best_cost:
-            best, best_cost = row, ahead
-    return best, (best_cost if best is not None else math.inf)
-
-
 def _sorted(alts: list[Alternative]) -> list[Alternative]:
     order: dict[str, int] = {Action.CHECK: 0, Action.REPAIR: 1, Action.ESCALATE: 2}
     return sorted(alts, key=lambda a: (math.inf if a.expected_cost is None else a.expected_cost,
@@ -707,14 +695,22 @@ def _best_check(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candi
     # (it, then finish), if that beats finishing at once; when no check pays
     # so, a second check ahead, so a pair worth doing is not missed.
     for depth in range(1, settings.value_depth + 1):
-        best, best_cost = None, finish
-        for row in shortlist:
-            ahead = cost_of_check_then(engine, posterior, row, candidates, depth, settings, bound=best_cost)
-            if ahead < best_cost:
-                best, best_cost = row, ahead
+        best, best_cost = _cheapest_check(engine, posterior, shortlist, candidates, depth, settings, finish)
         if best is not None:
             return best, best_cost, False
     return None, math.inf, False
+
+
+def _cheapest_check(engine: Engine, posterior: AnyPosterior, rows, candidates: tuple[str, ...], depth: int,
+                    settings: Settings, finish: float, then=None) -> tuple[RankRow | None, float]:
+    """Of ``rows``, the check whose cost of doing it, then ``then`` (:func:`cost_of_check_then`), is least,
+    with that cost, if it is below ``finish``; else (None, inf)."""
+    best, best_cost = None, finish
+    for row in rows:
+        ahead = cost_of_check_then(engine, posterior, row, candidates, depth, settings, best_cost, then=then)
+        if ahead < best_cost:
+            best, best_cost = row, ahead
+    return best, (best_cost if best is not None else math.inf)
 
 
 def _check_reason(model: Model, row: RankRow, ahead: float, plan: RepairPlan, finish: float,

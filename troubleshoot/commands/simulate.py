@@ -228,6 +228,7 @@ def _as_json(model, args, summaries, exact, best) -> dict:
             "exact_expected_cost": exact.get(name),
             "ratio_to_optimal": _ratio(s.mean_cost, best),
         }
+    known = _faults_known_mean(summaries)
     return {
         "cases": args.cases,
         "seed": args.seed,
@@ -236,7 +237,7 @@ def _as_json(model, args, summaries, exact, best) -> dict:
         "strategies": strategies,
         "optimal_expected_cost": best,
         "after_repair": args.protocol,
-        "faults_known_mean_cost": _finite_or_none(_faults_known_mean(summaries)),
+        "faults_known_mean_cost": known if math.isfinite(known) else None,
     }
 
 
@@ -245,10 +246,6 @@ def _faults_known_mean(summaries) -> float:
     first = next(iter(summaries.values()))
     known = [k for k in first.faults_known if math.isfinite(k)]
     return sum(known) / len(known) if known else math.nan
-
-
-def _finite_or_none(x: float) -> float | None:
-    return x if math.isfinite(x) else None
 
 
 def _print_table(model, args, summaries, exact, best, optimal) -> None:

@@ -56,12 +56,13 @@ import math
 import os
 from collections import OrderedDict
 from dataclasses import dataclass, replace
+from itertools import combinations
 from typing import Any
 
 import numpy as np
 
 from troubleshoot.advice.diagnosis import is_unlisted
-from troubleshoot.advice.repair import CLEARED_P, next_repair, repair_cost  # noqa: F401 (re-exported)
+from troubleshoot.advice.repair import CLEARED_P, next_repair, repair_cost, verification_cost  # noqa: F401 (re-exported)
 from troubleshoot.errors import NetworkTooLarge
 from troubleshoot.engine.inference import Engine, Finding
 from troubleshoot.engine.observation import outcome_probabilities, sample_outcome
@@ -273,10 +274,6 @@ def faults_known_cost(model: Model, equipment: Equipment) -> float:
     failed by a noisy verifying check can cost less. NaN when more than
     :data:`FAULTS_KNOWN_MAX_ROOTS` repairable roots failed.
     """
-    from itertools import combinations
-
-    from troubleshoot.advice.repair import verification_cost
-
     charge = escalation_charge(model)
     if any(is_unlisted(model, r) for r in equipment.failed):
         return charge
