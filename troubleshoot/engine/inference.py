@@ -151,7 +151,7 @@ class Engine:
             self._trees[key] = self._trees.pop(key)  # most recently used last
             return self._trees[key]
         for r in repairs:
-            if r not in self.model.hypotheses:
+            if r not in self.model.hypothesis_ids:
                 raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
         with gc_paused():
             if repairs not in self._networks:
@@ -196,7 +196,7 @@ class Engine:
             raise SessionError(f"finding on {finding.target!r} is dated after {finding.epoch} repairs, "
                                f"but only {epochs} were made")
         if not (finding.target in model.check_by_id or finding.target in model.gate_by_id
-                or finding.target in model.event_by_id or finding.target in model.hypotheses):
+                or finding.target in model.event_by_id or finding.target in model.hypothesis_ids):
             raise SessionError(f"unknown check, symptom or event {finding.target!r} in model {model.name!r}")
 
     def _evidence(self, net: Network, tree: JoinTree, finding: Finding) -> Evidence | _ConstantLikelihood:
@@ -209,7 +209,7 @@ class Engine:
                 return _ConstantLikelihood(float(lik))
             return tree.evidence_on_variables(fam.nodes, lik)
         if finding.target in model.gate_by_id or finding.target in model.event_by_id \
-                or finding.target in model.hypotheses:
+                or finding.target in model.hypothesis_ids:
             node = net.node_for(finding.target, finding.epoch)
             if isinstance(node, bool):
                 return _ConstantLikelihood(1.0 if int(node) == finding.outcome else 0.0)
@@ -230,15 +230,25 @@ class Engine:
         """
         if not self._coherent:
             return list(findings)
-        exact = [f for f in findings if f.target not in self.model.check_by_id]
+        checks = self.model.check_by_id
+        # Per target, the latest epoch seen failed and the earliest seen ok:
+        # one pass, so a thousand exact findings (every unlisted cause ruled
+        # out at once, outside_model) cost a thousand steps, not a million.
+        latest_failed: dict[str, int] = {}
+        earliest_ok: dict[str, int] = {}
+        for g in findings:
+            if g.target in checks:
+                continue
+            if g.outcome == 1:
+                latest_failed[g.target] = max(g.epoch, latest_failed.get(g.target, g.epoch))
+            elif g.outcome == 0:
+                earliest_ok[g.target] = min(g.epoch, earliest_ok.get(g.target, g.epoch))
         kept = []
         for f in findings:
-            if f.target not in self.model.check_by_id:
-                if f.outcome == 1 and any(g.target == f.target and g.outcome == 1 and g.epoch > f.epoch
-                                          for g in exact):
+            if f.target not in checks:
+                if f.outcome == 1 and latest_failed[f.target] > f.epoch:
                     continue
-                if f.outcome == 0 and any(g.target == f.target and g.outcome == 0 and g.epoch < f.epoch
-                                          for g in exact):
+                if f.outcome == 0 and earliest_ok[f.target] < f.epoch:
                     continue
             kept.append(f)
         return kept
@@ -271,7 +281,7 @@ class Engine:
         cm = self._diagram
         assert cm is not None
         for r in repairs:
-            if r not in self.model.hypotheses:
+            if r not in self.model.hypothesis_ids:
                 raise SessionError(f"cannot repair {r!r}: it is not a basic event of model {self.model.name!r}")
         for f in findings:
             self._validate(f, len(repairs))

@@ -953,7 +953,7 @@ class Session:
         check = self.model.check_by_id.get(check_id)
         if check is None:
             hint = ""
-            if check_id in self.model.hypotheses or check_id in self.model.gate_by_id:
+            if check_id in self.model.hypothesis_ids or check_id in self.model.gate_by_id:
                 hint = f" ({check_id!r} is an event or gate: checks observe them)"
             raise SessionError(f"unknown check {check_id!r} in model {self.model.name!r}{hint}; "
                                "give the id of one of its checks or symptoms")
