@@ -85,3 +85,35 @@ def test_a_1_0_file_means_what_it_meant():
     session = Session(old)
     assert session.state.decision.action == Action.CHECK
     assert session.state.outside_model_p == pytest.approx(outside_model(session.engine, session.posterior).p)
+
+
+def test_a_check_advised_above_the_escalation_price_says_why():
+    # The policy's documented rule (advice/policy.py, "Escalation"): while informative checks
+    # lie beyond the lookahead, a check is weighed against repairing first, not against
+    # escalating at once. Where its figure is above the price, the reason and the escalation
+    # card must say so, not leave the technician two figures at odds. Booster demo (illustrative):
+    # pump alarm on, then every panel, supply and reading check normal.
+    from troubleshoot.model.demos import demo_path
+    from troubleshoot.ui.screens import escalation_card_text
+
+    model = load_model(demo_path("booster"))
+    session = Session(model)
+    for check_id, outcome in [("low_suction_alarm", 0), ("pump_fault_alarm", 1), ("short_cycling", 0),
+                              ("p2_panel_status", 0), ("control_power", 0), ("p1_panel_status", 0),
+                              ("main_voltage", 0), ("pt_vs_gauge", 0), ("controller_screen", 0),
+                              ("p3_panel_status", 0)]:
+        session.record_finding(check_id, model.check_by_id[check_id].outcomes[outcome])
+    decision = session.state.decision
+    assert decision.action == Action.CHECK
+    assert decision.expected_cost > model.escalation.cost
+    reason = decision.reasons[0]
+    assert "escalating (600 min) is below that figure, but it counts no check after" in reason.text
+    assert ("escalate", 600.0) in reason.costs
+    card = escalation_card_text(session.state, model)
+    assert "counts this check and then repairs, no check after it" in card
+    # Below the price the reason says nothing of it.
+    fresh = Session(model)
+    first = fresh.state.decision
+    assert first.expected_cost is not None and first.expected_cost < model.escalation.cost
+    assert "below that figure" not in first.reasons[0].text
+    assert "no check after it" not in escalation_card_text(fresh.state, model)

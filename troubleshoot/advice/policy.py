@@ -730,13 +730,21 @@ def _check_reason(model: Model, row: RankRow, ahead: float, plan: RepairPlan, fi
                    else f"repairing {model.label_of(first)}")
     else:
         against = "escalating" if price is not None else "repairing"
+    # The figure counts this check (or run) and then repairs, no check after it: while a
+    # check beats repairing the tool goes on checking even where that figure is above the
+    # escalation price (finish_value); say so rather than leave the two figures at odds.
+    above = (f"; escalating ({_money(price, unit)}) is below that figure, but it counts no check after "
+             + ("the run" if run > 1 else "this one") + ", so the tool checks on while a check beats repairing"
+             if price is not None and ahead > price else "")
+    escalate_cost = (("escalate", price),) if above and price is not None else ()
     if run > 1:
         # Chosen for the run it starts (sequence_value): say so, with the run's figures.
         text = (f"{_money(row.cost, unit)} to {row.label.rstrip('.').lower()}, the first of up to {run} checks "
-                f"before {against}: expected {_money(ahead, unit)} to finish instead of {_money(finish, unit)}")
-        costs = (("check", row.cost), ("checks then finish", ahead), ("finish without checking", finish))
+                f"before {against}: expected {_money(ahead, unit)} to finish instead of {_money(finish, unit)}"
+                + above)
+        costs = (("check", row.cost), ("checks then finish", ahead), ("finish without checking", finish)) + escalate_cost
         return Reason("run-pays", text, costs=costs, probabilities=odds, suspects=group)
     text = (f"{_money(row.cost, unit)} to {row.label.rstrip('.').lower()} before {against}: expected "
-            f"{_money(ahead, unit)} to finish instead of {_money(finish, unit)}")
-    costs = (("check", row.cost), ("check then finish", ahead), ("finish without checking", finish))
+            f"{_money(ahead, unit)} to finish instead of {_money(finish, unit)}" + above)
+    costs = (("check", row.cost), ("check then finish", ahead), ("finish without checking", finish)) + escalate_cost
     return Reason("check-pays", text, costs=costs, probabilities=odds, suspects=group)
