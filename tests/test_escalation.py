@@ -110,10 +110,10 @@ def test_a_check_advised_above_the_escalation_price_says_why():
     assert "escalating (600 min) is below that figure, but it counts no check after" in reason.text
     assert ("escalate", 600.0) in reason.costs
     card = escalation_card_text(session.state, model)
-    assert "counts this check and then repairs, no check after it" in card
+    assert "counts the checks it weighs and then repairs, none after them" in card
     # Below the price the reason says nothing of it.
     fresh = Session(model)
     first = fresh.state.decision
     assert first.expected_cost is not None and first.expected_cost < model.escalation.cost
     assert "below that figure" not in first.reasons[0].text
-    assert "no check after it" not in escalation_card_text(fresh.state, model)
+    assert "none after them" not in escalation_card_text(fresh.state, model)

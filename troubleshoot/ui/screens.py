@@ -626,7 +626,7 @@ def escalation_card_text(state, model, figures: bool = False) -> str:
         if (d is not None and d.action == "check" and d.expected_cost is not None
                 and model.escalation is not None and d.expected_cost > model.escalation.cost):
             # Otherwise the two prices on this card read as if the tool chose the dearer course.
-            lines.append("That figure counts this check and then repairs, no check after it; "
+            lines.append("That figure counts the checks it weighs and then repairs, none after them; "
                          "while a check beats repairing the tool goes on checking.")
     lines.append("Escalating ends this diagnosis as escalated (the log and the summary say so); "
                  "u on the main screen takes it back.")
