@@ -418,11 +418,16 @@ class RepairPlan:
     outside_p : float
         P(the fault is not put right by any repair of the sequence), one
         fault assumed among the live suspects.
+    reached : tuple of float
+        Entry k: P(the unit still fails after the first k repairs), the
+        chance that repair k + 1 is made (entry 0 is 1; the last is
+        ``outside_p``).
     """
 
     sequence: tuple[str, ...]
     cost_of_stopping_after: tuple[float, ...]
     outside_p: float
+    reached: tuple[float, ...] = ()
 
     @property
     def repair_cost(self) -> float:
@@ -506,11 +511,24 @@ def _plan(model: Model, idx: np.ndarray, p: np.ndarray, group_min_p: float,
     ids = hypotheses_of(model).ids
     sequence = tuple(ids[i] for i in seq_idx.tolist())
     if total <= 0.0:
-        return RepairPlan(sequence, (0.0,) * (len(sequence) + 1), 0.0)
+        return RepairPlan(sequence, (0.0,) * (len(sequence) + 1), 0.0, (0.0,) * (len(sequence) + 1))
     q = seq_p / total
-    full = _repairs_of(model).full[seq_idx]
     reached = 1.0 - np.concatenate(([0.0], np.cumsum(q)))  # P(repair j+1 is reached); last: after all
-    reached = np.clip(reached, 0.0, 1.0)
+    return _costs(sequence, _repairs_of(model).full[seq_idx], reached, escalation_cost)
+
+
+def plan_from_reached(model: Model, sequence: tuple[str, ...], reached, escalation_cost: float | None) -> RepairPlan:
+    """The plan's costs from the chance that the unit still fails after each prefix of ``sequence``.
+
+    ``reached[k]``: P(still failing after the first k repairs), k = 0 .. len(sequence).
+    """
+    index = hypotheses_of(model).index
+    full = _repairs_of(model).full[np.fromiter((index[r] for r in sequence), dtype=np.int64, count=len(sequence))]
+    return _costs(sequence, full, reached, escalation_cost)
+
+
+def _costs(sequence: tuple[str, ...], full: np.ndarray, reached, escalation_cost: float | None) -> RepairPlan:
+    reached = np.clip(np.asarray(reached, dtype=float), 0.0, 1.0)
     reached[reached <= CLEARED_P] = 0.0
     spent = np.concatenate(([0.0], np.cumsum(reached[:-1] * full)))
     outside = float(reached[-1])
@@ -519,4 +537,4 @@ def _plan(model: Model, idx: np.ndarray, p: np.ndarray, group_min_p: float,
         stops[-1] = spent[-1]
     else:
         stops = spent + escalation_cost * reached
-    return RepairPlan(sequence, tuple(stops.tolist()), outside)
+    return RepairPlan(sequence, tuple(stops.tolist()), outside, tuple(reached.tolist()))
