@@ -690,8 +690,9 @@ def exact_finish_plan(engine: Engine, posterior: AnyPosterior, settings: Setting
     scaled to meet the last exact one. Used at the leaves of the complete
     horizon (:func:`complete_cost`), where the study against the exact
     optimum measured it (`optimum-study`; README); the one-step lookahead
-    keeps the single-fault plan (a propagation per repair per leaf on the
-    demos, and measured no better there).
+    keeps the single-fault plan (measured far worse with it on booster:
+    466.6 min against 299.7 on 200 units of seed 1, and a propagation per
+    repair per leaf).
     """
     plan = finish_plan_of(posterior, settings)
     sequence = plan.sequence
