@@ -41,6 +41,11 @@ class Suspect:
     #: A condition of an inhibit gate with no repair (:func:`is_condition`): not a fault.
     condition: bool = False
 
+    @property
+    def in_question(self) -> bool:
+        """A fault still in question: not repaired, and not an inhibit gate's condition."""
+        return not self.repaired and not self.condition
+
 
 def is_unlisted(model: Model, root_id: str) -> bool:
     """True for the root standing for a gate's causes outside the model."""
@@ -282,11 +287,11 @@ def most_probable_explanation(engine: Engine, posterior: AnyPosterior) -> Explan
 def isolated_suspect(ranked: tuple[Suspect, ...], threshold: float) -> Suspect | None:
     """The suspect (not yet repaired, not a condition) whose posterior reaches the isolation threshold, if any."""
     for s in ranked:
-        if not s.repaired and not s.condition and s.p >= threshold:
+        if s.in_question and s.p >= threshold:
             return s
     return None
 
 
 def ambiguity_group(ranked: tuple[Suspect, ...], min_p: float) -> tuple[Suspect, ...]:
     """Suspects not yet repaired (conditions left out) with P(failed | findings) >= min_p, most probable first."""
-    return tuple(s for s in ranked if not s.repaired and not s.condition and s.p >= min_p)
+    return tuple(s for s in ranked if s.in_question and s.p >= min_p)

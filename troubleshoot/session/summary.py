@@ -269,7 +269,7 @@ def summary_markdown(model, state, log_path: str | Path | None = None,
         if state.isolated is not None:
             lines.append(f"- **Fault isolated, not repaired:** {state.isolated.label} (P {_percent(state.isolated.p)})")
         elif not state.ambiguity_group:
-            unrepaired = [s for s in state.suspects if not s.repaired and not s.condition]
+            unrepaired = [s for s in state.suspects if s.in_question]
             if unrepaired:
                 top = unrepaired[0]
                 lines.append(f"- **Most probable fault when it stopped:** {top.label} (P {_percent(top.p)})")

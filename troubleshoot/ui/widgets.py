@@ -292,7 +292,7 @@ class StatusBar(Static):
             text.append("⏳ working… ", style="bold reverse")
         if state is not None:
             text.append(status_word(state), style="bold")
-            top = next((s for s in state.suspects if not s.repaired and not s.condition), None)
+            top = next((s for s in state.suspects if s.in_question), None)
             if figures:
                 text.append(f" │ uncertainty {bits_text(state.entropy_bits)}")
             elif top is not None:
