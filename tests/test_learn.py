@@ -388,6 +388,24 @@ def test_fold_follows_the_session(tmp_path):
     assert data.confirmed == "refrigerant_leak"
 
 
+def test_fold_follows_the_session_when_the_unit_in_doubt_is_tried(tmp_path):
+    # The leak repaired, its own check still abnormal: the unit may work, and the next
+    # verification is the unit's (advised or not); the learner reads what the Session holds.
+    model_path = str(load_any_model("rooftop")[0].source)
+    actions = [
+        {"action": "finding", "check": "leak_search", "outcome": "leak found"},
+        {"action": "repair", "event": "refrigerant_leak"},
+        {"action": "finding", "check": "refrigerant_pressures", "outcome": "pressures abnormal"},
+        {"action": "verify", "outcome": "cools"},
+    ]
+    session = _log_session(model_path, tmp_path / "s.jsonl", actions)
+    assert session.status == "confirmed"
+    data = fold_actions(session.model, [line.action for line in read_log(tmp_path / "s.jsonl").actions])
+    assert data.findings == session.findings
+    assert data.findings[-1] == Finding(session.model.top, 0, 1)
+    assert data.confirmed == "refrigerant_leak"
+
+
 def test_simulated_logs_are_real_session_logs(tmp_path, capsys):
     # simulate --logs writes logs a real session would: they replay to 1e-9, and what the learner reads
     # from each is what the replayed session holds.

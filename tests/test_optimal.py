@@ -2,7 +2,8 @@
 
 Reference: the protocol as troubleshoot.study.optimal documents it (checks and
 repairs interleaved, checks again after a failed repair, a repair verified by
-its own check and then the unit, escalation at its price), searched here two
+its own check and then the unit, the unit tried at any time after its
+repair's own check read abnormal, escalation at its price), searched here two
 ways (Bellman 1957):
 
 - :func:`reference_optimum`, a plain recursion over every policy tree: no
@@ -125,6 +126,13 @@ def reference_optimum(model: Model) -> float:
     def search(w, repaired, done, seen):
         mass = w.sum()
         options = [mass * ref.escalation]
+        if repaired and not any(t == "top" and e == len(repaired) for t, _, e in seen):
+            # The repair's own check read abnormal: the unit may work all the same; try it.
+            still = w * ref.value(model.top, repaired).astype(float)
+            total = mass * top_cost
+            if still.sum() > 0:
+                total += best(still, repaired, done, seen | {("top", 1, len(repaired))})
+            options.append(total)
         for t in checks:
             if t in done:
                 continue
@@ -215,22 +223,26 @@ def information_state_optimum(model: Model) -> tuple[float, int]:
         p_failed = ref.states.T @ b
         live = [r for r in repairable if r not in repaired and p_failed[column[r]] > 1e-12]
         best = ref.escalation
-        lowest = min([best] + [ending[r] for r in live])
+        # "top" in ``done``: the unit was tried since the last repair; until it is, it may already work.
+        in_doubt = bool(repaired) and "top" not in done
+        lowest = min([best] + [ending[r] for r in live] + ([top_cost] if in_doubt else []))
         if lowest >= min(best, budget):
             return (best, True) if best <= budget else (lowest, False)
         support = b > 0
         courses = []
+        if in_doubt:
+            courses.append((top_cost, [(b * fails(repaired), repaired, done | {"top"})]))
         for r in live:
             now = repaired | {r}
             repair = model.event_by_id[r].repair
             if repair.verify is None:
-                courses.append((repair.cost + top_cost, [(b * fails(now), now, frozenset())]))
+                courses.append((repair.cost + top_cost, [(b * fails(now), now, frozenset({"top"}))]))
             else:
                 p = p_abnormal(repair.verify, now)
                 normal = b * (1.0 - p)
                 cost = repair.cost + model.check_by_id[repair.verify].cost + normal.sum() * top_cost
                 opened = frozenset({repair.verify})
-                courses.append((cost, [(b * p, now, opened), (normal * fails(now), now, opened)]))
+                courses.append((cost, [(b * p, now, opened), (normal * fails(now), now, opened | {"top"})]))
         for t in checks:
             p = p_abnormal(t, repaired)
             if t in done or np.ptp(p[support]) <= 1e-15:

@@ -9,6 +9,7 @@ state), independent of the join tree; the repair order follows Kadane & Simon
 from __future__ import annotations
 
 import json
+from dataclasses import replace
 import math
 
 import pytest
@@ -121,13 +122,50 @@ def test_verify_check_named_by_the_repair():
     assert s.findings[-1] == Finding(s.model.top, 0, 1)
 
 
+def test_a_unit_in_doubt_after_its_repairs_own_check_read_abnormal_is_tried_first():
+    # Only the impeller makes the flow gauge read low: read low again after the impeller was
+    # replaced, it is most likely the gauge's false alarm (1 %), and the unit may well work.
+    model = pump_model()
+    s = Session(model)
+    s.record_finding("flow", "flow low")
+    s.record_repair("impeller")
+    s.record_verification("flow low")
+    findings = [Finding("top", 1, 0), Finding("flow", 1, 0), Finding("flow", 1, 1)]
+    # Reference: tests/bruteforce.py, P(top event at epoch 1 | findings) by enumeration.
+    p_fails = bf.posterior(model, findings, ("impeller",))["marginals"]["top"]
+    assert 0.0 < p_fails < 0.5
+    st = s.state
+    assert st.status == AWAITING_VERIFICATION
+    assert st.verification is not None and st.verification.target == "top"
+    decision = s.view.decision
+    assert decision.action == "verify" and decision.reasons[0].kind == "unit-may-work"
+    assert dict(decision.reasons[0].probabilities)["unit works"] == pytest.approx(1.0 - p_fails, abs=TOL)
+    assert {a.action for a in decision.alternatives} >= {"verify", "repair"}
+    s.record_verification("flows")
+    assert s.status == CONFIRMED
+    assert s.state.cost_spent == pytest.approx(4 + 120 + 4 + 2)
+
+
 def test_verify_check_still_abnormal_sends_the_diagnosis_on():
-    s = Session(pump_model())
+    # Trying the unit is weighed, and not advised where it costs more than going on
+    # (the unit's verification priced far above anything left to do; illustrative).
+    model = replace(pump_model(), verification=Verification("run the pump for a shift", 600,
+                                                            outcomes=("flows", "no flow")))
+    s = Session(model)
     s.record_finding("flow", "flow low")
     s.record_repair("impeller")
     s.record_verification("flow low")
     assert s.status not in (CONFIRMED, AWAITING_VERIFICATION)
     assert s.state.verification is None
+    decision = s.view.decision
+    weighed = [a for a in decision.alternatives if a.action == "verify"]
+    assert len(weighed) == 1 and weighed[0].expected_cost > decision.expected_cost
+    # The technician may try the unit all the same: it still fails, and the diagnosis goes on knowing it.
+    s.record_verification("no flow")
+    assert s.findings[-1] == Finding("top", 1, 1)
+    assert s.status not in (CONFIRMED, AWAITING_VERIFICATION)
+    with pytest.raises(SessionError, match="already verified"):
+        s.record_verification("flows")
 
 
 def test_ambiguity_group_and_repair_order_when_no_check_is_worth_doing():

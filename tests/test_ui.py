@@ -781,3 +781,34 @@ def test_three_outcome_check_keys_are_named_in_the_footer_and_card(tmp_path, dem
         return app.return_code
 
     assert run(scenario()) == 0
+
+
+def test_a_unit_in_doubt_is_offered_for_trying_and_v_opens_its_verification(tmp_path):
+    # The leak repaired, its own check (the refrigerant pressures) still reads abnormal:
+    # the unit may work all the same, and the screen says so and offers the unit's test.
+    session = sessionlog().new_session("rooftop", log_path=tmp_path / "doubt.jsonl")
+    session.record_finding("leak_search", "leak found")
+    session.record_repair("refrigerant_leak")
+    session.record_verification("pressures abnormal")
+    app = TroubleshootApp(session, fresh=False)
+    top = session.model.top
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await settle(app, pilot)
+            await pilot.press("enter")  # the safety notice of a reopened session
+            await settle(app, pilot)
+            assert app.state.status == "awaiting-verification"
+            diagnosis = flat(str(app.screen.query_one("#diagnosis-text").render()))
+            assert "the unit may work" in diagnosis and "Key v opens it" in diagnosis
+            await pilot.press("v")
+            await settle(app, pilot)
+            assert isinstance(app.screen, CheckScreen) and app.screen.card.verification
+            assert app.screen.card.target == top
+            await enter_outcome(app, pilot, 0)  # the unit cools
+            assert app.state.status == "confirmed"
+            await pilot.press("q")
+        return app.return_code
+
+    assert run(scenario()) == 0
+    replay_ok(tmp_path / "doubt.jsonl")

@@ -27,7 +27,9 @@ Status, in this order of precedence:
 ``confirmed``
     The verification after the last repair says the unit works.
 ``awaiting-verification``
-    A repair was recorded and not yet verified.
+    A repair was recorded and not yet verified; or its own check read
+    abnormal, the unit may work all the same, and the policy finds trying it
+    cheaper than going on (:func:`troubleshoot.advice.policy.weigh_unit_check`).
 ``isolated``
     A suspect (not repaired) has P(failed | findings) >= the isolation threshold.
 ``ambiguity``
@@ -280,6 +282,21 @@ class SessionView:
     def verification_request(self) -> VerificationRequest | None:
         """What to check now to verify the last repair, or None.
 
+        The verification every repair asks for (:attr:`repair_verification`),
+        or the unit's, when its own check read abnormal but the policy finds
+        trying the unit cheaper than going on (:attr:`unit_in_doubt`).
+        """
+        required = self.repair_verification
+        if required is not None:
+            return required
+        if self.unit_in_doubt is not None and self.decision.action == Course.VERIFY:
+            return self.unit_in_doubt
+        return None
+
+    @cached_property
+    def repair_verification(self) -> VerificationRequest | None:
+        """The verification the last repair asks for, or None.
+
         First the repair's own check, if the model names one; when that reads
         normal, the unit itself (the top event), because only a working unit
         confirms the repair. A verifying check that still reads abnormal, or
@@ -292,6 +309,21 @@ class SessionView:
         if not done:
             return verification_for(self.model, rec.repairs[-1])
         if any(o.finding.target == self.model.top for o in done) or done[-1].finding.outcome != 0:
+            return None
+        return top_verification(self.model)
+
+    @cached_property
+    def unit_in_doubt(self) -> VerificationRequest | None:
+        """The unit's verification, when the unit may work: a repair was made since which the unit was not tried.
+
+        That is the case once the last repair's own check read abnormal (a
+        false alarm, or a cause of the check that does not stop the unit);
+        the unit may then be verified at any time before the next repair.
+        """
+        rec = self.record
+        if not rec.repairs or rec.escalated or self.repair_verification is not None:
+            return None
+        if any(o.finding.target == self.model.top and o.finding.epoch == rec.epoch for o in rec.observations):
             return None
         return top_verification(self.model)
 
@@ -342,8 +374,8 @@ class SessionView:
         if self.record.escalated:
             return self._escalated_decision()
         return decide(self.engine, self.posterior, self.settings, self.candidates,
-                      verification=self.verification_request, confirmed=self.confirmed,
-                      ranking=self.ranking, ranked=self.suspects)
+                      verification=self.repair_verification, confirmed=self.confirmed,
+                      ranking=self.ranking, ranked=self.suspects, unit_check=self.unit_in_doubt)
 
     def _escalated_decision(self) -> Decision:
         """Done: the unit was handed over; the figures are those it was handed over with."""
@@ -361,7 +393,8 @@ class SessionView:
         """How to finish without another check: repair the next suspect, or escalate (the policy's choice)."""
         if self.verification_request is not None or self.confirmed or self.record.escalated:
             return self.decision
-        return decide(self.engine, self.posterior, self.settings, (), ranked=self.suspects)
+        return decide(self.engine, self.posterior, self.settings, (), ranked=self.suspects,
+                      unit_check=self.unit_in_doubt)
 
     @property
     def outside_model(self) -> OutsideModel:
@@ -777,7 +810,8 @@ class Session:
                      replace(rec, repairs=rec.repairs + (event_id,)))
 
     def _record_verification(self, outcome: str | int) -> None:
-        request = self._view.verification_request
+        # The unit may be tried whenever it is in doubt, advised or not.
+        request = self._view.verification_request or self._view.unit_in_doubt
         rec = self._view.record
         if not rec.repairs:
             raise SessionError("nothing has been repaired yet; record a repair before verifying it")

@@ -136,6 +136,7 @@ def fold_actions(model: Model, actions) -> SessionData:
     Follows :class:`troubleshoot.session.Session`'s rules without computing
     a posterior: a finding on the check that verifies the last repair is
     that verification; after it reads normal, the unit itself is verified;
+    after it reads abnormal, a verification is of the unit (it may work);
     ``undo`` takes back the last action that changed the record (not an
     acknowledgement or a resume).
 
@@ -170,6 +171,10 @@ def fold_actions(model: Model, actions) -> SessionData:
             return None
         return top_verification(model)
 
+    def unit_in_doubt():
+        """The repair's own check read abnormal and the unit was not tried since: it may be, any time."""
+        return bool(repairs) and not any(f.target == top and f.epoch == len(repairs) for f, _ in obs)
+
     def find(target, epoch):
         hits = [i for i, (f, k) in enumerate(obs) if k != "complaint" and f.target == target
                 and (epoch is None or f.epoch == epoch)]
@@ -194,6 +199,8 @@ def fold_actions(model: Model, actions) -> SessionData:
         req = request()
         if isinstance(action, RecordVerification) or (isinstance(action, RecordFinding) and req is not None
                                                       and req.target == action.check):
+            if req is None and isinstance(action, RecordVerification) and unit_in_doubt():
+                req = top_verification(model)
             if req is None:
                 raise SessionError("a verification with no repair awaiting it")
             index = outcome_index(req.outcomes, action.outcome, "the verification")

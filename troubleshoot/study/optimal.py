@@ -13,7 +13,9 @@ The protocol is the tool's own, the one the simulator runs
    model names one (an abnormal outcome sends the diagnosis on), then the
    unit itself; the unit working ends the case. A unit that still fails
    goes back to step 2, every finding kept, the repair taken into account:
-   checks may be done again.
+   checks may be done again. When the repair's own check read abnormal,
+   the unit may work all the same: until the next repair, trying the unit
+   (its verification) is one more action.
 4. Escalating ends the case at its price (the model's, or
    :func:`troubleshoot.advice.policy.escalation_charge` when it gives none).
 
@@ -31,10 +33,11 @@ made, the checks done since the last one and the posterior over the joint
 states of the roots), memoised:
 
     V(s) = min( E,  min_t  c_t + sum_o P(o | s) V(s + t=o),
-                    min_r  c_r + verification costs + sum_b P(b | s) V(s_b) )
+                    min_r  c_r + verification costs + sum_b P(b | s) V(s_b),
+                    v + P(unit fails | s) V(s + unit fails)  [unit in doubt only] )
 
-with E the escalation price and b the branches of the verification in
-which the unit still fails. Every probability comes from the exact joint
+with E the escalation price, b the branches of the verification in which
+the unit still fails, and v the unit's verification. Every probability comes from the exact joint
 over the 2^n states of the n root events (enumeration), never from
 sampling; how a check responds to its causes comes from one function,
 :meth:`Enumeration.table` (over :mod:`troubleshoot.engine.observation`).
@@ -187,7 +190,7 @@ class State:
         return frozenset(t for t, _, e, _ in self.observations if e == self.epoch)
 
 
-#: An action: ("check", id), ("repair", id) or ("escalate", None).
+#: An action: ("check", id), ("repair", id), ("verify", top event id: a unit in doubt) or ("escalate", None).
 Action = tuple[str, str | None]
 
 
@@ -306,6 +309,18 @@ class Protocol:
             add(w_o * fails, ((request.target, 0, epoch, VERIFICATION), top_seen))
         return cost, branches
 
+    def unit_in_doubt(self, state: State) -> bool:
+        """A repair was made and the unit not tried since (its own check read abnormal)."""
+        epoch = state.epoch
+        return epoch > 0 and not any(t == self.model.top and e == epoch for t, _, e, _ in state.observations)
+
+    def after_unit_check(self, state: State, w: np.ndarray) -> tuple[float, list]:
+        """Trying a unit in doubt: its verification's cost, and the branch where it still fails."""
+        still = w * self.enum.top_fails(state.repairs)
+        p = float(still.sum())
+        seen = (self.model.top, 1, state.epoch, VERIFICATION)
+        return self.top_cost, ([(p, State(state.observations + (seen,), state.repairs), still / p)] if p > 0.0 else [])
+
     def lower_bound(self, state: State, w: np.ndarray) -> float:
         """A lower bound of the cost still to come: the expected cost with the faults known.
 
@@ -329,9 +344,11 @@ class Protocol:
         if repaired in self._floors:
             return self._floors[repaired]
         if len(self.repairable) > MAX_BOUND_REPAIRS:
-            # Too many subsets to try: the cheapest single verified repair, or escalation.
-            cheapest = min([self.escalation] + [repair_cost(self.model, r) + verification_for(self.model, r).cost
-                                                for r in self.repairable if r not in repaired])
+            # Too many subsets to try: the cheapest single verified repair, escalation, or
+            # (after a repair) trying the unit, which may already work.
+            cheapest = min([self.escalation] + ([self.top_cost] if repaired else [])
+                           + [repair_cost(self.model, r) + verification_for(self.model, r).cost
+                              for r in self.repairable if r not in repaired])
             self._floors[repaired] = np.full(len(self.enum.states), cheapest)
             return self._floors[repaired]
         if self._works is None:
@@ -432,8 +449,8 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
     reaches the best found is cut, and a state is solved only as far as its
     budget requires (a state cut by its budget keeps the bound it was cut
     at). Ties go to the first found: escalation, then checks in model order,
-    then repairs in decreasing P / (repair + first verification cost), by
-    model order within a tie.
+    then trying a unit in doubt, then repairs in decreasing P / (repair +
+    first verification cost), by model order within a tie.
 
     References
     ----------
@@ -450,6 +467,9 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
             yield ("check", t), protocol.cost_of[t], protocol.after_check(state, w, t)
         # The likeliest repair per cost first (Kadane & Simon 1977): a good course found early
         # tightens the bound for the rest.
+        if protocol.unit_in_doubt(state):
+            cost, branches = protocol.after_unit_check(state, w)
+            yield ("verify", model.top), cost, branches
         p = protocol.enum.p_failed(w)
         repairs = protocol.repairs_open(state, w)
         for r in sorted(repairs, key=lambda r: -p[protocol.index[r]] / max(protocol.full_cost[r], 1e-300)):
@@ -540,6 +560,8 @@ def expected_cost(model: Model, act: Callable[[State], list[tuple[float, Action]
             assert target is not None, "a check or a repair names its target"
             if kind == "check":
                 branch, children = protocol.cost_of[target], protocol.after_check(state, w, target)
+            elif kind == "verify":
+                branch, children = protocol.after_unit_check(state, w)
             else:
                 branch, children = protocol.after_repair(state, w, target)
             for p, child, w2 in children:

@@ -22,7 +22,9 @@ The protocol of a case (the same for every strategy):
    one, then the unit itself). A failed verification sends the case back to
    step 2 with the repair taken into account (``checks_after_repair``, the
    tool's own behaviour), or, in the repair-only protocol, straight to the
-   next finishing step.
+   next finishing step. When the repair's own check read abnormal, the unit
+   may work all the same: finishing may then also mean trying the unit
+   (the policy weighs it, :func:`troubleshoot.advice.policy.weigh_unit_check`).
 
 A case ends ``confirmed`` (the unit verified working), ``escalated`` (the
 policy hands the unit over: the cause lies outside the model, or escalating
@@ -445,9 +447,8 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
         decision = view.decision
         if decision.action == Action.DONE:
             return "left-failed" if equipment.top_fails(session.repairs) else "confirmed"
-        if decision.action == Action.VERIFY:
-            request = view.verification_request
-            assert request is not None, "a repair awaits its verification"
+        request = view.repair_verification
+        if request is not None:  # every repair is verified as the session asks
             if request.target == model.top:
                 result = int(equipment.top_fails(session.repairs))
             else:
@@ -463,6 +464,11 @@ def _drive(session: Session, strategy, equipment: Equipment, rng, settings: Sess
         finish = strategy.finish(view)
         if finish.action == Action.ESCALATE:
             return "escalated"
+        if finish.action == Action.VERIFY:
+            # The repair's own check read abnormal, yet the unit may work: the strategy tries it.
+            assert view.unit_in_doubt is not None, "only a unit in doubt is verified outside a repair's verification"
+            session.record_verification(int(equipment.top_fails(session.repairs)))
+            continue
         session.record_repair(finish.target)
     return "capped"
 

@@ -4,12 +4,14 @@ A strategy looks at a :class:`~troubleshoot.session.SessionView` (the
 findings, the ranking of the remaining checks, the suspects and the
 policy's decision) and answers with a check id, or ``None`` for "stop
 checking and finish": how to finish (repair the next suspect in the repair
-order, or escalate) is always the policy's
+order, escalate, or try the unit when a repair's own check read abnormal
+but it may work) is the policy's
 (:func:`troubleshoot.advice.policy.decide`), for every strategy. Every strategy except ``likeliest`` and
 ``optimal`` keeps the session's stopping rule: it stops as soon as a suspect
 is isolated or the session finds no check worth doing (none gives
 ``min_bits`` bits, or none of the best few is expected to save more than it
-costs); ``info-per-cost-bits`` drops the second half.
+costs); ``info-per-cost-bits`` drops the second half. ``checklist`` and
+``optimal`` finish their own way.
 
 =================  ===========================================================
 name               next check
@@ -70,7 +72,7 @@ class Strategy(Protocol):
         ...
 
     def finish(self, view: SessionView):
-        """When no check is named: repair (``action`` ``repair``, ``target``) or escalate."""
+        """When no check is named: repair (``action`` ``repair``, ``target``), escalate, or verify the unit in doubt."""
         ...
 
 
@@ -231,6 +233,8 @@ class OptimalStrategy:
         kind, target = self._action(view)
         if kind == "repair":
             return Alternative(Action.REPAIR, target, None)
+        if kind == "verify":
+            return Alternative(Action.VERIFY, target, None)
         if kind == "check":  # the table wants a check the caller would not do: the policy's finish
             return view.finish
         return Alternative(Action.ESCALATE, None, None)
@@ -264,7 +268,10 @@ def protocol_actor(model, strategy: Strategy, settings, engine):
                 out.append((p, ("check", choice)))
                 continue
             finish = strategy.finish(view)
-            out.append((p, ("repair", finish.target) if finish.action == Action.REPAIR else ("escalate", None)))
+            if finish.action == Action.VERIFY:
+                out.append((p, ("verify", model.top)))
+            else:
+                out.append((p, ("repair", finish.target) if finish.action == Action.REPAIR else ("escalate", None)))
         return out
 
     return act

@@ -225,6 +225,11 @@ def why_line(state) -> str:
         return f"next: {nxt.label} ({cost_text(nxt.cost, unit)})" if nxt is not None else ""
     if state.status == Status.AWAITING_VERIFICATION:
         v = state.verification
+        reason = decision.reasons[0] if decision is not None and decision.reasons else None
+        if reason is not None and reason.kind == "unit-may-work":
+            works = dict(reason.probabilities).get("unit works", 0.0)
+            return (f"the repair's own check still reads abnormal, but the unit may work ({percent(works)}): "
+                    f"try it before anything else: {v.label} ({cost_text(v.cost, unit)})")
         return f"check that the repair worked: {v.label} ({cost_text(v.cost, unit)})"
     if state.status == Status.CONFIRMED:
         return "the unit works: the repair is confirmed"
