@@ -83,6 +83,22 @@ def test_isolated_threshold_and_verification_on_the_top_event(model_file, capsys
     assert doc["status"] == "confirmed"
 
 
+def test_a_unit_in_doubt_is_advised_for_trying_and_top_ok_confirms(model_file, capsys):
+    # The impeller replaced, its own check (the flow gauge) still low: only the impeller moves
+    # that gauge, so the reading is most likely its 1 % false alarm and the unit may work.
+    steps = ("--finding", "flow=flow low", "--repaired", "impeller", "--finding", "flow=flow low")
+    doc = suggest_json(capsys, model_file, *steps)
+    p_fails = bf.posterior(pump_model(), [Finding("top", 1, 0), Finding("flow", 1, 0), Finding("flow", 1, 1)],
+                           ("impeller",))["marginals"]["top"]  # enumeration
+    assert doc["status"] == "awaiting-verification"
+    assert doc["decision"]["action"] == "verify" and doc["decision"]["target"] == "top"
+    assert doc["verification"]["target"] == "top"
+    reason = doc["decision"]["reasons"][0]
+    assert reason["kind"] == "unit-may-work"
+    assert reason["probabilities"]["unit works"] == pytest.approx(1.0 - p_fails, abs=TOL)
+    assert suggest_json(capsys, model_file, *steps, "--finding", "top=ok")["status"] == "confirmed"
+
+
 def test_readable_table_has_units(model_file, capsys):
     assert main(["suggest", model_file, "--finding", "flow=flow normal"]) == 0
     out = capsys.readouterr().out
