@@ -120,6 +120,13 @@ def new_app(tmp_path, demo="rooftop", name="session.jsonl", **kwargs):
     return TroubleshootApp(session), tmp_path / name
 
 
+async def past_the_safety_notice(app, pilot) -> None:
+    """A reopened session starts on the safety notice: acknowledge it, then settle on the main screen."""
+    await settle(app, pilot)
+    await pilot.press("enter")
+    await settle(app, pilot)
+
+
 async def mark_symptoms_and_begin(app, pilot, technician) -> None:
     assert isinstance(app.screen, StartScreen)
     for symptom in app.session.model.symptoms:
@@ -795,9 +802,7 @@ def test_a_unit_in_doubt_is_offered_for_trying_and_v_opens_its_verification(tmp_
 
     async def scenario():
         async with app.run_test(size=SIZE) as pilot:
-            await settle(app, pilot)
-            await pilot.press("enter")  # the safety notice of a reopened session
-            await settle(app, pilot)
+            await past_the_safety_notice(app, pilot)
             assert app.state.status == "awaiting-verification"
             diagnosis = flat(str(app.screen.query_one("#diagnosis-text").render()))
             assert "the unit may work" in diagnosis and "Key v opens it" in diagnosis

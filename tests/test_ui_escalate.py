@@ -12,7 +12,7 @@ from __future__ import annotations
 from textual.widgets._footer import FooterKey
 
 from test_escalation import unit
-from test_ui import SIZE, _inside, flat, new_app, replay_ok, run, screen_text, settle
+from test_ui import SIZE, _inside, flat, new_app, past_the_safety_notice, replay_ok, run, screen_text, settle
 from troubleshoot.model.xmlfile import save_model
 from troubleshoot.session.logfile import new_session, read_log
 from troubleshoot.ui.app import TroubleshootApp
@@ -179,9 +179,7 @@ def test_every_footer_key_fits_80_columns_while_a_repair_awaits_verification(tmp
 
     async def scenario():
         async with app.run_test(size=SIZE) as pilot:
-            await settle(app, pilot)
-            await pilot.press("enter")  # the safety notice of a reopened session
-            await settle(app, pilot)
+            await past_the_safety_notice(app, pilot)
             assert app.state.status == "awaiting-verification"
             keys = list(app.screen.query(FooterKey))
             assert {"Verify", "Escalate", "Help", "Quit"} <= {k.description for k in keys}
