@@ -735,7 +735,7 @@ class Session:
     def _record_finding(self, check_id: str, outcome: str | int) -> None:
         check = self._check(check_id)
         self._refuse_if_confirmed("record a finding")
-        request = self._view.verification_request
+        request = self._view.repair_verification  # a check, never the unit
         if request is not None and request.target == check_id:
             # The check that verifies the last repair: its outcome is the verification.
             self._record_verification(outcome)
@@ -858,7 +858,7 @@ class Session:
 
     def _acknowledge_caution(self, check_id: str) -> None:
         caution = None
-        request = self._view.verification_request
+        request = self._view.verification_request or self._view.unit_in_doubt
         if request is not None and request.target == check_id:
             caution = request.caution
         else:
