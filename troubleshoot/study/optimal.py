@@ -37,9 +37,10 @@ states of the roots), memoised:
                     v + P(unit fails | s) V(s + unit fails)  [unit in doubt only] )
 
 with E the escalation price, b the branches of the verification in which
-the unit still fails, and v the unit's verification. Every probability comes from the exact joint
-over the 2^n states of the n root events (enumeration), never from
-sampling; how a check responds to its causes comes from one function,
+the unit still fails, and v the unit's verification. Every probability
+comes from the exact joint over the 2^n states of the n root events
+(enumeration), never from sampling; how a check responds to its causes
+comes from one function,
 :meth:`Enumeration.table` (over :mod:`troubleshoot.engine.observation`).
 
 References
@@ -465,11 +466,11 @@ def solve(model: Model, max_states: int = MAX_STATES) -> OptimalSolution:
     def courses(state: State, w: np.ndarray):
         for t in protocol.checks_open(state, w):
             yield ("check", t), protocol.cost_of[t], protocol.after_check(state, w, t)
-        # The likeliest repair per cost first (Kadane & Simon 1977): a good course found early
-        # tightens the bound for the rest.
         if protocol.unit_in_doubt(state):
             cost, branches = protocol.after_unit_check(state, w)
             yield ("verify", model.top), cost, branches
+        # The likeliest repair per cost first (Kadane & Simon 1977): a good course found early
+        # tightens the bound for the rest.
         p = protocol.enum.p_failed(w)
         repairs = protocol.repairs_open(state, w)
         for r in sorted(repairs, key=lambda r: -p[protocol.index[r]] / max(protocol.full_cost[r], 1e-300)):
