@@ -6,12 +6,13 @@ policy's decision) and answers with a check id, or ``None`` for "stop
 checking and finish": how to finish (repair the next suspect in the repair
 order, escalate, or try the unit when a repair's own check read abnormal
 but it may work) is the policy's
-(:func:`troubleshoot.advice.policy.decide`), for every strategy. Every strategy except ``likeliest`` and
+(:func:`troubleshoot.advice.policy.decide`) for every strategy but
+``checklist`` (the repair order to its end, then escalation) and
+``optimal`` (its table). Every strategy except ``likeliest`` and
 ``optimal`` keeps the session's stopping rule: it stops as soon as a suspect
 is isolated or the session finds no check worth doing (none gives
 ``min_bits`` bits, or none of the best few is expected to save more than it
-costs); ``info-per-cost-bits`` drops the second half. ``checklist`` and
-``optimal`` finish their own way.
+costs); ``info-per-cost-bits`` drops the second half.
 
 =================  ===========================================================
 name               next check
