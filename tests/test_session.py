@@ -340,3 +340,24 @@ def test_doing_the_verify_check_records_the_verification():
     s.record_finding("flow", "flow normal")  # the impeller repair's verify check
     assert s.actions[-1].to_record() == {"action": "verify", "outcome": "flow normal"}
     assert s.status == AWAITING_VERIFICATION and s.state.verification.target == s.model.top
+
+
+def test_the_line_mode_says_why_a_unit_in_doubt_is_tried(tmp_path):
+    # Typed as a technician would: the impeller replaced, the gauge still low, then the pump run.
+    import io
+
+    from troubleshoot.model.xmlfile import save_model
+    from troubleshoot.session.logfile import new_session
+    from troubleshoot.ui.plain import interact
+
+    path = tmp_path / "pump.xml"
+    save_model(pump_model(), path)
+    session = new_session(str(path), log_path=tmp_path / "plain.jsonl")
+    out = io.StringIO()
+    interact(session, io.StringIO("ack flow\nflow=flow low\nrepair impeller\nack flow\nverify 2\nverify flows\n"
+                                  "quit\n"), out)
+    text = out.getvalue()
+    assert "verify the repair: run the pump: 1 'flows', 2 'no flow'" in text
+    assert "why: the unit may already work (P = " in text
+    assert "status: confirmed" in text
+    session.close()

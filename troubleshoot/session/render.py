@@ -191,6 +191,9 @@ def render_brief(state) -> str:
     if state.verification:
         v = state.verification
         lines.append(f"verify the repair: {v.label}: {numbered_outcomes(v.outcomes)}")
+        d = state.decision
+        if d is not None and d.reasons and d.reasons[0].kind == "unit-may-work":
+            lines.append(f"why: {d.reasons[0].text}")
     if state.isolated:
         lines.append(f"isolated: {state.isolated.id} ({state.isolated.label}), P = {state.isolated.p:.3f}")
     if state.status in (ISOLATED, AMBIGUITY) and state.repair_order:
