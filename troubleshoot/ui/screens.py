@@ -781,7 +781,7 @@ HELP_TEXT = """\
 | u | undo the last action |
 | x | retract a finding, or correct its outcome (c) |
 | r | record a repair (the repair order comes first) |
-| v | verify the last repair (shown while a repair awaits it) |
+| v | verify the last repair (shown while a repair awaits it, or when its own check read abnormal and the unit may work all the same) |
 | m | add a note to the log |
 | e | escalate: hand the unit over; a card shows what it means, its price and the tool's advice; `y` confirms, `u` undoes |
 | f | show or hide the figures: information in bits, scores, uncertainty |
