@@ -189,3 +189,16 @@ def test_every_footer_key_fits_80_columns_while_a_repair_awaits_verification(tmp
         return app.return_code
 
     assert run(scenario()) == 0
+
+
+def test_the_escalation_card_names_trying_a_unit_in_doubt_as_the_advice(tmp_path):
+    # Escalating is weighed against trying the unit whose repair's own check still read abnormal.
+    from troubleshoot.ui.screens import escalation_card_text
+
+    session = new_session("rooftop", log_path=tmp_path / "d.jsonl")
+    session.record_finding("leak_search", "leak found")
+    session.record_repair("refrigerant_leak")
+    session.record_verification("pressures abnormal")
+    text = escalation_card_text(session.state, session.model)
+    assert "The tool advises trying the unit first (it may work already) instead (expected " in text
+    assert "Price: 720 min" in text

@@ -617,8 +617,10 @@ def escalation_card_text(state, model, figures: bool = False) -> str:
         lines.append(f"The tool advises it: {escalation_reason(state, figures)}.")
     else:
         d = state.decision
-        course = {"check": "the recommended check", "repair": "a repair", "verify": "verifying the repair"}.get(
-            str(d.action), str(d.action)) if d is not None else "going on"
+        courses = {"check": "the recommended check", "repair": "a repair", "verify": "verifying the repair"}
+        if d is not None and d.reasons and d.reasons[0].kind == "unit-may-work":
+            courses["verify"] = "trying the unit first (it may work already)"
+        course = courses.get(str(d.action), str(d.action)) if d is not None else "going on"
         finish = (f" (expected {cost_text(round(d.expected_cost), model.cost_unit)} to finish)"
                   if d is not None and d.expected_cost is not None else "")
         lines.append(f"The tool advises {course} instead{finish}; {OUTSIDE_NAME}: "
