@@ -202,3 +202,39 @@ def test_the_escalation_card_names_trying_a_unit_in_doubt_as_the_advice(tmp_path
     text = escalation_card_text(session.state, session.model)
     assert "The tool advises trying the unit first (it may work already) instead (expected " in text
     assert "Price: 720 min" in text
+
+
+def test_v_tries_a_unit_in_doubt_even_when_the_tool_does_not_advise_it(tmp_path):
+    # The pump of tests/test_session.py with its unit's test priced far above going on
+    # (illustrative): the tool advises another course, yet the technician may try the unit.
+    from dataclasses import replace
+
+    from test_session import pump_model
+    from troubleshoot.model import Verification
+
+    path = tmp_path / "pump.xml"
+    save_model(replace(pump_model(), verification=Verification("run the pump for a shift", 600,
+                                                                outcomes=("flows", "no flow"))), path)
+    session = new_session(str(path), log_path=tmp_path / "p.jsonl")
+    session.record_finding("flow", "flow low")
+    session.record_repair("impeller")
+    session.record_verification("flow low")
+    app = TroubleshootApp(session, fresh=False)
+
+    async def scenario():
+        async with app.run_test(size=SIZE) as pilot:
+            await past_the_safety_notice(app, pilot)
+            assert app.state.status != "awaiting-verification" and app.state.unit_check is not None
+            assert "Verify" in {k.description for k in app.screen.query(FooterKey)}
+            await pilot.press("v")
+            await settle(app, pilot)
+            assert isinstance(app.screen, CheckScreen) and app.screen.card.target == "top"
+            await pilot.press("2")  # no flow: the unit still fails
+            await settle(app, pilot)
+            assert app.state.findings[-1].target == "top" and app.state.unit_check is None
+            assert app.state.status != "awaiting-verification"
+            await pilot.press("q")
+        return app.return_code
+
+    assert run(scenario()) == 0
+    replay_ok(tmp_path / "p.jsonl")

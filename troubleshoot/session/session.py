@@ -245,6 +245,8 @@ class SessionState:
     decision: Decision | None = None
     outside_model_p: float = 0.0
     outside_model_by_gate: tuple[tuple[str, float], ...] = ()
+    #: The unit's verification while the unit is in doubt (:attr:`SessionView.unit_in_doubt`), advised or not.
+    unit_check: VerificationRequest | None = None
 
     def to_dict(self) -> dict:
         """The state as JSON-ready dicts and lists (an infinite score becomes None)."""
@@ -511,6 +513,7 @@ class SessionView:
             decision=self.decision,
             outside_model_p=self.outside_model.p,
             outside_model_by_gate=self.outside_model.by_gate,
+            unit_check=self.unit_in_doubt,
         )
 
 

@@ -230,10 +230,11 @@ class TroubleshootApp(App[int]):
     def open_verification(self) -> None:
         """Open the verification the last repair asks for (its named check, or the top event)."""
         state = self.state
-        if state is None or state.verification is None:
+        # The unit in doubt (its repair's own check read abnormal) may be tried, advised or not.
+        v = None if state is None else state.verification or state.unit_check
+        if v is None:
             self.say("No repair is waiting for its verification.")
             return
-        v = state.verification
         card = CheckCard(v.target, v.label, v.cost, state.cost_unit, tuple(v.outcomes), v.instructions,
                          v.caution, verification=True)
 

@@ -274,9 +274,9 @@ class MainScreen(Screen):
 
     def check_action(self, action: str, parameters) -> bool | None:
         state = self.tsapp.state
-        # The verify key is shown only while a repair awaits its verification.
+        # The verify key is shown only while a repair awaits its verification, or the unit is in doubt.
         if action == "verify":
-            return state is not None and state.status == Status.AWAITING_VERIFICATION
+            return state is not None and (state.status == Status.AWAITING_VERIFICATION or state.unit_check is not None)
         # Escalating is open at any time until the diagnosis is finished.
         if action == "escalate":
             return state is None or state.status not in (Status.CONFIRMED, Status.ESCALATED)
