@@ -813,8 +813,8 @@ class Session:
                      replace(rec, repairs=rec.repairs + (event_id,)))
 
     def _record_verification(self, outcome: str | int) -> None:
-        # The unit may be tried whenever it is in doubt, advised or not.
-        request = self._view.verification_request or self._view.unit_in_doubt
+        # The unit may be tried whenever it is in doubt, advised or not (no decision needed to tell).
+        request = self._view.repair_verification or self._view.unit_in_doubt
         rec = self._view.record
         if not rec.repairs:
             raise SessionError("nothing has been repaired yet; record a repair before verifying it")
@@ -861,7 +861,7 @@ class Session:
 
     def _acknowledge_caution(self, check_id: str) -> None:
         caution = None
-        request = self._view.verification_request or self._view.unit_in_doubt
+        request = self._view.repair_verification or self._view.unit_in_doubt
         if request is not None and request.target == check_id:
             caution = request.caution
         else:
