@@ -117,3 +117,16 @@ def test_a_check_advised_above_the_escalation_price_says_why():
     assert first.expected_cost is not None and first.expected_cost < model.escalation.cost
     assert "below that figure" not in first.reasons[0].text
     assert "none after them" not in escalation_card_text(fresh.state, model)
+    # A free check advised above the price: nothing is lost by reading it before escalating,
+    # and the card says that rather than the lookahead's caveat. The same findings, the
+    # short-cycling symptom left unread.
+    free = Session(model)
+    for check_id, outcome in [("low_suction_alarm", 0), ("pump_fault_alarm", 1), ("p2_panel_status", 0),
+                              ("control_power", 0), ("p1_panel_status", 0), ("main_voltage", 0),
+                              ("pt_vs_gauge", 0), ("controller_screen", 0), ("p3_panel_status", 0)]:
+        free.record_finding(check_id, model.check_by_id[check_id].outcomes[outcome])
+    decision = free.state.decision
+    assert decision.reasons[0].kind == "free-check" and decision.expected_cost > model.escalation.cost
+    card = escalation_card_text(free.state, model)
+    assert "The check costs nothing: escalating after it costs no more than escalating now." in card
+    assert "none after them" not in card

@@ -625,9 +625,13 @@ def escalation_card_text(state, model, figures: bool = False) -> str:
                   if d is not None and d.expected_cost is not None else "")
         lines.append(f"The tool advises {course} instead{finish}; {OUTSIDE_NAME}: "
                      f"{outside_text(state.outside_model_p, figures)}.")
-        if (d is not None and d.action == "check" and d.expected_cost is not None
+        reason = d.reasons[0] if d is not None and d.reasons else None
+        # Otherwise the two prices on this card read as if the tool chose the dearer course.
+        if (reason is not None and reason.kind == "free-check" and d is not None and d.expected_cost is not None
                 and model.escalation is not None and d.expected_cost > model.escalation.cost):
-            # Otherwise the two prices on this card read as if the tool chose the dearer course.
+            lines.append("The check costs nothing: escalating after it costs no more than escalating now.")
+        elif reason is not None and d is not None and d.action == "check" and "escalate" in dict(reason.costs):
+            # The reason weighed the check against the price (advice/policy._check_reason).
             lines.append("That figure counts the checks it weighs and then repairs, none after them; "
                          "while a check beats repairing the tool goes on checking.")
     lines.append("Escalating ends this diagnosis as escalated (the log and the summary say so); "
