@@ -203,6 +203,20 @@ class OutsideModel:
     by_gate: tuple[tuple[str, float], ...]
 
 
+def _given(engine: Engine, posterior: AnyPosterior, extra: tuple[Finding, ...],
+           repairs: tuple[str, ...] = ()) -> tuple[float, AnyPosterior | None]:
+    """P(extra findings | e), after ``repairs`` more, and the posterior given them (None where impossible).
+
+    P(e, extra) / P(e) from one propagation; 0 (and no posterior) when the
+    engine finds the extra findings impossible.
+    """
+    try:
+        after = engine.propagate(tuple(posterior.findings) + extra, tuple(posterior.repairs) + repairs)
+    except ImpossibleFindings:
+        return 0.0, None
+    return math.exp(min(0.0, after.log_p - posterior.log_p)), after
+
+
 def outside_model(engine: Engine, posterior: AnyPosterior) -> OutsideModel:
     """P(the cause lies outside the model) in total and per gate.
 
@@ -216,12 +230,7 @@ def outside_model(engine: Engine, posterior: AnyPosterior) -> OutsideModel:
     if not unlisted:
         return OutsideModel(0.0, ())
     by_gate = tuple((r[: -len(DERIVED + "unlisted")], posterior.p_failed(r)) for r in unlisted)
-    extra = tuple(Finding(r, 0, 0) for r in unlisted)
-    try:
-        none = engine.propagate(tuple(posterior.findings) + extra, tuple(posterior.repairs))
-        p_none = math.exp(min(0.0, none.log_p - posterior.log_p))
-    except ImpossibleFindings:
-        p_none = 0.0
+    p_none, _ = _given(engine, posterior, tuple(Finding(r, 0, 0) for r in unlisted))
     return OutsideModel(min(1.0, max(0.0, 1.0 - p_none)), by_gate)
 
 
@@ -685,12 +694,7 @@ def weigh_unit_check(engine: Engine, posterior: AnyPosterior, settings: Settings
     """
     model = posterior.model
     unit = model.cost_unit
-    try:
-        failing = engine.propagate(tuple(posterior.findings) + (Finding(model.top, 1, posterior.epoch),),
-                                   posterior.repairs)
-        p_fails = math.exp(min(0.0, failing.log_p - posterior.log_p))
-    except ImpossibleFindings:
-        failing, p_fails = None, 0.0
+    p_fails, failing = _given(engine, posterior, (Finding(model.top, 1, posterior.epoch),))
     then = cost_to_finish(engine, failing, candidates, 1, settings) if failing is not None and p_fails > 0.0 else 0.0
     verify_cost = unit_check.cost + p_fails * then
     verify = Alternative(Action.VERIFY, unit_check.target, verify_cost)
@@ -772,12 +776,8 @@ def exact_finish_plan(engine: Engine, posterior: AnyPosterior, settings: Setting
     exact = single.copy()
     n = min(EXACT_REPAIRS, len(sequence))
     for j in range(1, n + 1):
-        try:
-            after = engine.propagate(tuple(posterior.findings) + (Finding(model.top, 1, posterior.epoch + j),),
-                                     tuple(posterior.repairs) + sequence[:j])
-            exact[j] = math.exp(min(0.0, after.log_p - posterior.log_p))
-        except ImpossibleFindings:
-            exact[j] = 0.0  # these repairs surely put the unit right
+        # 0 where failing after these repairs is impossible: they surely put the unit right.
+        exact[j], _ = _given(engine, posterior, (Finding(model.top, 1, posterior.epoch + j),), sequence[:j])
     if len(sequence) > n:
         scale = exact[n] / single[n] if single[n] > 0.0 else 0.0
         exact[n + 1:] = np.minimum(exact[n], single[n + 1:] * scale)
