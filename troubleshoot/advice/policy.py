@@ -482,6 +482,11 @@ class Decision:
     outside_model: OutsideModel
     unit: str
 
+    @property
+    def reason(self) -> Reason | None:
+        """The first reason, the one the decision rests on (None when there is none)."""
+        return self.reasons[0] if self.reasons else None
+
     def to_dict(self) -> dict:
         """The ``decision`` object of ``suggest --json`` (plus the reasons)."""
         return {
@@ -709,7 +714,7 @@ def weigh_unit_check(engine: Engine, posterior: AnyPosterior, settings: Settings
     costs = (("verify", unit_check.cost), ("verify then finish", verify_cost)) + (
         (("go on without verifying", going_on),) if math.isfinite(going_on) else ())
     reason = Reason("unit-may-work", text, costs=costs, probabilities=(("unit works", 1.0 - p_fails),),
-                    suspects=decision.reasons[0].suspects if decision.reasons else ())
+                    suspects=decision.reason.suspects if decision.reason is not None else ())
     return Decision(Action.VERIFY, unit_check.target, verify_cost, alternatives, (reason,),
                     Status.AWAITING_VERIFICATION, None, decision.outside_model, unit)
 

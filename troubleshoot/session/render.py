@@ -161,7 +161,7 @@ def escalation_lines(state) -> list[str]:
     if d is not None and d.action == "escalate" and state.status != Status.ESCALATED:
         price = (f"{d.expected_cost:g} {state.cost_unit}" if d.expected_cost is not None
                  else "the model gives no price")
-        why = d.reasons[0].text if d.reasons else ""
+        why = d.reason.text if d.reason is not None else ""
         lines.append(f"advice: escalate ({price}): {why}; type 'escalate REASON' to hand the unit over")
     return lines
 
@@ -191,9 +191,9 @@ def render_brief(state) -> str:
     if state.verification:
         v = state.verification
         lines.append(f"verify the repair: {v.label}: {numbered_outcomes(v.outcomes)}")
-        d = state.decision
-        if d is not None and d.reasons and d.reasons[0].kind == "unit-may-work":
-            lines.append(f"why: {d.reasons[0].text}")
+        reason = state.decision.reason if state.decision is not None else None
+        if reason is not None and reason.kind == "unit-may-work":
+            lines.append(f"why: {reason.text}")
     if state.isolated:
         lines.append(f"isolated: {state.isolated.id} ({state.isolated.label}), P = {state.isolated.p:.3f}")
     if state.status in (ISOLATED, AMBIGUITY) and state.repair_order:

@@ -427,7 +427,7 @@ class SessionView:
         row = decision.check
         if row is None:
             return None
-        costs = dict(decision.reasons[0].costs) if decision.reasons else {}
+        costs = dict(decision.reason.costs) if decision.reason is not None else {}
         now = costs.get("finish without checking")
         if now is None:
             now = finish_plan(self.model, self.suspects, self.settings).best

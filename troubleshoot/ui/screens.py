@@ -617,15 +617,15 @@ def escalation_card_text(state, model, figures: bool = False) -> str:
         lines.append(f"The tool advises it: {escalation_reason(state, figures)}.")
     else:
         d = state.decision
+        reason = d.reason if d is not None else None
         courses = {"check": "the recommended check", "repair": "a repair", "verify": "verifying the repair"}
-        if d is not None and d.reasons and d.reasons[0].kind == "unit-may-work":
+        if reason is not None and reason.kind == "unit-may-work":
             courses["verify"] = "trying the unit first (it may work already)"
         course = courses.get(str(d.action), str(d.action)) if d is not None else "going on"
         finish = (f" (expected {cost_text(round(d.expected_cost), model.cost_unit)} to finish)"
                   if d is not None and d.expected_cost is not None else "")
         lines.append(f"The tool advises {course} instead{finish}; {OUTSIDE_NAME}: "
                      f"{outside_text(state.outside_model_p, figures)}.")
-        reason = d.reasons[0] if d is not None and d.reasons else None
         # Otherwise the two prices on this card read as if the tool chose the dearer course.
         if (reason is not None and reason.kind == "free-check" and d is not None and d.expected_cost is not None
                 and model.escalation is not None and d.expected_cost > model.escalation.cost):

@@ -200,7 +200,7 @@ def escalation_price_text(model) -> str:
 def escalation_reason(state, figures: bool = False) -> str:
     """Why the tool advises escalating, in words: the cause outside the model, or the cheaper course."""
     d = state.decision
-    reason = d.reasons[0] if d is not None and d.reasons else None
+    reason = d.reason if d is not None else None
     outside = f"{OUTSIDE_NAME}: {outside_text(state.outside_model_p, figures)}"
     if reason is None or reason.kind == "outside-model":
         return f"{outside}; no listed repair is expected to help"
@@ -225,7 +225,7 @@ def why_line(state) -> str:
         return f"next: {nxt.label} ({cost_text(nxt.cost, unit)})" if nxt is not None else ""
     if state.status == Status.AWAITING_VERIFICATION:
         v = state.verification
-        reason = decision.reasons[0] if decision is not None and decision.reasons else None
+        reason = decision.reason if decision is not None else None
         if reason is not None and reason.kind == "unit-may-work":
             works = dict(reason.probabilities).get("unit works", 0.0)
             return (f"the repair's own check still reads abnormal, but the unit may work ({percent(works)}): "
