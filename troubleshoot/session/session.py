@@ -329,6 +329,15 @@ class SessionView:
             return None
         return top_verification(self.model)
 
+    @property
+    def verifiable(self) -> VerificationRequest | None:
+        """What the technician may verify now, advised or not: the last repair's verification, or the unit in doubt.
+
+        Needs no decision weighed (unlike :attr:`verification_request`, which
+        offers the unit in doubt only when the policy advises trying it).
+        """
+        return self.repair_verification or self.unit_in_doubt
+
     @cached_property
     def confirmed(self) -> bool:
         rec = self.record
@@ -813,8 +822,7 @@ class Session:
                      replace(rec, repairs=rec.repairs + (event_id,)))
 
     def _record_verification(self, outcome: str | int) -> None:
-        # The unit may be tried whenever it is in doubt, advised or not (no decision needed to tell).
-        request = self._view.repair_verification or self._view.unit_in_doubt
+        request = self._view.verifiable
         rec = self._view.record
         if not rec.repairs:
             raise SessionError("nothing has been repaired yet; record a repair before verifying it")
@@ -861,7 +869,7 @@ class Session:
 
     def _acknowledge_caution(self, check_id: str) -> None:
         caution = None
-        request = self._view.repair_verification or self._view.unit_in_doubt
+        request = self._view.verifiable
         if request is not None and request.target == check_id:
             caution = request.caution
         else:
