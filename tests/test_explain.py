@@ -95,11 +95,20 @@ def test_why_p_if_is_suggest_run_again_with_the_finding(path):
                 p_out[o] * finish(
                     session.engine.propagate(session.findings + (_finding(session, check, o),), session.repairs))
                 for o in after)
-            if now["decision"]["reasons"][0]["kind"] == "run-pays":
+            kind = now["decision"]["reasons"][0]["kind"]
+            if kind == "run-pays":
                 # Chosen for a run of checks: no single check pays, and the run's cost is its definition.
                 assert first >= why["cost_repair_now"] - 1e-9 * max(1.0, first)
                 first = _run_cost(suggest, steps, model, settings, finish)
                 runs += 1
+            if kind == "check-before-escalating":
+                # Weighed against the price: after the check, the least of escalating and finishing.
+                price = model.escalation.cost
+                assert why["cost_repair_now"] == pytest.approx(price)
+                first = check.cost + sum(
+                    p_out[o] * min(price, finish(
+                        session.engine.propagate(session.findings + (_finding(session, check, o),), session.repairs)))
+                    for o in after)
             assert abs(why["cost_check_first"] - first) <= 1e-9 * max(1.0, first)
             explained += 1
             outcome = doc["answers"][session.epoch][check.id]

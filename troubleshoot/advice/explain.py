@@ -160,7 +160,7 @@ def _pct(p: float) -> str:
 
 
 def check_reason(row: RankRow, shifts: Sequence[SuspectShift], cost_check_first: float,
-                 cost_repair_now: float, unit: str) -> str:
+                 cost_repair_now: float, unit: str, now_words: str = "repairing now") -> str:
     """One line saying why the check is worth its cost, e.g.
 
     ``5 min to tell Return-air filters clogged (62 %) from Blower belt broken (20 %); expected 210 min
@@ -177,14 +177,14 @@ def check_reason(row: RankRow, shifts: Sequence[SuspectShift], cost_check_first:
         target = "narrow the suspects down"
     if cost_check_first < cost_repair_now:
         tail = (f"; expected {_amount(cost_check_first, unit)} to finish this way against "
-                f"{_amount(cost_repair_now, unit)} repairing now")
+                f"{_amount(cost_repair_now, unit)} {now_words}")
     else:
         tail = "; the best of the checks left"
     return f"{cost} to {target}{tail}"
 
 
 def explain_check(engine: Engine, posterior: AnyPosterior, row: RankRow, cost_check_first: float,
-                  cost_repair_now: float) -> Why:
+                  cost_repair_now: float, now_words: str = "repairing now") -> Why:
     """Why ``row``'s check is recommended: the suspects it separates and the costs weighed.
 
     Parameters
@@ -200,11 +200,14 @@ def explain_check(engine: Engine, posterior: AnyPosterior, row: RankRow, cost_ch
     cost_repair_now : float
         Expected cost to finish without checking: repairing in order, or
         escalating when that is cheaper (:func:`troubleshoot.advice.policy.finish_plan`).
+    now_words : str
+        What finishing without checking is, in words (``escalating now``
+        when the check is weighed against handing the unit over).
 
     Returns
     -------
     Why
     """
     shifts = pick_suspects(suspect_shifts(engine, posterior, row, limit=MAX_SUSPECTS))
-    text = check_reason(row, shifts, cost_check_first, cost_repair_now, posterior.model.cost_unit)
+    text = check_reason(row, shifts, cost_check_first, cost_repair_now, posterior.model.cost_unit, now_words)
     return Why(row.check, text, shifts, float(cost_check_first), float(cost_repair_now))

@@ -443,7 +443,9 @@ class SessionView:
         first = decision.expected_cost
         if first is None or not math.isfinite(first):
             first = cost_of_check_then(self.engine, self.posterior, row, self.candidates, 1, self.settings)
-        return explain_check(self.engine, self.posterior, row, first, now)
+        words = "escalating now" if decision.reason is not None and decision.reason.kind == "check-before-escalating" \
+            else "repairing now"
+        return explain_check(self.engine, self.posterior, row, first, now, words)
 
     @cached_property
     def cost_spent(self) -> float:
