@@ -118,7 +118,7 @@ def test_a_cheap_check_comes_before_escalating_when_it_may_find_a_listed_cause()
     session = Session(model)
     view = session.view
     decision = view.decision
-    assert view.outside_model.p >= model_threshold(model)
+    assert view.outside_model.p >= settings_for(model).isolation_threshold
     assert decision.action == Action.CHECK and decision.reason.kind == "check-before-escalating"
     assert decision.expected_cost < 300.0
     assert dict(decision.reason.costs)["escalate"] == 300.0
@@ -131,7 +131,3 @@ def test_a_cheap_check_comes_before_escalating_when_it_may_find_a_listed_cause()
     assert solution.action(start)[0] == "check"
     ratio, optimum = ratio_to_optimum(model)
     assert optimum < 300.0 and 1.0 - 1e-9 <= ratio and ratio * optimum < 300.0 - 1.0
-
-
-def model_threshold(model: Model) -> float:
-    return settings_for(model).isolation_threshold
