@@ -20,7 +20,7 @@ import pytest
 
 from test_scenarios import SCENARIOS, scenario_model
 from troubleshoot.advice.diagnosis import suspects
-from troubleshoot.advice.policy import finish_plan
+from troubleshoot.advice.policy import cost_of_repair_then, finish_plan
 from troubleshoot.cli import main
 from troubleshoot.commands.suggest import apply_steps, suggestion_json
 from troubleshoot.engine.inference import Engine
@@ -85,9 +85,16 @@ def test_why_p_if_is_suggest_run_again_with_the_finding(path):
                 assert abs(s["p_now"] - p_now[s["id"]]) <= TOL
                 for outcome, again in after.items():
                     assert abs(s["p_if"][outcome] - again[s["id"]]) <= TOL, (path.name, check.id, outcome, s["id"])
-            # The costs weighed, from their definition (myopic: check, then finish).
-            def finish(posterior):
+            # The costs weighed, from their definition (myopic: check, then finish): finishing is
+            # the least of the repair plan and repairing its first suspect, then diagnosing again.
+            def plan_only(posterior):
                 return finish_plan(model, suspects(posterior), settings).best
+
+            def finish(posterior):
+                plan = finish_plan(model, suspects(posterior), settings)
+                if not plan.sequence or not settings.value_after_repair:
+                    return plan.best
+                return min(plan.best, cost_of_repair_then(session.engine, posterior, plan.sequence[0], settings))
 
             assert abs(why["cost_repair_now"] - finish(session.posterior)) <= 1e-9 * max(1.0, why["cost_repair_now"])
             p_out = now["ranking"][[r["id"] for r in now["ranking"]].index(check.id)]["outcomes"]
@@ -97,9 +104,10 @@ def test_why_p_if_is_suggest_run_again_with_the_finding(path):
                 for o in after)
             kind = now["decision"]["reasons"][0]["kind"]
             if kind == "run-pays":
-                # Chosen for a run of checks: no single check pays, and the run's cost is its definition.
+                # Chosen for a run of checks: no single check pays, and the run's cost is its definition
+                # (the run finishes by the repair plan).
                 assert first >= why["cost_repair_now"] - 1e-9 * max(1.0, first)
-                first = _run_cost(suggest, steps, model, settings, finish)
+                first = _run_cost(suggest, steps, model, settings, plan_only)
                 runs += 1
             if kind == "check-before-escalating":
                 # Weighed against the price: after the check, the least of escalating and finishing.

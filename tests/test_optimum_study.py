@@ -166,8 +166,9 @@ def test_a_check_is_weighed_against_escalating_when_no_check_lies_beyond_it():
     assert _optimal_action(model, [(model.top, 1, 0, "complaint")], ()) == ("check", "t_g1")
     # Its figure is the complete lookahead's: the check, then for each outcome the best of
     # finishing (repairs in order, escalation now or later; the plan's first repairs' chance of
-    # failing on checked against enumeration above) and the other check, written out here.
-    from troubleshoot.advice.policy import exact_finish_plan
+    # failing on checked against enumeration above), repairing the first suspect and diagnosing
+    # again, and the other check, written out here.
+    from troubleshoot.advice.policy import cost_of_repair_then, exact_finish_plan, finish_plan_of
 
     engine, posterior = session.engine, session.posterior
     settings = settings_for(model)
@@ -175,6 +176,9 @@ def test_a_check_is_weighed_against_escalating_when_no_check_lies_beyond_it():
     def best_after(findings, left):
         post = engine.propagate(findings, ())
         best = exact_finish_plan(engine, post, settings).best
+        first = finish_plan_of(post, settings).sequence[:1]
+        if first:
+            best = min(best, cost_of_repair_then(engine, post, first[0], settings))
         for check_id in left:
             check = model.check_by_id[check_id]
             total = check.cost

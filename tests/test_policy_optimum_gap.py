@@ -1,4 +1,5 @@
-"""A check before escalating, when the cause is probably outside the model, weighed against the exact optimum.
+"""Where the tool fell short of the exact optimum on cut-down demos: a check before escalating, and a
+repair valued with the diagnosis after it.
 
 References: the exact optimal policy over the tool's protocol
 (``study/optimal.solve``, itself checked against two independent brute-force
@@ -9,7 +10,9 @@ The reduced demo model keeps five basic events and four checks of the
 booster demo (the rest of the file as it is), so the optimum is computed in
 seconds. On it the tool stood at 1.075 times the optimum, escalating at once
 after a failed repair where a 2-minute gauge reading may still find a listed
-cause; 1.061 with the check weighed before escalating.
+cause; 1.061 with the check weighed before escalating; 1.009 with a repair
+valued by what follows it when it fails (the diagnosis again), which took the
+rooftop cut-down from 1.052 to 1.009 as well.
 """
 
 from __future__ import annotations
@@ -98,8 +101,9 @@ def test_after_a_failed_repair_the_tool_reads_a_cheap_gauge_before_escalating_as
                    ("pt_sensing_line", 0, 0, FINDING), (model.top, 1, 1, "verification")), ("tank_precharge_lost",))
     assert solution.action(state) == ("check", "suction_pressure")
     ratio, optimum = ratio_to_optimum(model)
-    # Before: 1.075 (escalating at once there); the optimum is the floor.
-    assert 1.0 - 1e-9 <= ratio <= 1.065, (ratio, optimum)
+    # Before: 1.075 (escalating at once there), 1.061 with the check before escalating alone,
+    # 1.009 with a repair valued by the diagnosis after it too; the optimum is the floor.
+    assert 1.0 - 1e-9 <= ratio <= 1.02, (ratio, optimum)
 
 
 def outside_unit() -> Model:
@@ -131,3 +135,28 @@ def test_a_cheap_check_comes_before_escalating_when_it_may_find_a_listed_cause()
     assert solution.action(start)[0] == "check"
     ratio, optimum = ratio_to_optimum(model)
     assert optimum < 300.0 and 1.0 - 1e-9 <= ratio and ratio * optimum < 300.0 - 1.0
+
+
+ROOFTOP_EVENTS = {"refrigerant_leak", "txv_restricted", "filters_clogged", "contactor_failed", "thermostat_no_call"}
+ROOFTOP_CHECKS = {"compressor_silent", "leak_search", "thermostat_call", "filter_inspect"}
+
+
+def test_a_dear_repair_is_valued_with_the_diagnosis_after_it_so_the_leak_search_comes_first(tmp_path):
+    model = reduced("rooftop_ac.xml", ROOFTOP_EVENTS, ROOFTOP_CHECKS, tmp_path / "rooftop.xml")
+    # Compressor silent, thermostat calling, filters clean: leak 0.58, contactor 0.23, TXV 0.17.
+    # Repairing in order (contactor, then the dear TXV and leak jobs one after the other) was
+    # valued at 280.2 min and chosen; after a failed contactor repair the tool reads the free
+    # symptom again and checks before the dear repairs, so the leak search first costs less.
+    session = Session(model)
+    for check, outcome in (("compressor_silent", 1), ("thermostat_call", 0), ("filter_inspect", 0)):
+        session.record_finding(check, outcome)
+    decision = session.view.decision
+    assert decision.action == Action.CHECK and decision.target == "leak_search"
+    solution = solve(model, max_states=400_000)
+    state = State(((model.top, 1, 0, "complaint"), ("compressor_silent", 1, 0, FINDING),
+                   ("thermostat_call", 0, 0, FINDING), ("filter_inspect", 0, 0, FINDING)), ())
+    assert solution.action(state) == ("check", "leak_search")
+    tool = expected_cost(model, protocol_actor(model, make_strategy("info-per-cost"), settings_for(model),
+                                               Engine(model)), max_states=400_000)
+    # Before: 1.052 times the optimum (measured 1.009 after); the optimum is the floor.
+    assert 1.0 - 1e-9 <= tool / solution.expected_cost <= 1.02, (tool, solution.expected_cost)

@@ -613,3 +613,28 @@ def test_start_without_a_terminal_runs_the_line_mode(model_file, tmp_path):
     assert done.returncode == 0, done.stderr
     assert "status: diagnosing" in done.stdout and "troubleshoot resume" in done.stderr
     assert [r["action"] for r in lines_of(log)[1:]] == [ACTIONS[0]]
+
+
+def test_the_advice_setting_of_a_session_is_logged_and_replayed(tmp_path):
+    # Rooftop demo, the leak repaired, its pressures still abnormal: without a repair valued
+    # by the diagnosis after it the tool tries the unit at once; with it, it reads the free
+    # symptom first. The replay must re-run the session with the setting its header logs.
+    from troubleshoot.advice.policy import settings_for
+    from troubleshoot.model.source import load_any_model
+    from troubleshoot.session import Session
+    from troubleshoot.session.logfile import LogWriter, create_log_file
+
+    model, _ = load_any_model("rooftop")
+    session = Session(model, settings_for(model, value_after_repair=False), model_path=model.source)
+    path, fd = create_log_file(tmp_path / "off.jsonl")
+    session.log = LogWriter(path, fd)
+    session.log.write_header(session)
+    session.record_finding("leak_search", "leak found")
+    session.record_repair("refrigerant_leak")
+    session.record_verification("pressures abnormal")
+    assert session.view.decision.action == "verify"
+    session.close()
+    header = lines_of(tmp_path / "off.jsonl")[0]
+    assert header["settings"]["value_after_repair"] is False
+    report = replay_log(tmp_path / "off.jsonl")
+    assert report.confirmed, report.messages

@@ -797,6 +797,8 @@ def test_a_unit_in_doubt_is_offered_for_trying_and_v_opens_its_verification(tmp_
     session.record_finding("leak_search", "leak found")
     session.record_repair("refrigerant_leak")
     session.record_verification("pressures abnormal")
+    # The free symptom first (the tool reads it before trying the unit: it costs nothing).
+    session.record_finding("compressor_silent", "compressor heard")
     app = TroubleshootApp(session, fresh=False)
     top = session.model.top
 

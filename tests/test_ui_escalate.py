@@ -199,6 +199,8 @@ def test_the_escalation_card_names_trying_a_unit_in_doubt_as_the_advice(tmp_path
     session.record_finding("leak_search", "leak found")
     session.record_repair("refrigerant_leak")
     session.record_verification("pressures abnormal")
+    # The free symptom first (the tool reads it before trying the unit: it costs nothing).
+    session.record_finding("compressor_silent", "compressor heard")
     text = escalation_card_text(session.state, session.model)
     assert "The tool advises trying the unit first (it may work already) instead (expected " in text
     assert "Price: 720 min" in text

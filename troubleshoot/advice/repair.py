@@ -422,18 +422,24 @@ class RepairPlan:
         Entry k: P(the unit still fails after the first k repairs), the
         chance that repair k + 1 is made (entry 0 is 1; the last is
         ``outside_p``).
+    diagnosed_after_first : float
+        Expected cost of making the first repair and, if the unit still
+        fails, diagnosing again (``advice.policy.cost_of_repair_then``); inf
+        when not weighed. Finishing by repairs costs the least of it and the
+        entries k >= 1.
     """
 
     sequence: tuple[str, ...]
     cost_of_stopping_after: tuple[float, ...]
     outside_p: float
     reached: tuple[float, ...] = ()
+    diagnosed_after_first: float = math.inf
 
     @property
     def repair_cost(self) -> float:
         """Least expected cost of finishing that starts with a repair (inf if there is none)."""
         costs = self.cost_of_stopping_after[1:]
-        return min(costs) if costs else math.inf
+        return min(min(costs) if costs else math.inf, self.diagnosed_after_first)
 
     @property
     def escalate_cost(self) -> float:
@@ -449,8 +455,8 @@ class RepairPlan:
 
     @property
     def best(self) -> float:
-        """Least expected cost to finish by repairing and escalating (no more checks)."""
-        return min(self.cost_of_stopping_after)
+        """Least expected cost to finish by repairing and escalating (no more checks before the first repair)."""
+        return min(min(self.cost_of_stopping_after), self.diagnosed_after_first)
 
 
 def repair_plan(model: Model, ranked, group_min_p: float, escalation_cost: float | None) -> RepairPlan:

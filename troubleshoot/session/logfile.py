@@ -144,6 +144,7 @@ def header_record(session: Session, version: int = LOG_FORMAT_VERSION) -> dict:
             "value_lookahead": session.settings.value_lookahead,
             "value_depth": session.settings.value_depth,
             "value_run": session.settings.value_run,
+            "value_after_repair": session.settings.value_after_repair,
         },
         "time": utc_now(),
         "job": dict(getattr(session, "job", None) or {}),
@@ -564,6 +565,8 @@ def _header_problem(header: dict) -> str | None:
     for key in ("value_lookahead", "value_depth", "value_run"):
         if key in settings and not _is_count(settings[key]):
             return f"header setting {key!r} must be a whole number, not {settings[key]!r}"
+    if "value_after_repair" in settings and not isinstance(settings["value_after_repair"], bool):
+        return f"header setting 'value_after_repair' must be true or false, not {settings['value_after_repair']!r}"
     return _snapshot_problem(header)
 
 

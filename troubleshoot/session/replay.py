@@ -264,7 +264,8 @@ def _settings_from(contents: LogContents, model: Model) -> SessionSettings:
     s = contents.header.get("settings") or {}
     try:
         return settings_for(model, s.get("isolation_threshold"), s.get("min_bits"), s.get("group_min_p"),
-                            s.get("value_lookahead"), s.get("value_depth"), s.get("value_run"))
+                            s.get("value_lookahead"), s.get("value_depth"), s.get("value_run"),
+                            s.get("value_after_repair"))
     except SessionError as exc:
         raise LogError(f"{contents.path}:1: bad settings in the header: {exc}") from None
 

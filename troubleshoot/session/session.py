@@ -79,7 +79,7 @@ from troubleshoot.advice.policy import (
     cost_of_check_then,
     decide,
     escalation_price,
-    finish_plan,
+    finish_now,
     outside_model,
 )
 from troubleshoot.advice.policy import Settings as SessionSettings
@@ -439,7 +439,7 @@ class SessionView:
         costs = dict(decision.reason.costs) if decision.reason is not None else {}
         now = costs.get("finish without checking")
         if now is None:
-            now = finish_plan(self.model, self.suspects, self.settings).best
+            now = finish_now(self.engine, self.posterior, self.settings)
         first = decision.expected_cost
         if first is None or not math.isfinite(first):
             first = cost_of_check_then(self.engine, self.posterior, row, self.candidates, 1, self.settings)
