@@ -63,7 +63,6 @@ import enum
 import math
 import weakref
 from dataclasses import dataclass, replace
-from functools import partial
 
 import numpy as np
 
@@ -387,18 +386,18 @@ def _after_failed_repair(engine: Engine, posterior: AnyPosterior, settings: Sett
     """Least of escalating, repairing in order and one check then either, every check open (a repair opens them)."""
     model = posterior.model
     checks = tuple(c.id for c in model.checks + model.symptoms)
-    leaf = partial(_finish_or_escalate, price=escalation_price(model))
-    best = leaf(engine, posterior, checks, 0, settings)
+    best = _finish_at_once(engine, posterior, checks, 0, settings)
     for row in rank(posterior, checks).worth_doing(settings.min_bits)[: settings.value_lookahead]:
-        best = min(best, cost_of_check_then(engine, posterior, row, checks, 1, settings, bound=best, then=leaf))
+        best = min(best, cost_of_check_then(engine, posterior, row, checks, 1, settings, bound=best,
+                                            then=_finish_at_once))
     return best
 
 
-def _finish_or_escalate(engine: Engine, posterior: AnyPosterior, candidates: tuple[str, ...], depth: int,
-                        settings: Settings, price: float | None) -> float:
-    """The least of finishing by repairs first (:func:`finish_value`) and escalating at once (if priced)."""
-    value = finish_value(finish_plan_of(posterior, settings))
-    return value if price is None else min(value, price)
+def _finish_at_once(engine: Engine, posterior: AnyPosterior, candidates: tuple[str, ...], depth: int,
+                    settings: Settings) -> float:
+    """The repair plan's best (:attr:`RepairPlan.best`: repairing in order, escalating now or later), as a
+    leaf of :func:`cost_of_check_then`."""
+    return finish_plan_of(posterior, settings).best
 
 
 def cost_of_check_then(engine: Engine, posterior: AnyPosterior, row: RankRow, candidates: tuple[str, ...],
@@ -852,8 +851,8 @@ def complete_cost(engine: Engine, posterior: AnyPosterior, candidates: tuple[str
     step ahead undervalues the checks after it, :func:`finish_value`)
     does not hold.
     """
-    best = min(exact_finish_plan(engine, posterior, settings).best,
-               _repair_then(engine, posterior, finish_plan_of(posterior, settings), settings))
+    plan = exact_finish_plan(engine, posterior, settings)  # the order of finish_plan_of, its first repair too
+    best = min(plan.best, _repair_then(engine, posterior, plan, settings))
     if depth <= 0:
         return best
     for row in rank(posterior, candidates).worth_doing(settings.min_bits)[:FULL_HORIZON]:
