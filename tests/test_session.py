@@ -15,8 +15,10 @@ import math
 import pytest
 
 import bruteforce as bf
+from troubleshoot.advice import policy
 from troubleshoot.errors import ImpossibleFindings, SessionError, TroubleshootError
 from troubleshoot.engine.inference import Engine, Finding
+from troubleshoot.model.source import load_any_model
 from troubleshoot.model import BasicEvent, Cause, Check, Gate, Model, Repair, Verification
 from troubleshoot.session.actions import AddNote, RecordFinding, RecordRepair, SkipCheck
 from troubleshoot.session import (
@@ -144,6 +146,55 @@ def test_a_unit_in_doubt_after_its_repairs_own_check_read_abnormal_is_tried_firs
     s.record_verification("flows")
     assert s.status == CONFIRMED
     assert s.state.cost_spent == pytest.approx(4 + 120 + 4 + 2)
+
+
+def test_the_lookahead_from_a_unit_in_doubt_counts_trying_the_unit():
+    # After the impeller with the flow gauge still low, finishing at once may be trying the
+    # unit (2 min) and, only if it still fails, going on: v + P(fails | e) * F(e, fails).
+    # Before, every leaf of the lookahead took the unit to fail, so a check was valued as if
+    # the unit surely failed after it.
+    model = pump_model()
+    s = Session(model)
+    s.record_finding("flow", "flow low")
+    s.record_repair("impeller")
+    s.record_verification("flow low")
+    view = s.view
+    doubt = view.posterior
+    findings = [Finding("top", 1, 0), Finding("flow", 1, 0), Finding("flow", 1, 1)]
+    # Reference: tests/bruteforce.py, P(top event at epoch 1 | findings) by enumeration.
+    p_fails = bf.posterior(model, findings, ("impeller",))["marginals"]["top"]
+    failing = view.engine.propagate(tuple(doubt.findings) + (Finding("top", 1, 1),), doubt.repairs)
+    finish_failing = policy.cost_to_finish(view.engine, failing, view.candidates, 0, view.settings)
+    trying = model.verification.cost + p_fails * finish_failing
+    plan = policy.finish_plan_of(doubt, view.settings)
+    without = min(policy.finish_value(plan), policy.cost_of_repair_then(view.engine, doubt, plan.sequence[0],
+                                                                         view.settings))
+    assert trying < without
+    assert policy.cost_to_finish(view.engine, doubt, view.candidates, 0, view.settings) == pytest.approx(
+        trying, rel=1e-9)
+
+
+def test_a_unit_in_doubt_is_weighed_against_the_cheapest_other_course():
+    # The rooftop demo (illustrative figures): leak found and repaired, the pressures still
+    # abnormal, the compressor heard running. Trying the unit is advised; the figure it is
+    # compared with was the free airflow symptom's, 544 min (its lookahead took the unit to
+    # fail), while repairing the filters was 235 min. The comparison is with the least of the
+    # other courses.
+    model, _ = load_any_model("rooftop")
+    s = Session(model)
+    s.acknowledge_caution("leak_search")
+    s.record_finding("leak_search", "leak found")
+    s.record_repair("refrigerant_leak")
+    s.acknowledge_caution("refrigerant_pressures")
+    s.record_verification(1)
+    s.record_finding("compressor_silent", 0)
+    decision = s.view.decision
+    assert decision.action == "verify" and decision.reasons[0].kind == "unit-may-work"
+    others = [a.expected_cost for a in decision.alternatives if a.action != "verify"]
+    going_on = dict(decision.reasons[0].costs)["go on without verifying"]
+    assert going_on == pytest.approx(min(others), rel=1e-12)
+    repair = next(a for a in decision.alternatives if a.action == "repair")
+    assert going_on <= repair.expected_cost
 
 
 def test_verify_check_still_abnormal_sends_the_diagnosis_on():

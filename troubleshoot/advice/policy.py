@@ -313,7 +313,8 @@ def cost_to_finish(engine: Engine, posterior: AnyPosterior, candidates: tuple[st
     myopic rule is depth 1).
     """
     plan = finish_plan_of(posterior, settings)
-    best = min(finish_value(plan), _repair_then(engine, posterior, plan, settings))
+    best = min(finish_value(plan), _repair_then(engine, posterior, plan, settings),
+               _try_unit(engine, posterior, candidates, settings))
     if depth <= 0:
         return best
     for row in rank(posterior, candidates).worth_doing(settings.min_bits)[: settings.value_lookahead]:
@@ -380,6 +381,31 @@ def _repair_then(engine: Engine, posterior: AnyPosterior, plan: RepairPlan, sett
     if not plan.sequence or not settings.value_after_repair:
         return math.inf
     return cost_of_repair_then(engine, posterior, plan.sequence[0], settings)
+
+
+def _try_unit(engine: Engine, posterior: AnyPosterior, candidates: tuple[str, ...], settings: Settings) -> float:
+    """Trying a unit in doubt, then finishing at once if it still fails: v + P(fails | e) * F(e, fails).
+
+    inf when the unit is known to fail now (a finding on the top event since
+    the last repair), which it is everywhere but after a repair whose own
+    check read abnormal and before the unit is tried (:func:`weigh_unit_check`).
+
+    Notes
+    -----
+    Without it the lookahead from a unit in doubt valued every outcome of
+    a check as if the unit surely failed: on the rooftop demo, after the
+    leak repair with the pressures still abnormal and the compressor heard,
+    the free airflow symptom was valued at 544 min while repairing the
+    filters (then trying the unit, which works with P = 0.62) was 235 min.
+    """
+    model = posterior.model
+    if any(f.target == model.top and f.epoch == posterior.epoch for f in posterior.findings):
+        return math.inf
+    p_fails, failing = _given(engine, posterior, (Finding(model.top, 1, posterior.epoch),))
+    value = top_verification(model).cost
+    if failing is not None and p_fails > 0.0:
+        value += p_fails * cost_to_finish(engine, failing, candidates, 0, settings)
+    return value
 
 
 def _after_failed_repair(engine: Engine, posterior: AnyPosterior, settings: Settings) -> float:
@@ -852,7 +878,8 @@ def complete_cost(engine: Engine, posterior: AnyPosterior, candidates: tuple[str
     does not hold.
     """
     plan = exact_finish_plan(engine, posterior, settings)  # the order of finish_plan_of, its first repair too
-    best = min(plan.best, _repair_then(engine, posterior, plan, settings))
+    best = min(plan.best, _repair_then(engine, posterior, plan, settings),
+               _try_unit(engine, posterior, candidates, settings))
     if depth <= 0:
         return best
     for row in rank(posterior, candidates).worth_doing(settings.min_bits)[:FULL_HORIZON]:
