@@ -130,3 +130,42 @@ def test_a_check_advised_above_the_escalation_price_says_why():
     card = escalation_card_text(free.state, model)
     assert "The check costs nothing: escalating after it costs no more than escalating now." in card
     assert "none after them" not in card
+
+
+@pytest.mark.parametrize("faults", [("p1_coupling_broken", "p2_air_bound"),
+                                    ("p2_coupling_broken", "p3_check_valve_stuck_closed")])
+def test_two_pumps_down_at_once_are_found_before_the_contractor_is_called(faults):
+    # The booster demo with its price (a contractor's visit, 600 min; illustrative). Two of
+    # three pumps down at once stop the station (a 2-out-of-3 gate) and, until a second pump's
+    # checks are read, look like a cause outside the model: after a failed repair and ten normal
+    # readings, repairing in order was valued above the price and the tool handed the station
+    # over (675 min with the visit). Looking two checks deep before handing over, it reads a
+    # third pump's valves and a pump's hydraulic check and repairs a pump that restores two.
+    # Reference: every outcome is what the fault tree gives with these faults
+    # (tests/bruteforce.evaluate through test_scenarios.noise_free_outcomes), not the engine.
+    from test_scenarios import noise_free_outcomes
+    from troubleshoot.model.demos import demo_path
+    from troubleshoot.session import AWAITING_VERIFICATION, DIAGNOSING
+
+    model = load_model(demo_path("booster"))
+    assert model.escalation is not None and model.escalation.cost == 600.0
+    session = Session(model)
+    kinds = []
+    for _ in range(100):
+        state = session.state
+        truth = noise_free_outcomes(model, set(faults), session.repairs)
+        decision = state.decision
+        kinds.append(decision.reason.kind)
+        if state.status == DIAGNOSING:
+            session.record_finding(decision.target, truth[decision.target])
+        elif state.status == AWAITING_VERIFICATION:
+            target = state.verification.target
+            session.record_verification(int(truth[target]) if target == model.top else truth[target])
+        elif decision.action == Action.REPAIR:
+            session.record_repair(decision.target)
+        else:
+            break
+    assert session.status == "confirmed", kinds
+    assert session.repairs[-1] in faults
+    assert "check-before-escalating" in kinds
+    assert float(session.state.cost_spent) < model.escalation.cost

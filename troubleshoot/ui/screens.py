@@ -631,7 +631,7 @@ def escalation_card_text(state, model, figures: bool = False) -> str:
                 and model.escalation is not None and d.expected_cost > model.escalation.cost):
             lines.append("The check costs nothing: escalating after it costs no more than escalating now.")
         elif reason is not None and reason.kind == "check-before-escalating":
-            lines.append("The cause is probably outside the model, but this check may still find a listed one; "
+            lines.append("Before handing over, this check may still find a listed cause; "
                          "its figure counts escalating after it if it does not.")
         elif reason is not None and d is not None and d.action == "check" and "escalate" in dict(reason.costs):
             # The reason weighed the check against the price (advice/policy._check_reason).
