@@ -124,17 +124,22 @@ def test_verify_check_named_by_the_repair():
     assert s.findings[-1] == Finding(s.model.top, 0, 1)
 
 
-def test_a_unit_in_doubt_after_its_repairs_own_check_read_abnormal_is_tried_first():
-    # Only the impeller makes the flow gauge read low: read low again after the impeller was
-    # replaced, it is most likely the gauge's false alarm (1 %), and the unit may well work.
+def pump_in_doubt() -> tuple[Model, Session, float]:
+    """The pump after the impeller was replaced with the flow gauge still reading low, and
+    P(it still fails) by enumeration (tests/bruteforce.py, the top event at epoch 1)."""
     model = pump_model()
     s = Session(model)
     s.record_finding("flow", "flow low")
     s.record_repair("impeller")
     s.record_verification("flow low")
     findings = [Finding("top", 1, 0), Finding("flow", 1, 0), Finding("flow", 1, 1)]
-    # Reference: tests/bruteforce.py, P(top event at epoch 1 | findings) by enumeration.
-    p_fails = bf.posterior(model, findings, ("impeller",))["marginals"]["top"]
+    return model, s, bf.posterior(model, findings, ("impeller",))["marginals"]["top"]
+
+
+def test_a_unit_in_doubt_after_its_repairs_own_check_read_abnormal_is_tried_first():
+    # Only the impeller makes the flow gauge read low: read low again after the impeller was
+    # replaced, it is most likely the gauge's false alarm (1 %), and the unit may well work.
+    model, s, p_fails = pump_in_doubt()
     assert 0.0 < p_fails < 0.5
     st = s.state
     assert st.status == AWAITING_VERIFICATION
@@ -153,16 +158,9 @@ def test_the_lookahead_from_a_unit_in_doubt_counts_trying_the_unit():
     # unit (2 min) and, only if it still fails, going on: v + P(fails | e) * F(e, fails).
     # Before, every leaf of the lookahead took the unit to fail, so a check was valued as if
     # the unit surely failed after it.
-    model = pump_model()
-    s = Session(model)
-    s.record_finding("flow", "flow low")
-    s.record_repair("impeller")
-    s.record_verification("flow low")
+    model, s, p_fails = pump_in_doubt()
     view = s.view
     doubt = view.posterior
-    findings = [Finding("top", 1, 0), Finding("flow", 1, 0), Finding("flow", 1, 1)]
-    # Reference: tests/bruteforce.py, P(top event at epoch 1 | findings) by enumeration.
-    p_fails = bf.posterior(model, findings, ("impeller",))["marginals"]["top"]
     failing = view.engine.propagate(tuple(doubt.findings) + (Finding("top", 1, 1),), doubt.repairs)
     finish_failing = policy.cost_to_finish(view.engine, failing, view.candidates, 0, view.settings)
     trying = model.verification.cost + p_fails * finish_failing
