@@ -778,7 +778,7 @@ def _diagnose(engine: Engine, posterior: AnyPosterior, settings: Settings, candi
                 + (f"repairing in order ({_money(plan.repair_cost, unit)})" if repair is not None
                    else "anything left to repair"))
         first_check = _check_first(engine, posterior, ranking, candidates, settings, price, outside, group_ids,
-                                   alts, text)
+                                   alts, text, ESCALATION_DEPTH)
         if first_check is not None:
             return first_check
         reason = Reason("escalation-cheaper", text,
@@ -808,13 +808,13 @@ def _diagnose(engine: Engine, posterior: AnyPosterior, settings: Settings, candi
 
 def _check_first(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candidates: tuple[str, ...],
                  settings: Settings, price: float, outside: OutsideModel, group_ids: tuple[str, ...],
-                 alternatives: list[Alternative], lead: str) -> Decision | None:
+                 alternatives: list[Alternative], lead: str, depth: int = 1) -> Decision | None:
     """The decision to do a check before escalating (:func:`_check_before_escalating`), or None when none pays.
 
     ``lead`` says why escalating was the course before the check was weighed;
-    ``alternatives`` are the other courses weighed.
+    ``alternatives`` are the other courses weighed; ``depth`` how many checks deep to look.
     """
-    row, ahead = _check_before_escalating(engine, posterior, ranking, candidates, settings, price)
+    row, ahead = _check_before_escalating(engine, posterior, ranking, candidates, settings, price, depth)
     if row is None:
         return None
     unit = posterior.model.cost_unit
@@ -981,19 +981,21 @@ def _best_check(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candi
     return None, math.inf, False
 
 
-#: How many checks deep the tool looks before handing a unit over (every informative check at the first).
+#: How many checks deep the tool looks before a hand-over by cost alone (every informative check at the first).
 ESCALATION_DEPTH = 2
 
 
 def _check_before_escalating(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candidates: tuple[str, ...],
-                             settings: Settings, price: float) -> tuple[RankRow | None, float]:
+                             settings: Settings, price: float, depth: int = 1) -> tuple[RankRow | None, float]:
     """Before handing a unit over, the check worth doing first, if one is, with its expected cost to finish.
 
-    Of every informative check, the one with the least expected cost of
+    Of the informative checks, the one with the least expected cost of
     doing it and then, per outcome, the least of escalating, finishing
-    (:func:`cost_to_finish` with no check after it) and, down to
-    :data:`ESCALATION_DEPTH` checks, one of the ``value_lookahead``
-    best-scoring checks followed the same way; if that is below the price.
+    (:func:`cost_to_finish` with no check after it) and, down to ``depth``
+    checks, one of the ``value_lookahead`` best-scoring checks followed the
+    same way; if that is below the price. One check deep, the
+    ``value_lookahead`` best-scoring checks (at least
+    :data:`FULL_HORIZON`) are weighed; deeper, every informative check.
     A cheap check that may still find a listed cause (probability p,
     finishing at F) pays when c + p F + (1 - p) E < E. With no price
     escalating is no course weighed by cost, so nothing is weighed against it.
@@ -1004,12 +1006,15 @@ def _check_before_escalating(engine: Engine, posterior: AnyPosterior, ranking: R
     basic events and four checks: after a failed repair with every check
     normal (P outside 0.94) the tool escalated at once, where reading the
     2-minute suction gauge is expected to cost 578.7 min against 600; the
-    tool went from 1.075 to 1.061 times the optimum there. Two checks deep,
-    over every check: on the booster demo, where two pumps down at once
-    (two of three needed) look like a cause outside the model until a
-    second pump's checks are read, the tool handed fewer listed faults
-    over (``simulate booster --cases 200 --seed 1``: 293.7 min to 284.4);
-    a handover is weighed once or twice a unit, so the search is affordable.
+    tool went from 1.075 to 1.061 times the optimum there. Before a
+    hand-over by cost alone (``escalation-cheaper``), :data:`ESCALATION_DEPTH`
+    checks deep over every check: on the booster demo, where two pumps down
+    at once (two of three needed) look like a cause outside the model until
+    a second pump's checks are read, the tool handed fewer listed faults
+    over (``simulate booster --cases 200 --seed 1``: 293.7 min to 284.4,
+    the tool's CPU 65 s to 155 s). With the cause probably outside the
+    model, two deep over every check changed no figure on either demo and
+    cost rooftop's simulation 1.4 times its CPU, so there it stays one deep.
     """
     if settings.value_lookahead <= 0:
         return None, math.inf
@@ -1023,7 +1028,9 @@ def _check_before_escalating(engine: Engine, posterior: AnyPosterior, ranking: R
         return best
 
     rows = ranking.worth_doing(settings.min_bits)
-    return _cheapest_check(engine, posterior, rows, candidates, ESCALATION_DEPTH, settings, price, then=then)
+    if depth <= 1:
+        rows = rows[: max(settings.value_lookahead, FULL_HORIZON)]
+    return _cheapest_check(engine, posterior, rows, candidates, depth, settings, price, then=then)
 
 
 def _cheapest_check(engine: Engine, posterior: AnyPosterior, rows, candidates: tuple[str, ...], depth: int,
