@@ -1012,7 +1012,7 @@ def _check_before_escalating(engine: Engine, posterior: AnyPosterior, ranking: R
     at once (two of three needed) look like a cause outside the model until
     a second pump's checks are read, the tool handed fewer listed faults
     over (``simulate booster --cases 200 --seed 1``: 293.7 min to 284.4,
-    the tool's CPU 65 s to 155 s). With the cause probably outside the
+    the tool's CPU 52 s to 136 s, a hand-over weighed in about 1.5 to 2 s). With the cause probably outside the
     model, two deep over every check changed no figure on either demo and
     cost rooftop's simulation 1.4 times its CPU, so there it stays one deep.
     """
