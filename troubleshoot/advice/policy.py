@@ -401,11 +401,16 @@ def _try_unit(engine: Engine, posterior: AnyPosterior, candidates: tuple[str, ..
     model = posterior.model
     if any(f.target == model.top and f.epoch == posterior.epoch for f in posterior.findings):
         return math.inf
-    p_fails, failing = _given(engine, posterior, (Finding(model.top, 1, posterior.epoch),))
-    value = top_verification(model).cost
-    if failing is not None and p_fails > 0.0:
-        value += p_fails * cost_to_finish(engine, failing, candidates, 0, settings)
-    return value
+    return _unit_tried(engine, posterior, candidates, settings, top_verification(model).cost, 0)[1]
+
+
+def _unit_tried(engine: Engine, posterior: AnyPosterior, candidates: tuple[str, ...], settings: Settings,
+                cost: float, depth: int) -> tuple[float, float]:
+    """P(the unit still fails | e), and the expected cost of trying it (``cost``) and, if it still fails,
+    finishing looking ``depth`` checks ahead: cost + P(fails | e) * cost_to_finish(e + fails, depth)."""
+    p_fails, failing = _given(engine, posterior, (Finding(posterior.model.top, 1, posterior.epoch),))
+    then = cost_to_finish(engine, failing, candidates, depth, settings) if failing is not None and p_fails > 0.0 else 0.0
+    return p_fails, cost + p_fails * then
 
 
 def _after_failed_repair(engine: Engine, posterior: AnyPosterior, settings: Settings) -> float:
@@ -825,7 +830,7 @@ def _check_first(engine: Engine, posterior: AnyPosterior, ranking: Ranking, cand
                            ("finish without checking", price), ("escalate", price)),
                     probabilities=tuple(zip(row.outcomes, row.p_outcomes)) + (("outside the model", outside.p),),
                     suspects=group_ids)
-    alts = _sorted([a for a in alternatives if a.action != Action.CHECK] + [Alternative(Action.CHECK, row.check, ahead)])
+    alts = _sorted(alternatives + [Alternative(Action.CHECK, row.check, ahead)])
     return Decision(Action.CHECK, row.check, ahead, tuple(alts), (reason,), Status.DIAGNOSING, row, outside, unit)
 
 
@@ -855,9 +860,7 @@ def weigh_unit_check(engine: Engine, posterior: AnyPosterior, settings: Settings
     """
     model = posterior.model
     unit = model.cost_unit
-    p_fails, failing = _given(engine, posterior, (Finding(model.top, 1, posterior.epoch),))
-    then = cost_to_finish(engine, failing, candidates, 1, settings) if failing is not None and p_fails > 0.0 else 0.0
-    verify_cost = unit_check.cost + p_fails * then
+    p_fails, verify_cost = _unit_tried(engine, posterior, candidates, settings, unit_check.cost, 1)
     verify = Alternative(Action.VERIFY, unit_check.target, verify_cost)
     going_on = math.inf if decision.expected_cost is None else decision.expected_cost
     alternatives = tuple(_sorted(list(decision.alternatives) + [verify]))
@@ -1012,9 +1015,10 @@ def _check_before_escalating(engine: Engine, posterior: AnyPosterior, ranking: R
     at once (two of three needed) look like a cause outside the model until
     a second pump's checks are read, the tool handed fewer listed faults
     over (``simulate booster --cases 200 --seed 1``: 293.7 min to 284.4,
-    the tool's CPU 52 s to 136 s, a hand-over weighed in about 1.5 to 2 s). With the cause probably outside the
-    model, two deep over every check changed no figure on either demo and
-    cost rooftop's simulation 1.4 times its CPU, so there it stays one deep.
+    the tool's CPU 52 s to 136 s, a hand-over weighed in about 1.5 to
+    2 s). With the cause probably outside the model, two deep over every
+    check changed no figure on either demo and cost rooftop's simulation
+    1.4 times its CPU, so there it stays one deep.
     """
     if settings.value_lookahead <= 0:
         return None, math.inf
