@@ -29,7 +29,7 @@ def add_parser(subparsers, name):
         name,
         help="compare strategies with the exact optimal policy on generated small models",
         description="Generate seeded models of 5 to 8 basic events with unlisted causes, a priced escalation "
-                    "and two noisy checks; for each, compute the exact optimal expected cost (the tool's "
+                    "and two noisy checks (three with --family part); for each, compute the exact optimal expected cost (the tool's "
                     "protocol: checks and repairs interleaved, escalation an action) and each strategy's exact "
                     "expected cost on the same protocol; print the ratios, their mean and the worst.",
     )
@@ -74,7 +74,8 @@ def run(args) -> int:
                          "at_optimum": sum(1 for x in ratios if x <= 1 + 1e-9)}
     if args.json:
         print(json.dumps({
-            "seed": args.seed, "family": args.family, "models": len(solved), "skipped": len(rows) - len(solved), "cost_unit": "min",
+            "seed": args.seed, "family": args.family, "models": len(solved), "skipped": len(rows) - len(solved),
+            "cost_unit": "min",
             "rows": [{"model": r.model, "basic_events": r.basic_events, "checks": r.checks,
                       "unlisted_causes": r.unlisted, "optimal_expected_cost": r.optimal,
                       "exact_expected_cost": dict(r.costs), "states": r.states, "skipped": r.skipped}
