@@ -150,10 +150,11 @@ def test_optimum_study_of_the_part_family_says_so_and_studies_three_checks(capsy
             assert row["exact_expected_cost"]["info-per-cost"] >= row["optimal_expected_cost"] - TOLERANCE
 
 
-# Measured by `troubleshoot optimum-study --family part --models 30 --seed 1` (README). 320236
-# is the known gap (1.0674): a part of a subsystem tested normal is read before the repair;
-# the bound here keeps it from growing, not the 1.03.
-@pytest.mark.parametrize("seed, factor", [(371036, 1.0), (57636, 1.0), (320236, 1.07)])
+# Measured by `troubleshoot optimum-study --family part --models 30 --seed 1` (README). On 320236
+# the tool read a part of a subsystem tested normal before the repair (1.0674); a check that
+# reads only parts which cannot matter now is left out (advice/policy.reads_only_idle_parts):
+# 1.0086, within the 1.03.
+@pytest.mark.parametrize("seed, factor", [(371036, 1.0), (57636, 1.0), (320236, 1.03)])
 def test_policy_on_part_check_models_is_within_the_measured_factor_of_the_optimum(seed, factor):
     model = part_check_model(seed)
     best, tool = _tool_and_optimum(model)

@@ -5,7 +5,8 @@ model (through its engine), the posterior after the findings and repairs so
 far, the checks still available and the settings, it weighs
 
 - the best few checks by bits per cost, each followed by the best way to
-  finish (one check, or two, ahead),
+  finish (one check, or two, ahead), leaving out a check that reads only
+  parts which cannot matter now (:func:`reads_only_idle_parts`),
 - repairing the next suspect in the repair order (and, when escalation has
   a price, escalating after some of the repairs), and
 - escalating at once (the cause may lie outside the model),
@@ -62,7 +63,9 @@ from __future__ import annotations
 import enum
 import math
 import weakref
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
+from typing import Protocol
 
 import numpy as np
 
@@ -81,6 +84,7 @@ from troubleshoot.advice.repair import (
 from troubleshoot.engine.inference import AnyPosterior, Engine, Finding
 from troubleshoot.errors import ImpossibleFindings, SessionError
 from troubleshoot.model import DERIVED, Model
+from troubleshoot.model.gates import gate_values
 
 #: Default: a check giving less than this many bits is not worth doing.
 DEFAULT_MIN_BITS = 0.01
@@ -89,6 +93,13 @@ DEFAULT_GROUP_MIN_P = 0.05
 DEFAULT_VALUE_LOOKAHEAD = 3
 DEFAULT_VALUE_DEPTH = 1
 DEFAULT_VALUE_RUN = 8
+
+
+class CheckList(Protocol):
+    """What the decision reads of a ranking: the checks worth doing, best first (a :class:`Ranking`, or
+    one less the checks that cannot matter now)."""
+
+    def worth_doing(self, min_bits: float) -> Sequence[RankRow]: ...
 
 
 class Status(enum.StrEnum):
@@ -458,7 +469,7 @@ def cost_of_check_then(engine: Engine, posterior: AnyPosterior, row: RankRow, ca
 
 
 def sequence_value(engine: Engine, posterior: AnyPosterior, candidates: tuple[str, ...], settings: Settings,
-                   ranking: Ranking | None = None, bound: float = math.inf) -> tuple[float, int]:
+                   ranking: CheckList | None = None, bound: float = math.inf) -> tuple[float, int]:
     """Expected cost of a run of checks in bits-per-cost order, stopping at the first abnormal one, then finishing.
 
     The run: the check with the most bits per cost; if it reads normal, the
@@ -554,7 +565,7 @@ class Reason:
     kind : str
         ``confirmed``, ``verify``, ``unit-may-work``, ``free-check``, ``check-pays``,
         ``run-pays``, ``check-before-escalating``, ``bits-only``, ``isolated``, ``outside-model``, ``repair-cheaper``,
-        ``escalation-cheaper``, ``no-check-left``, ``nothing-left``.
+        ``escalation-cheaper``, ``no-check-left``, ``no-check-matters``, ``nothing-left``.
     text : str
         One short sentence for a technician.
     costs : tuple of (str, float)
@@ -711,6 +722,8 @@ def _diagnose(engine: Engine, posterior: AnyPosterior, settings: Settings, candi
     unit = model.cost_unit
     ranked = suspects(posterior) if ranked is None else ranked
     ranking = rank(posterior, candidates) if ranking is None else ranking
+    # The checks weighed: those worth doing, less those that read only parts that cannot matter now.
+    shortlist = _WithoutIdleChecks(engine, posterior, ranking)
     plan = finish_plan(model, ranked, settings)
     isolated = isolated_suspect(ranked, settings.isolation_threshold)
     price = escalation_price(model)
@@ -724,7 +737,7 @@ def _diagnose(engine: Engine, posterior: AnyPosterior, settings: Settings, candi
     # The cause lies outside the model: no listed repair is expected to help.
     if outside.p >= settings.isolation_threshold or (isolated is not None and isolated.unlisted):
         if price is not None:
-            first_check = _check_first(engine, posterior, ranking, candidates, settings, price, outside, group_ids,
+            first_check = _check_first(engine, posterior, shortlist, candidates, settings, price, outside, group_ids,
                                        [escalate] + ([repair] if repair is not None else []),
                                        f"the cause is probably outside the model (P = {outside.p:.2f})")
             if first_check is not None:
@@ -744,19 +757,19 @@ def _diagnose(engine: Engine, posterior: AnyPosterior, settings: Settings, candi
 
     finish = finish_value(plan)
     check_row, check_cost, bits_only, run = None, math.inf, False, 1
-    worth = ranking.worth_doing(settings.min_bits) if isolated is None else ()
-    if worth and len(worth) <= FULL_HORIZON and settings.value_lookahead > 0 and price is not None:
+    worth = shortlist.worth_doing(settings.min_bits) if isolated is None else ()
+    if worth and len(worth[:FULL_HORIZON + 1]) <= FULL_HORIZON and settings.value_lookahead > 0 and price is not None:
         # Every informative check left lies within the horizon: nothing beyond it
         # is undervalued, so escalating at once is weighed as any other course.
         finish = plan.best
         check_row, check_cost = _cheapest_check(engine, posterior, worth, candidates, len(worth), settings, finish,
                                                 then=complete_cost)
     elif isolated is None:
-        check_row, check_cost, bits_only = _best_check(engine, posterior, ranking, candidates, settings, finish)
+        check_row, check_cost, bits_only = _best_check(engine, posterior, shortlist, candidates, settings, finish)
         if check_row is None and worth and settings.value_lookahead > 0 and settings.value_run > 1:
             # One check ahead undervalues a run of checks (each covering a
             # small share of the suspects): weigh the run too.
-            run_cost, run = sequence_value(engine, posterior, candidates, settings, ranking, bound=finish)
+            run_cost, run = sequence_value(engine, posterior, candidates, settings, shortlist, bound=finish)
             if run >= 1 and run_cost < finish:
                 check_row, check_cost = worth[0], run_cost
 
@@ -782,7 +795,7 @@ def _diagnose(engine: Engine, posterior: AnyPosterior, settings: Settings, candi
         text = (f"escalating ({model.escalation.label}, {_money(price, unit)}) is expected to cost less than "
                 + (f"repairing in order ({_money(plan.repair_cost, unit)})" if repair is not None
                    else "anything left to repair"))
-        first_check = _check_first(engine, posterior, ranking, candidates, settings, price, outside, group_ids,
+        first_check = _check_first(engine, posterior, shortlist, candidates, settings, price, outside, group_ids,
                                    alts, text, ESCALATION_DEPTH)
         if first_check is not None:
             return first_check
@@ -802,6 +815,10 @@ def _diagnose(engine: Engine, posterior: AnyPosterior, settings: Settings, candi
     elif not ranking.worth_doing(settings.min_bits):
         text = f"no check left tells the suspects apart: repair {label} first (P = {p_first:.2f})"
         kind = "no-check-left"
+    elif not shortlist.worth_doing(settings.min_bits):
+        text = (f"the checks left read only parts whose repair would not put the unit right now: repair {label} first "
+                f"(P = {p_first:.2f})")
+        kind = "no-check-matters"
     else:
         text = (f"no check is expected to save more than it costs: repair {label} first "
                 f"(P = {p_first:.2f}, expected {_money(plan.repair_cost, unit)} to finish)")
@@ -811,7 +828,7 @@ def _diagnose(engine: Engine, posterior: AnyPosterior, settings: Settings, candi
     return Decision(Action.REPAIR, first, plan.repair_cost, tuple(alts), (reason,), status, None, outside, unit)
 
 
-def _check_first(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candidates: tuple[str, ...],
+def _check_first(engine: Engine, posterior: AnyPosterior, ranking: CheckList, candidates: tuple[str, ...],
                  settings: Settings, price: float, outside: OutsideModel, group_ids: tuple[str, ...],
                  alternatives: list[Alternative], lead: str, depth: int = 1) -> Decision | None:
     """The decision to do a check before escalating (:func:`_check_before_escalating`), or None when none pays.
@@ -956,7 +973,142 @@ def _sorted(alts: list[Alternative]) -> list[Alternative]:
                                        order.get(a.action, 3)))
 
 
-def _best_check(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candidates: tuple[str, ...],
+#: A part whose repair alone would put the unit right with less than this share of P(it has failed)
+#: cannot matter now (:func:`reads_only_idle_parts`).
+IDLE_FIX_SHARE = 0.05
+#: A check whose outcomes move P(outside the model) by at least this much on average still matters.
+IDLE_OUTSIDE_MOVE = 0.005
+
+
+def reads_only_idle_parts(engine: Engine, posterior: AnyPosterior, row: RankRow) -> bool:
+    """Whether every part the check reads cannot matter now, so the check is left out of the comparison.
+
+    True when each cause of the check is a repairable basic event that is
+    not a single point of failure (failed alone, it does not make the top
+    event occur), repairing it alone would put the unit right with less than
+    :data:`IDLE_FIX_SHARE` of P(it has failed | e), and the check's outcomes
+    move P(outside the model) by less than :data:`IDLE_OUTSIDE_MOVE` on
+    average. A symptom, a check reading a gate or a part with no repair,
+    and a check reading a single point of failure always matter.
+
+    Notes
+    -----
+    The repair plan weighs a suspect by P(failed | e): a part that has
+    failed without effect (under an AND gate, or in a voted group tested
+    normal) still counts there as a possible cause, and the plan's figure
+    is not linear in the posterior, so reading such a part can look like
+    progress. Found by ``optimum-study --family part`` (model
+    small-6-seed320236: after a 2-out-of-3 subsystem tested normal, the
+    tool inspected one of its parts; 1.0674 times the optimum, 1.0086
+    with this rule). Keeping a check that moves P(outside the model)
+    leaves the hand-over's information alone. Cost: one propagation per
+    cause whose repair is weighed, and one per outcome and one per
+    outcome's P(outside) for the checks that get that far.
+    """
+    model = posterior.model
+    check = model.check_by_id.get(row.check)
+    if check is None or not check.causes:
+        return False
+    causes = tuple(cause.target for cause in check.causes)
+    for r in causes:
+        event = model.event_by_id.get(r)
+        if event is None or event.repair is None:
+            return False
+    if any(_single_points(model, causes)):
+        return False
+    top_fails_after = (Finding(model.top, 1, posterior.epoch + 1),)
+    for r in causes:
+        p = posterior.p_failed(r)
+        if p <= 0.0:
+            continue
+        p_fails, _ = _given(engine, posterior, top_fails_after, (r,))
+        if 1.0 - p_fails >= IDLE_FIX_SHARE * p:
+            return False
+    if all(r in model.event_by_id for r in model.hypotheses):
+        return True  # no cause outside the model to tell apart
+    base = outside_model(engine, posterior).p
+    moved = 0.0
+    for outcome, p_outcome in enumerate(row.p_outcomes):
+        if p_outcome <= 0.0:
+            continue
+        _, after = _given(engine, posterior, (Finding(row.check, outcome, posterior.epoch),))
+        if after is not None:
+            moved += p_outcome * abs(outside_model(engine, after).p - base)
+    return moved < IDLE_OUTSIDE_MOVE
+
+
+def _single_points(model: Model, roots: tuple[str, ...]) -> list[bool]:
+    """Per root, whether it alone failed makes the top event occur (kept per model)."""
+    known: dict[str, bool] = model.__dict__.setdefault("_advice_single_points", {})
+    missing = [r for r in dict.fromkeys(roots) if r not in known]
+    if missing:
+        states = {h: np.array([h == r for r in missing]) for h in model.hypotheses}
+        for r, top in zip(missing, gate_values(model, states)[model.top].tolist()):
+            known[r] = bool(top)
+    return [known[r] for r in roots]
+
+
+class _KeptRows(Sequence):
+    """The rows that ``keep`` accepts, in order, each tested only when the rows up to it are read."""
+
+    def __init__(self, rows: tuple[RankRow, ...], keep):
+        self._rows, self._keep = rows, keep
+        self._tested = 0
+        self._kept: list[RankRow] = []
+
+    def _fill(self, count: float) -> None:
+        while len(self._kept) < count and self._tested < len(self._rows):
+            row = self._rows[self._tested]
+            self._tested += 1
+            if self._keep(row):
+                self._kept.append(row)
+
+    def __getitem__(self, index):
+        if isinstance(index, slice):
+            bounded = index.stop is not None and index.stop >= 0 and (index.start or 0) >= 0
+            self._fill(index.stop if bounded else math.inf)
+            return tuple(self._kept[index])
+        self._fill(index + 1 if index >= 0 else math.inf)
+        return self._kept[index]
+
+    def __len__(self) -> int:
+        self._fill(math.inf)
+        return len(self._kept)
+
+    def __bool__(self) -> bool:
+        self._fill(1)
+        return bool(self._kept)
+
+    def __iter__(self):
+        i = 0
+        while True:
+            self._fill(i + 1)
+            if i >= len(self._kept):
+                return
+            yield self._kept[i]
+            i += 1
+
+
+class _WithoutIdleChecks:
+    """A ranking whose checks worth doing leave out those that read only parts that cannot matter now
+    (:func:`reads_only_idle_parts`), tested as the decision reads them."""
+
+    def __init__(self, engine: Engine, posterior: AnyPosterior, ranking: Ranking):
+        self._ranking = ranking
+        self._verdicts: dict[str, bool] = {}
+        self._engine, self._posterior = engine, posterior
+
+    def _matters(self, row: RankRow) -> bool:
+        verdict = self._verdicts.get(row.check)
+        if verdict is None:
+            verdict = self._verdicts[row.check] = not reads_only_idle_parts(self._engine, self._posterior, row)
+        return verdict
+
+    def worth_doing(self, min_bits: float) -> Sequence[RankRow]:
+        return _KeptRows(self._ranking.worth_doing(min_bits), self._matters)
+
+
+def _best_check(engine: Engine, posterior: AnyPosterior, ranking: CheckList, candidates: tuple[str, ...],
                 settings: Settings, finish: float) -> tuple[RankRow | None, float, bool]:
     """The check to recommend, its expected cost to finish, and whether only ``min_bits`` chose it.
 
@@ -988,7 +1140,7 @@ def _best_check(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candi
 ESCALATION_DEPTH = 2
 
 
-def _check_before_escalating(engine: Engine, posterior: AnyPosterior, ranking: Ranking, candidates: tuple[str, ...],
+def _check_before_escalating(engine: Engine, posterior: AnyPosterior, ranking: CheckList, candidates: tuple[str, ...],
                              settings: Settings, price: float, depth: int = 1) -> tuple[RankRow | None, float]:
     """Before handing a unit over, the check worth doing first, if one is, with its expected cost to finish.
 
