@@ -22,6 +22,7 @@ from troubleshoot.advice.policy import (
     IDLE_FIX_SHARE,
     IDLE_OUTSIDE_MOVE,
     Action,
+    _KeptRows,
     decide,
     reads_only_idle_parts,
     settings_for,
@@ -139,8 +140,6 @@ def test_the_rule_only_removes_checks_that_cannot_matter(findings, monkeypatch):
 
 def test_checks_are_tested_only_as_far_as_the_decision_reads_them():
     # A large model pays for the rule only on the checks a decision looks at.
-    from troubleshoot.advice.policy import _KeptRows
-
     tested = []
 
     def keep(row):

@@ -69,7 +69,7 @@ from typing import Protocol
 
 import numpy as np
 
-from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, isolated_suspect, suspects
+from troubleshoot.advice.diagnosis import Suspect, ambiguity_group, hypotheses_of, isolated_suspect, suspects
 from troubleshoot.advice.ranking import Ranking, RankRow, rank
 from troubleshoot.advice.repair import (
     RepairPlan,
@@ -242,6 +242,11 @@ def _given(engine: Engine, posterior: AnyPosterior, extra: tuple[Finding, ...],
     return math.exp(min(0.0, after.log_p - posterior.log_p)), after
 
 
+def _fails_after(engine: Engine, posterior: AnyPosterior, repairs: tuple[str, ...]) -> tuple[float, AnyPosterior | None]:
+    """P(the unit still fails after ``repairs`` more | e), and the posterior given that (:func:`_given`)."""
+    return _given(engine, posterior, (Finding(posterior.model.top, 1, posterior.epoch + len(repairs)),), repairs)
+
+
 def outside_model(engine: Engine, posterior: AnyPosterior) -> OutsideModel:
     """P(the cause lies outside the model) in total and per gate.
 
@@ -364,7 +369,7 @@ def cost_of_repair_then(engine: Engine, posterior: AnyPosterior, first: str, set
         return known
     model = posterior.model
     value = repair_cost(model, first) + verification_cost(model, first)
-    p_fails, failing = _given(engine, posterior, (Finding(model.top, 1, posterior.epoch + 1),), (first,))
+    p_fails, failing = _fails_after(engine, posterior, (first,))
     if failing is not None and p_fails > 0.0:
         value += p_fails * _after_failed_repair(engine, failing, settings)
     if len(memo) >= REPAIR_THEN_MEMO:
@@ -960,7 +965,7 @@ def exact_finish_plan(engine: Engine, posterior: AnyPosterior, settings: Setting
     n = min(EXACT_REPAIRS, len(sequence))
     for j in range(1, n + 1):
         # 0 where failing after these repairs is impossible: they surely put the unit right.
-        exact[j], _ = _given(engine, posterior, (Finding(model.top, 1, posterior.epoch + j),), sequence[:j])
+        exact[j], _ = _fails_after(engine, posterior, sequence[:j])
     if len(sequence) > n:
         scale = exact[n] / single[n] if single[n] > 0.0 else 0.0
         exact[n + 1:] = np.minimum(exact[n], single[n + 1:] * scale)
@@ -988,8 +993,8 @@ def reads_only_idle_parts(engine: Engine, posterior: AnyPosterior, row: RankRow)
     event occur), repairing it alone would put the unit right with less than
     :data:`IDLE_FIX_SHARE` of P(it has failed | e), and the check's outcomes
     move P(outside the model) by less than :data:`IDLE_OUTSIDE_MOVE` on
-    average. A symptom, a check reading a gate or a part with no repair,
-    and a check reading a single point of failure always matter.
+    average. A check (or symptom) reading a gate or a part with no repair,
+    and one reading a single point of failure, always matter.
 
     Notes
     -----
@@ -1016,15 +1021,14 @@ def reads_only_idle_parts(engine: Engine, posterior: AnyPosterior, row: RankRow)
             return False
     if any(_single_points(model, causes)):
         return False
-    top_fails_after = (Finding(model.top, 1, posterior.epoch + 1),)
     for r in causes:
         p = posterior.p_failed(r)
         if p <= 0.0:
             continue
-        p_fails, _ = _given(engine, posterior, top_fails_after, (r,))
+        p_fails, _ = _fails_after(engine, posterior, (r,))
         if 1.0 - p_fails >= IDLE_FIX_SHARE * p:
             return False
-    if all(r in model.event_by_id for r in model.hypotheses):
+    if not any(hypotheses_of(model).unlisted):
         return True  # no cause outside the model to tell apart
     base = outside_model(engine, posterior).p
     moved = 0.0
